@@ -1,0 +1,167 @@
+"""The `seedbed` console command.
+
+    seedbed serve [--host H] [--port P] [--workers N] [--log-level L]
+    seedbed plan FILE            print the plan for a request file (offline, no server)
+    seedbed settings             print the effective settings and where each comes from
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib.util
+import json
+import os
+import sys
+from collections.abc import Sequence
+
+from seedbed import __version__
+
+
+def _positive(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{value} must be at least 1")
+    return value
+
+
+def _port(text: str) -> int:
+    value = _positive(text)
+    if value > 65535:
+        raise argparse.ArgumentTypeError(f"{value} is not a TCP port (1-65535)")
+    return value
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="seedbed",
+        description="Seeded, reproducible, explained initial weights for neural networks.",
+    )
+    parser.add_argument("--version", action="version", version=f"seedbed {__version__}")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+
+    serve = commands.add_parser(
+        "serve",
+        help="run the HTTP service",
+        description="Run the HTTP service. Options override the matching SEEDBED_* variables; "
+        "everything else comes from the environment (see docs/service.md).",
+    )
+    serve.add_argument("--host", help="address to listen on (SEEDBED_HOST, default 127.0.0.1)")
+    serve.add_argument("--port", type=_port, help="TCP port (SEEDBED_PORT, default 8600)")
+    serve.add_argument(
+        "--workers", type=_positive, help="worker processes (SEEDBED_WORKERS, default 1)"
+    )
+    serve.add_argument(
+        "--log-level",
+        choices=("critical", "error", "warning", "info", "debug"),
+        help="least severe messages logged (SEEDBED_LOG_LEVEL, default info)",
+    )
+
+    plan = commands.add_parser(
+        "plan",
+        help="print the plan for a request file without starting a server",
+        description="Read a request (JSON; '-' for standard input) and print its plan as JSON.",
+    )
+    plan.add_argument("file", help="path of the request JSON, or - for standard input")
+
+    commands.add_parser("settings", help="print the effective settings")
+    return parser
+
+
+def _serve(args: argparse.Namespace) -> int:
+    from seedbed.web.logs import logging_config
+    from seedbed.web.settings import PREFIX, Settings, SettingsError
+
+    # Workers are separate processes that build their own app from the environment, so command
+    # line overrides travel to them as SEEDBED_* variables.
+    for name in ("host", "port", "workers", "log_level"):
+        value = getattr(args, name)
+        if value is not None:
+            os.environ[PREFIX + name.upper()] = str(value)
+    try:
+        settings = Settings.from_env()
+    except SettingsError as exc:
+        print(f"seedbed: cannot start: {exc}", file=sys.stderr)
+        return 2
+
+    import uvicorn
+
+    fast_loop = importlib.util.find_spec("uvloop") is not None
+    fast_http = importlib.util.find_spec("httptools") is not None
+    uvicorn.run(
+        "seedbed.web.app:create_app",
+        factory=True,
+        host=settings.host,
+        port=settings.port,
+        workers=settings.workers,
+        log_config=logging_config(settings.log_level),
+        log_level=settings.log_level,
+        access_log=False,  # we write our own access lines, with the request id
+        loop="uvloop" if fast_loop else "asyncio",
+        http="httptools" if fast_http else "h11",
+        server_header=False,
+        timeout_graceful_shutdown=30,
+    )
+    return 0
+
+
+def _plan(args: argparse.Namespace) -> int:
+    from seedbed.core.plan import build_plan
+    from seedbed.core.problems import RequestRejected
+    from seedbed.web.documents import plan_document
+
+    try:
+        if args.file == "-":
+            text = sys.stdin.read()
+        else:
+            with open(args.file, encoding="utf-8") as fh:
+                text = fh.read()
+    except OSError as exc:
+        print(f"seedbed: cannot read {args.file}: {exc.strerror}", file=sys.stderr)
+        return 2
+
+    def refuse(token: str) -> float:
+        raise ValueError(f"{token} is not JSON; numbers must be finite")
+
+    try:
+        data = json.loads(text, parse_constant=refuse)
+    except ValueError as exc:
+        print(f"seedbed: {args.file} is not valid JSON: {exc}", file=sys.stderr)
+        return 2
+    try:
+        plan = build_plan(data)
+    except RequestRejected as exc:
+        for p in exc.problems:
+            print(f"seedbed: {p.field}: {p.message} [{p.code}]", file=sys.stderr)
+        return 1
+    print(json.dumps(plan_document(plan), indent=2, allow_nan=False))
+    return 0
+
+
+def _settings(args: argparse.Namespace) -> int:
+    from seedbed.web.settings import Settings, SettingsError, settings_table
+
+    try:
+        current = Settings.from_env()
+    except SettingsError as exc:
+        print(f"seedbed: {exc}", file=sys.stderr)
+        return 2
+    for var, default, name in settings_table():
+        obj: object = current
+        for part in name.split("."):
+            obj = getattr(obj, part)
+        origin = "environment" if var in os.environ else "default"
+        print(f"{var}={obj}  ({origin}; default {default})")
+    return 0
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    args = build_parser().parse_args(argv)
+    handlers = {"serve": _serve, "plan": _plan, "settings": _settings}
+    return handlers[args.command](args)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

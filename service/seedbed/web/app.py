@@ -1,0 +1,69 @@
+"""The application factory. Importing this module does nothing; `create_app` builds an app."""
+
+from __future__ import annotations
+
+from collections.abc import AsyncIterator, Mapping
+from contextlib import asynccontextmanager
+
+import anyio.to_thread
+from fastapi import FastAPI
+
+from seedbed import __version__
+from seedbed.web.errors import install_error_handlers
+from seedbed.web.metrics import ServiceMetrics
+from seedbed.web.middleware import RequestBookkeeping
+from seedbed.web.openapi_doc import install_openapi
+from seedbed.web.readiness import BAKED_ALGORITHM, self_check
+from seedbed.web.routes import ops, plan, weights
+from seedbed.web.settings import Settings
+
+DESCRIPTION = (
+    "Seeded, reproducible, explained initial weights for neural networks. Describe a network's "
+    "layers; get each tensor's values (JSON, NPZ or safetensors), the rationale for every "
+    "scale, and SHA-256 fingerprints to verify them. The same request gives the same bytes on "
+    "every machine. Every error has one shape: `{\"error\": {status, code, field, message, "
+    "problems}}`."
+)
+
+
+def create_app(
+    settings: Settings | None = None,
+    *,
+    reference_digests: Mapping[str, str] | None = None,
+    reference_algorithm: str = BAKED_ALGORITHM,
+) -> FastAPI:
+    """Build the service. `settings` defaults to the `SEEDBED_*` environment; the reference
+    arguments replace the baked /readyz values (tests use them to prove a mismatch is caught)."""
+    settings = Settings.from_env() if settings is None else settings
+    metrics = ServiceMetrics()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        app.state.readiness = await anyio.to_thread.run_sync(
+            lambda: self_check(
+                reference_digests, reference_algorithm, threads=settings.generation_threads
+            )
+        )
+        yield
+
+    app = FastAPI(
+        title="seedbed",
+        version=__version__,
+        description=DESCRIPTION,
+        lifespan=lifespan,
+        redoc_url=None,
+        openapi_tags=[
+            {"name": "weights", "description": "Plans, weights and the catalog."},
+            {"name": "operations", "description": "Liveness, readiness and metrics."},
+        ],
+    )
+    app.state.settings = settings
+    app.state.metrics = metrics
+    app.state.readiness = None
+    install_error_handlers(app)
+    app.include_router(plan.router)
+    app.include_router(weights.router)
+    app.include_router(ops.router)
+    install_openapi(app)
+    app.add_middleware(RequestBookkeeping, metrics=metrics, access_log_on=settings.access_log)
+    return app

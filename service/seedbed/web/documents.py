@@ -1,0 +1,49 @@
+"""JSON documents the service answers with (besides the weight containers)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+
+from seedbed.core.plan_types import Plan, TensorPlan
+
+
+def plan_document(plan: Plan) -> dict[str, Any]:
+    return {
+        "algorithm": plan.algorithm,
+        "seed": plan.seed,
+        "dtype": plan.dtype,
+        "layout": plan.layout,
+        "tensor_count": len(plan.tensors),
+        "total_values": plan.total_count,
+        "total_bytes": sum(t.nbytes for t in plan.tensors),
+        "warnings": list(plan.warnings),
+        "tensors": [t.manifest() for t in plan.tensors],
+    }
+
+
+def response_document(plan: Plan, selection: dict[str, Any] | None) -> dict[str, Any]:
+    """Response-wide manifest fields; the numpy version is recorded because it is part of what
+    the bytes were produced with (and of the ETag)."""
+    doc: dict[str, Any] = {
+        "algorithm": plan.algorithm,
+        "numpy": np.__version__,
+        "seed": plan.seed,
+        "dtype": plan.dtype,
+        "layout": plan.layout,
+        "warnings": list(plan.warnings),
+    }
+    if selection is not None:
+        doc["selection"] = selection
+    return doc
+
+
+def block_entry(t: TensorPlan, shape: tuple[int, ...], start: int, stop: int) -> dict[str, Any]:
+    """A manifest entry for rows [start, stop) of `t`: `shape` is the block's, the full tensor's
+    shape stays visible so nobody mistakes the block for the whole."""
+    entry = t.manifest()
+    entry["shape"] = list(shape)
+    entry["full_shape"] = list(t.shape)
+    entry["rows"] = [start, stop]
+    return entry
