@@ -1,8 +1,8 @@
 """The `seedbed` console command.
 
-    seedbed serve [--host H] [--port P] [--workers N] [--log-level L]
-    seedbed plan FILE            print the plan for a request file (offline, no server)
-    seedbed settings             print the effective settings and where each comes from
+seedbed serve [--host H] [--port P] [--workers N] [--log-level L]
+seedbed plan FILE            print the plan for a request file (offline, no server)
+seedbed settings             print the effective settings and where each comes from
 """
 
 from __future__ import annotations

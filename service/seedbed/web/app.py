@@ -7,6 +7,8 @@ from contextlib import asynccontextmanager
 
 import anyio.to_thread
 from fastapi import FastAPI
+from fastapi.routing import APIRoute
+from starlette.routing import Route
 
 from seedbed import __version__
 from seedbed.web.errors import install_error_handlers
@@ -21,7 +23,7 @@ DESCRIPTION = (
     "Seeded, reproducible, explained initial weights for neural networks. Describe a network's "
     "layers; get each tensor's values (JSON, NPZ or safetensors), the rationale for every "
     "scale, and SHA-256 fingerprints to verify them. The same request gives the same bytes on "
-    "every machine. Every error has one shape: `{\"error\": {status, code, field, message, "
+    'every machine. Every error has one shape: `{"error": {status, code, field, message, '
     "problems}}`."
 )
 
@@ -61,9 +63,16 @@ def create_app(
     app.state.metrics = metrics
     app.state.readiness = None
     install_error_handlers(app)
-    app.include_router(plan.router)
-    app.include_router(weights.router)
-    app.include_router(ops.router)
+    methods_by_path: dict[str, set[str]] = {}
+    for router in (plan.router, weights.router, ops.router):
+        app.include_router(router)
+        for route in router.routes:
+            if isinstance(route, APIRoute):
+                methods_by_path.setdefault(route.path, set()).update(route.methods or ())
+    for route in app.routes:
+        if isinstance(route, Route) and route.methods:
+            methods_by_path.setdefault(route.path, set()).update(route.methods)
+    app.state.methods_by_path = methods_by_path
     install_openapi(app)
     app.add_middleware(RequestBookkeeping, metrics=metrics, access_log_on=settings.access_log)
     return app

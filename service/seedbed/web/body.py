@@ -64,7 +64,10 @@ async def read_json_body(request: Request, max_bytes: int) -> Any:
     if declared is not None:
         if not declared.strip().isdigit():
             raise ApiError.one(
-                400, "content-length", "invalid_value", f"Content-Length {declared!r} is not a number"
+                400,
+                "content-length",
+                "invalid_value",
+                f"Content-Length {declared!r} is not a number",
             )
         if int(declared) > max_bytes:
             raise _too_large(max_bytes, declared.strip())
@@ -101,4 +104,6 @@ async def read_json_body(request: Request, max_bytes: int) -> Any:
             400, "body", "invalid_json", "the body's JSON is nested too deeply"
         ) from None
     except ValueError as exc:  # e.g. an integer literal with more digits than Python converts
-        raise ApiError.one(400, "body", "invalid_json", f"the body is not usable JSON: {exc}") from None
+        raise ApiError.one(
+            400, "body", "invalid_json", f"the body is not usable JSON: {exc}"
+        ) from None

@@ -52,7 +52,12 @@ class ApiError(Exception):
 
     @classmethod
     def one(
-        cls, status: int, field: str, code: str, message: str, headers: Mapping[str, str] | None = None
+        cls,
+        status: int,
+        field: str,
+        code: str,
+        message: str,
+        headers: Mapping[str, str] | None = None,
     ) -> ApiError:
         return cls(status, [Fault(field, code, message)], headers)
 
@@ -91,8 +96,10 @@ def from_rejection(exc: RequestRejected) -> ApiError:
 
 
 class ProblemDoc(BaseModel):
-    field: str = Field(description="Where the problem is: a body path like layers[2].kernel, "
-                       "a query parameter name, a header name, 'body' or 'path'.")
+    field: str = Field(
+        description="Where the problem is: a body path like layers[2].kernel, "
+        "a query parameter name, a header name, 'body' or 'path'."
+    )
     code: str = Field(description="Machine-readable reason, e.g. too_large, invalid_value.")
     message: str = Field(description="What is wrong and what is allowed.")
 
@@ -112,9 +119,11 @@ def _validation_faults(exc: RequestValidationError) -> list[Fault]:
         loc = [str(p) for p in err.get("loc", ()) if p not in ("query", "path", "header", "body")]
         where = ".".join(loc) or "request"
         kind = str(err.get("type", ""))
-        code = {"missing": "missing_field", "literal_error": "not_allowed", "enum": "not_allowed"}.get(
-            kind, "invalid_value"
-        )
+        code = {
+            "missing": "missing_field",
+            "literal_error": "not_allowed",
+            "enum": "not_allowed",
+        }.get(kind, "invalid_value")
         faults.append(Fault(where, code, f"{where}: {err.get('msg', 'invalid value')}"))
     return faults or [Fault("request", "invalid_value", "the request is not valid")]
 
@@ -123,6 +132,13 @@ _STATUS_CODES = {
     404: ("path", "not_found"),
     405: ("method", "method_not_allowed"),
 }
+
+
+def _allowed_methods(request: Request) -> list[str]:
+    # GET and HEAD are separate routes (distinct operation ids), so Starlette's own Allow
+    # header names only one of them; the app factory records every method per path.
+    table: Mapping[str, Iterable[str]] = getattr(request.app.state, "methods_by_path", {})
+    return sorted(table.get(request.scope.get("path", ""), ()))
 
 
 def install_error_handlers(app: FastAPI) -> None:
@@ -147,8 +163,13 @@ def install_error_handlers(app: FastAPI) -> None:
         if exc.status_code == 404:
             message = f"no such endpoint: {request.url.path}; see /docs or openapi/openapi.json"
         elif exc.status_code == 405:
-            allowed = (exc.headers or {}).get("Allow", "")
-            message = f"{request.method} is not allowed on {request.url.path}; allowed: {allowed}"
+            allowed = _allowed_methods(request)
+            headers = {**(exc.headers or {}), "Allow": ", ".join(allowed)}
+            message = (
+                f"{request.method} is not allowed on {request.url.path}; "
+                f"allowed: {', '.join(allowed)}"
+            )
+            return error_response(405, [Fault(field, code, message)], headers)
         else:
             message = str(exc.detail)
         return error_response(exc.status_code, [Fault(field, code, message)], exc.headers)

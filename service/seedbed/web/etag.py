@@ -20,7 +20,9 @@ from seedbed import __version__
 
 def strong_etag(kind: str, **parts: Any) -> str:
     doc = {"kind": kind, "numpy": np.__version__, "service": __version__, **parts}
-    text = json.dumps(doc, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
+    text = json.dumps(
+        doc, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False
+    )
     return '"' + hashlib.sha256(text.encode("ascii")).hexdigest() + '"'
 
 

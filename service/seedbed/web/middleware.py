@@ -66,7 +66,9 @@ class RequestBookkeeping:
             if message["type"] == "http.response.start":
                 response_started = True
                 status = message["status"]
-                headers = [h for h in message.get("headers", []) if h[0] != REQUEST_ID_HEADER.encode()]
+                headers = [
+                    h for h in message.get("headers", []) if h[0] != REQUEST_ID_HEADER.encode()
+                ]
                 headers.append((REQUEST_ID_HEADER.encode(), rid.encode()))
                 message = {**message, "headers": headers}
             elif message["type"] == "http.response.body":
@@ -119,7 +121,8 @@ class RequestBookkeeping:
                     Fault(
                         "request",
                         "internal_error",
-                        f"the service failed unexpectedly; quote request id {rid} when reporting it",
+                        f"the service failed unexpectedly; quote request id {rid} "
+                        "when reporting it",
                     )
                 ],
             )

@@ -26,10 +26,22 @@ PROBE_REQUESTS: dict[str, dict[str, Any]] = {
         "dtype": "float32",
         "layers": [
             {"name": "intake", "kind": "dense", "n_in": 24, "n_out": 16, "activation": "relu"},
-            {"name": "mixer", "kind": "dense", "n_in": 16, "n_out": 16, "activation": "tanh",
-             "init": {"method": "glorot", "distribution": "truncated_normal"}},
-            {"name": "spread", "kind": "dense", "n_in": 16, "n_out": 8, "activation": "linear",
-             "init": {"method": "lecun", "distribution": "uniform"}},
+            {
+                "name": "mixer",
+                "kind": "dense",
+                "n_in": 16,
+                "n_out": 16,
+                "activation": "tanh",
+                "init": {"method": "glorot", "distribution": "truncated_normal"},
+            },
+            {
+                "name": "spread",
+                "kind": "dense",
+                "n_in": 16,
+                "n_out": 8,
+                "activation": "linear",
+                "init": {"method": "lecun", "distribution": "uniform"},
+            },
         ],
     },
     "probe16": {
@@ -37,8 +49,14 @@ PROBE_REQUESTS: dict[str, dict[str, Any]] = {
         "dtype": "float16",
         "layout": "in_out",
         "layers": [
-            {"name": "edge", "kind": "conv", "channels_in": 3, "channels_out": 4,
-             "kernel": [3, 3], "activation": "relu"},
+            {
+                "name": "edge",
+                "kind": "conv",
+                "channels_in": 3,
+                "channels_out": 4,
+                "kernel": [3, 3],
+                "activation": "relu",
+            },
         ],
     },
     "probe_bf16": {
@@ -99,7 +117,7 @@ def self_check(
     """Compare freshly generated probe tensors with the expected digests; never raises."""
     want = dict(BAKED_SHA256 if expected is None else expected)
     started = time.perf_counter()
-    if ALGORITHM != expected_algorithm:
+    if expected_algorithm != ALGORITHM:
         return Readiness(
             False,
             f"the core's algorithm is {ALGORITHM!r} but the baked reference values are for "

@@ -19,8 +19,12 @@ router = APIRouter(tags=["operations"])
     "stream, because generation runs off the event loop.",
     responses={200: {"content": {"application/json": {"example": {"status": "alive"}}}}},
 )
-@router.head("/healthz", operation_id="probeLivenessHead", include_in_schema=True,
-             summary="Liveness headers only.")
+@router.head(
+    "/healthz",
+    operation_id="probeLivenessHead",
+    include_in_schema=True,
+    summary="Liveness headers only.",
+)
 async def healthz() -> JSONResponse:
     return JSONResponse({"status": "alive"}, headers={"Cache-Control": "no-store"})
 
@@ -32,10 +36,20 @@ async def healthz() -> JSONResponse:
     description="Ready (200) once the start-up self-check generated the probe tensors and "
     "their SHA-256 matched the values baked into the service; 503 with the reason otherwise.",
     responses={
-        200: {"content": {"application/json": {"example": {
-            "status": "ready", "reason": "7 probe tensors match the reference bytes",
-            "algorithm": "seedbed-philox4x64-v1", "tensors_checked": 7, "mismatches": [],
-            "seconds": 0.01}}}},
+        200: {
+            "content": {
+                "application/json": {
+                    "example": {
+                        "status": "ready",
+                        "reason": "7 probe tensors match the reference bytes",
+                        "algorithm": "seedbed-philox4x64-v1",
+                        "tensors_checked": 7,
+                        "mismatches": [],
+                        "seconds": 0.01,
+                    }
+                }
+            }
+        },
         503: {"description": "Not ready; `reason` says why."},
     },
 )
@@ -56,8 +70,12 @@ async def readyz(request: Request) -> JSONResponse:
     response_class=Response,
     responses={200: {"content": {metrics_mod.MEDIA_TYPE: {"schema": {"type": "string"}}}}},
 )
-@router.head("/metrics", operation_id="scrapeMetricsHead", summary="Metrics headers only.",
-             response_class=Response)
+@router.head(
+    "/metrics",
+    operation_id="scrapeMetricsHead",
+    summary="Metrics headers only.",
+    response_class=Response,
+)
 async def metrics(request: Request) -> Response:
     registry: metrics_mod.ServiceMetrics = request.app.state.metrics
     return Response(

@@ -23,8 +23,11 @@ router = APIRouter(tags=["weights"])
     description="Validates the request and returns one entry per tensor: shape, method, "
     "distribution, fans, gain, std, bound, rationale and references. Cheap: nothing is "
     "generated. Carries an ETag; If-None-Match with it answers 304.",
-    responses={200: {"description": "The plan."}, 304: {"description": "Unchanged."},
-               **error_responses(400, 413, 415, 422)},
+    responses={
+        200: {"description": "The plan."},
+        304: {"description": "Unchanged."},
+        **error_responses(400, 413, 415, 422),
+    },
     openapi_extra=request_body("The network to plan."),
 )
 async def draft_plan(request: Request) -> Response:

@@ -42,7 +42,10 @@ def _select(plan: Plan, tensor: str | None, rows: str | None) -> Selection | Non
         names = [x.tensor for x in plan.tensors]
         shown = ", ".join(names[:8]) + (f" ... ({len(names)} in all)" if len(names) > 8 else "")
         raise ApiError.one(
-            422, "tensor", "unknown_tensor", f"no tensor named {tensor!r} in this request; it has: {shown}"
+            422,
+            "tensor",
+            "unknown_tensor",
+            f"no tensor named {tensor!r} in this request; it has: {shown}",
         ) from None
     if rows is None:
         start, stop = 0, (t.shape[0] if t.shape else 1)
@@ -77,10 +80,10 @@ async def generate_weights(
         description="Container: json (base64 in `data`), npz (zip of .npy members plus a "
         "manifest member) or safetensors (manifest in the header metadata).",
     ),
-    tensor: str | None = Query(  # noqa: B008
+    tensor: str | None = Query(
         None, description="Serve only this tensor (a name from the plan)."
     ),
-    rows: str | None = Query(  # noqa: B008
+    rows: str | None = Query(
         None,
         description="START:STOP rows of the served first axis of `tensor`; the block equals "
         "that slice of the full tensor byte for byte.",
