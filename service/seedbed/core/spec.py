@@ -1,0 +1,895 @@
+"""The request format: a network's layers, validated strictly, with defaults filled in.
+
+A request is a JSON object:
+
+    seed      integer 0 .. 2**63-1, or a string of 1..128 characters (hashed into a key).
+              true/false are not integers here.
+    dtype     float32 (default) | float64 | float16 | bfloat16
+    layout    out_in (default: rows are output units) | in_out (the transpose; see tensors.py)
+    layers    1 .. Limits.max_layers layer objects, in the order the signal meets them
+
+Every layer has a unique `name` (letters, digits, ``_ . -``; starting with a letter, digit or
+``_``; at most Limits.max_name_length characters) and a `kind` with its own size fields:
+
+    dense       n_in, n_out
+    conv        channels_in, channels_out, kernel (1-3 sizes), groups (1; divides both
+                channel counts), transposed (false), stride (one per kernel entry; all 1s)
+    embedding   vocab, dim                    (no bias)
+    recurrent   cell (simple | lstm | gru), n_in, hidden, gate_order (lstm/gru only),
+                forget_bias (lstm only, default 1.0)
+    attention   dim, heads (heads divides dim): query/key/value/output projections
+    norm        dim: a scale and (with bias) a shift vector
+
+and these optional fields:
+
+    activation        what follows the layer (an activation name; default linear; simple
+                      recurrent cells default to tanh; lstm/gru cells have built-in gate
+                      nonlinearities and take none; softmax only on output layers)
+    activation_param  the activation's one parameter (leaky_relu slope, elu alpha); filled with
+                      the activation's default when it takes one and none is given
+    role              hidden (default) | output | residual_out (last layer of a residual branch)
+    bias              whether the layer has bias tensors (default true; embedding: false only;
+                      norm: whether it has a shift)
+    init              override for the layer's weight tensors (see `WeightOverride`)
+    bias_init         override for its bias tensors: {"method": "constant", "value": v}
+    class_prior       dense/conv output layers with a bias: the prior probability pi in (0, 1)
+                      of the positive class; the bias is set to log(pi/(1-pi)) (Lin et al. 2017)
+
+Strictness: unknown fields are refused everywhere, numbers must not be quoted, booleans are not
+numbers, NaN and Infinity are refused, sizes are positive integers at most 2**31-1.
+
+`parse_request(data, limits)` is the entry point for untrusted input: besides the model checks
+it checks what spans layers (unique layer and tensor names), that explicit values fit the
+dtype, and the size limits. Validating `NetworkRequest` directly skips those; do not serve a
+request that did not go through `parse_request`.
+
+`canonical_request(request)` gives the JSON-ready form with every default filled and keys
+sorted: two requests that mean the same thing have the same canonical form, which is what
+ETags and caches key on.
+"""
+
+from __future__ import annotations
+
+import re
+from typing import Annotated, Any, Literal, Union
+
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationError,
+    ValidationInfo,
+    field_validator,
+    model_validator,
+)
+
+from seedbed.core.activations import activation_names, describe_activation
+from seedbed.core.limits import MAX_SIZE, Limits, check_layer_count, size_problems
+from seedbed.core.problems import (
+    BODY,
+    Allowed,
+    Problem,
+    RequestRejected,
+    describe_input,
+    field_error,
+    problems_from_validation_error,
+)
+
+# ---------------------------------------------------------------------------------------------
+# Vocabulary
+
+DType = Literal["float32", "float64", "float16", "bfloat16"]
+Layout = Literal["out_in", "in_out"]
+Role = Literal["hidden", "output", "residual_out"]
+Cell = Literal["simple", "lstm", "gru"]
+WeightMethod = Literal[
+    "symmetric_uniform", "glorot", "he", "lecun", "orthogonal", "identity", "constant"
+]
+Distribution = Literal["uniform", "normal", "truncated_normal"]
+Fan = Literal["in", "out", "mean"]
+
+SEED_INT_MAX = 2**63 - 1
+SEED_STR_MAX = 128
+
+# Largest finite value of each dtype (IEEE 754 binary16/32/64; bfloat16 keeps float32's
+# exponent with an 8-bit significand). A test checks these against numpy/ml_dtypes finfo.
+DTYPE_MAX: dict[str, float] = {
+    "float64": 1.7976931348623157e308,
+    "float32": 3.4028234663852886e38,
+    "float16": 65504.0,
+    "bfloat16": 3.3895313892515355e38,
+}
+# Normal draws come from probabilities no closer to 0 or 1 than 2**-53, whose normal quantile
+# is about -8.21 (scipy.special.ndtri); 8.3 bounds |z| with a margin. A std is refused when
+# 8.3 * std would not fit the dtype.
+NORMAL_EXTREME = 8.3
+
+LSTM_GATES: tuple[str, ...] = ("input", "forget", "cell", "output")
+GRU_GATES: tuple[str, ...] = ("reset", "update", "candidate")
+GATES: dict[str, tuple[str, ...]] = {"simple": ("candidate",), "lstm": LSTM_GATES, "gru": GRU_GATES}
+
+RANDOM_METHODS = frozenset({"symmetric_uniform", "glorot", "he", "lecun"})
+FAN_METHODS = frozenset({"symmetric_uniform", "he", "lecun"})  # glorot's fan is fixed: mean
+# Distribution a random method uses when the override names none: Glorot & Bengio (2010)
+# derive their normalised init as a uniform (eq. 16); He et al. (2015) draw from a zero-mean
+# Gaussian (eq. 10); LeCun et al. (1998) state the target std, normal is the usual reading.
+DEFAULT_DISTRIBUTION: dict[str, str] = {
+    "symmetric_uniform": "uniform",
+    "glorot": "uniform",
+    "he": "normal",
+    "lecun": "normal",
+}
+
+_NAME_PATTERN = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.\-]*")
+
+_SIZE_TEXT = f"a positive integer (1 to {MAX_SIZE})"
+Size = Annotated[int, Field(ge=1, le=MAX_SIZE), Allowed(_SIZE_TEXT)]
+Positive = Annotated[float, Field(gt=0), Allowed("a positive finite number")]
+Finite = Annotated[float, Allowed("a finite number")]
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(strict=True, extra="forbid", allow_inf_nan=False, frozen=True)
+
+
+# ---------------------------------------------------------------------------------------------
+# Overrides
+
+
+class WeightOverride(_Strict):
+    """An explicit initialisation for a layer's weight tensors, replacing the recommendation.
+
+    Which fields each method takes (anything else is refused with a message):
+
+    - symmetric_uniform: U(-b, b). Either an explicit `bound` (or `std`, b = std*sqrt(3)), or
+      b = gain/sqrt(fan) from `fan` (in | out | mean, default in) and `gain` (default: from the
+      activation), the older heuristic of Glorot & Bengio (2010) eq. 1. `distribution` may be
+      omitted or "uniform".
+    - glorot, he, lecun: `distribution` uniform | normal | truncated_normal (defaults: glorot
+      uniform, he normal, lecun normal), `gain` (default: from the activation). he and lecun
+      take `fan` (in | out | mean, default in); glorot always uses the mean of fan-in and
+      fan-out (only "mean" is accepted). Alternatively an explicit `std` (any distribution) or
+      `bound` (uniform only) fixes the scale, and then fan and gain are refused: the explicit
+      number is the final scale.
+    - orthogonal, identity: only `gain`.
+    - constant: only `value` (required).
+    """
+
+    model_config = ConfigDict(title="weight override")
+
+    method: WeightMethod = Field(
+        description="The initialisation method.", examples=["he", "orthogonal"]
+    )
+    distribution: Distribution | None = Field(
+        default=None,
+        description="Distribution for symmetric_uniform/glorot/he/lecun; filled with the "
+        "method's default when omitted; not used by orthogonal/identity/constant.",
+        examples=["truncated_normal"],
+    )
+    fan: Fan | None = Field(
+        default=None,
+        description="Which fan scales the weights: in, out or mean of the two. symmetric_uniform, "
+        "he and lecun take any (default in); glorot is always mean.",
+        examples=["in"],
+    )
+    gain: Positive | None = Field(
+        default=None,
+        description="Multiplier of the method's unit scale; default: the activation's gain.",
+        examples=[1.0],
+    )
+    std: Positive | None = Field(
+        default=None,
+        description="Explicit standard deviation of the realised distribution (replaces the "
+        "fan-based formula; not with bound).",
+        examples=[0.02],
+    )
+    bound: Positive | None = Field(
+        default=None,
+        description="Explicit bound b of U(-b, b) (uniform only; not with std).",
+        examples=[0.05],
+    )
+    value: Finite | None = Field(
+        default=None,
+        description="The value of every element; required for, and only for, constant.",
+        examples=[0.0],
+    )
+
+    @model_validator(mode="before")
+    @classmethod
+    def _fill_defaults(cls, data: Any) -> Any:
+        if not isinstance(data, dict):
+            return data
+        method = data.get("method")
+        if not isinstance(method, str) or method not in RANDOM_METHODS:
+            return data
+        data = dict(data)
+        if data.get("distribution") is None:
+            data["distribution"] = DEFAULT_DISTRIBUTION[method]
+        explicit_scale = data.get("std") is not None or data.get("bound") is not None
+        if data.get("fan") is None and not explicit_scale:
+            data["fan"] = "mean" if method == "glorot" else "in"
+        return data
+
+    @model_validator(mode="after")
+    def _check(self) -> WeightOverride:
+        m = self.method
+        if m not in RANDOM_METHODS:
+            for name in ("distribution", "fan", "std", "bound"):
+                if getattr(self, name) is not None:
+                    raise field_error(
+                        "not_allowed",
+                        f"{m} does not take {name}; "
+                        + ("it takes only value" if m == "constant" else "it takes only gain"),
+                        name,
+                    )
+            if m == "constant":
+                if self.gain is not None:
+                    raise field_error("not_allowed", "constant takes only value", "gain")
+                if self.value is None:
+                    raise field_error(
+                        "missing_field", "constant needs value: a finite number", "value"
+                    )
+            return self
+        if self.value is not None:
+            raise field_error("not_allowed", "value is only allowed when method is constant",
+                              "value")  # fmt: skip
+        if m == "symmetric_uniform" and self.distribution != "uniform":
+            raise field_error(
+                "not_allowed",
+                "symmetric_uniform is uniform by definition; omit distribution or set uniform",
+                "distribution",
+            )
+        if self.std is not None and self.bound is not None:
+            raise field_error("not_allowed", "give either std or bound, not both", "bound")
+        if self.bound is not None and self.distribution != "uniform":
+            raise field_error(
+                "not_allowed",
+                "bound is only allowed when the distribution is uniform (a truncated normal is "
+                "cut at 2 std; give std instead)",
+                "bound",
+            )
+        if self.std is not None or self.bound is not None:
+            which = "std" if self.std is not None else "bound"
+            for name in ("fan", "gain"):
+                if getattr(self, name) is not None:
+                    raise field_error(
+                        "not_allowed",
+                        f"{name} is not used with an explicit {which}: the {which} is the final "
+                        f"scale; remove {name}, or remove {which} to use the {m} formula",
+                        name,
+                    )
+        if m == "glorot" and self.fan not in (None, "mean"):
+            raise field_error(
+                "not_allowed",
+                "glorot always uses the mean of fan-in and fan-out (allowed: mean); use he or "
+                "lecun to scale by fan-in or fan-out alone",
+                "fan",
+            )
+        return self
+
+
+class BiasOverride(_Strict):
+    """An explicit value for every element of a layer's bias tensors."""
+
+    model_config = ConfigDict(title="bias override")
+
+    method: Literal["constant"] = Field(
+        description="Only constant is available for biases.", examples=["constant"]
+    )
+    value: Finite = Field(description="The value of every bias element.", examples=[0.1])
+
+
+# ---------------------------------------------------------------------------------------------
+# Layers
+
+
+def _activation_allowed() -> str:
+    return ", ".join(activation_names())
+
+
+class _LayerBase(_Strict):
+    name: Annotated[
+        str,
+        Allowed(
+            "1 to 128 characters of letters, digits, '_', '.', '-', starting with a letter, "
+            "digit or '_'"
+        ),
+    ] = Field(
+        description="Unique name of the layer; tensor names are built from it.",
+        examples=["encoder.0"],
+    )
+    activation: str | None = Field(
+        default=None,
+        description="The activation applied to this layer's output. Default linear (simple "
+        "recurrent cells: tanh; lstm/gru take none). softmax only for output layers.",
+        examples=["relu"],
+    )
+    activation_param: Finite | None = Field(
+        default=None,
+        description="The activation's parameter: leaky_relu's negative slope (default 0.01), "
+        "elu's alpha (default 1.0); filled with the default when omitted.",
+        examples=[0.2],
+    )
+    role: Role = Field(
+        default="hidden",
+        description="hidden, output (the network's last layer), or residual_out (the last layer "
+        "of a residual branch, whose output is added to the skip path).",
+        examples=["output"],
+    )
+    init: WeightOverride | None = Field(
+        default=None,
+        description="Explicit initialisation of this layer's weight tensors.",
+        examples=[{"method": "he", "distribution": "normal", "fan": "in"}],
+    )
+    bias_init: BiasOverride | None = Field(
+        default=None,
+        description="Explicit constant for this layer's bias tensors (needs bias true).",
+        examples=[{"method": "constant", "value": 0.0}],
+    )
+    class_prior: Annotated[
+        float, Field(gt=0, lt=1), Allowed("a probability strictly between 0 and 1")
+    ] | None = Field(
+        default=None,
+        description="For a dense or conv output layer with a bias: the prior probability of "
+        "the positive class; the bias becomes log(pi/(1-pi)) (Lin et al. 2017, sec. 4.1).",
+        examples=[0.01],
+    )
+
+    @field_validator("name", mode="after")
+    @classmethod
+    def _check_name(cls, value: str, info: ValidationInfo) -> str:
+        limits = _limits_from(info)
+        if not value or len(value) > limits.max_name_length:
+            raise field_error(
+                "invalid_value",
+                f"layer names have 1 to {limits.max_name_length} characters; got "
+                f"{len(value)}",
+            )
+        if not _NAME_PATTERN.fullmatch(value):
+            raise field_error(
+                "invalid_value",
+                f"got {describe_input(value)}; allowed: letters, digits, '_', '.', '-', "
+                "starting with a letter, digit or '_'",
+            )
+        return value
+
+    @field_validator("activation", mode="after")
+    @classmethod
+    def _check_activation(cls, value: str | None) -> str | None:
+        if value is not None and value not in activation_names():
+            raise field_error(
+                "invalid_value",
+                f"got {describe_input(value)}; allowed activations: {_activation_allowed()}",
+            )
+        return value
+
+    @model_validator(mode="before")
+    @classmethod
+    def _fill_layer_defaults(cls, data: Any) -> Any:
+        if not isinstance(data, dict):
+            return data
+        data = dict(data)
+        if data.get("activation") is None:
+            default = cls._default_activation(data)
+            if default is None:
+                data.pop("activation", None)
+            else:
+                data["activation"] = default
+        activation = data.get("activation")
+        if (
+            data.get("activation_param") is None
+            and isinstance(activation, str)
+            and activation in activation_names()
+        ):
+            spec = describe_activation(activation).param
+            if spec is not None:
+                data["activation_param"] = spec.default
+        return data
+
+    @classmethod
+    def _default_activation(cls, data: dict[str, Any]) -> str | None:
+        return "linear"
+
+    @model_validator(mode="after")
+    def _check_layer(self) -> _LayerBase:
+        self._check_kind()
+        self._check_activation_fields()
+        self._check_bias_fields()
+        return self
+
+    def _check_kind(self) -> None:
+        """Kind-specific checks; subclasses override."""
+
+    def _has_bias(self) -> bool:
+        return bool(getattr(self, "bias", False))
+
+    def _check_activation_fields(self) -> None:
+        if self.activation is None:
+            if self.activation_param is not None:
+                raise field_error(
+                    "not_allowed",
+                    "activation_param needs an activation that takes a parameter "
+                    "(leaky_relu: slope; elu: alpha)",
+                    "activation_param",
+                )
+            return
+        info = describe_activation(self.activation)
+        if info.output_only and self.role != "output":
+            raise field_error(
+                "not_allowed",
+                f"{self.activation} is only allowed on an output layer (role: output)",
+                "activation",
+            )
+        if self.activation_param is not None:
+            if info.param is None:
+                takers = [
+                    f"{n} ({p.name})"
+                    for n in activation_names()
+                    if (p := describe_activation(n).param) is not None
+                ]
+                raise field_error(
+                    "not_allowed",
+                    f"{self.activation} takes no parameter; only {', '.join(takers)} take one",
+                    "activation_param",
+                )
+            if not info.param.contains(self.activation_param):
+                raise field_error(
+                    "invalid_value",
+                    f"{self.activation}'s {info.param.name} must be in "
+                    f"{info.param.range_text()}; got {self.activation_param!r}",
+                    "activation_param",
+                )
+
+    def _check_bias_fields(self) -> None:
+        kind = getattr(self, "kind", "")
+        if self.bias_init is not None and not self._has_bias():
+            raise field_error(
+                "not_allowed", "bias_init needs the layer to have a bias (bias: true)", "bias_init"
+            )
+        if self.class_prior is None:
+            return
+        if kind not in ("dense", "conv"):
+            raise field_error(
+                "not_allowed",
+                f"class_prior is only for dense and conv output layers, not {kind}",
+                "class_prior",
+            )
+        if self.role != "output":
+            raise field_error(
+                "not_allowed", "class_prior is only allowed when role is output", "class_prior"
+            )
+        if not self._has_bias():
+            raise field_error(
+                "not_allowed",
+                "class_prior sets the bias, so the layer needs bias: true",
+                "class_prior",
+            )
+        if self.bias_init is not None:
+            raise field_error(
+                "not_allowed",
+                "class_prior already sets the bias; give class_prior or bias_init, not both",
+                "bias_init",
+            )
+
+
+class DenseLayer(_LayerBase):
+    """A fully connected layer y = W x + b."""
+
+    model_config = ConfigDict(title="dense layer")
+
+    kind: Literal["dense"] = Field(description="Layer kind.", examples=["dense"])
+    n_in: Size = Field(description="Input features.", examples=[784])
+    n_out: Size = Field(description="Output features (units).", examples=[256])
+    bias: bool = Field(default=True, description="Whether the layer has a bias vector.")
+
+
+class ConvLayer(_LayerBase):
+    """A convolution over 1 to 3 spatial dimensions, optionally grouped or transposed."""
+
+    model_config = ConfigDict(title="conv layer")
+
+    kind: Literal["conv"] = Field(description="Layer kind.", examples=["conv"])
+    channels_in: Size = Field(description="Input channels.", examples=[3])
+    channels_out: Size = Field(description="Output channels.", examples=[64])
+    kernel: Annotated[
+        list[Size],
+        Field(min_length=1, max_length=3),
+        Allowed(f"a list of 1 to 3 positive integers (each 1 to {MAX_SIZE})"),
+    ] = Field(description="Kernel size per spatial dimension.", examples=[[3, 3]])
+    groups: Size = Field(
+        default=1,
+        description="Number of channel groups; divides channels_in and channels_out.",
+        examples=[1],
+    )
+    transposed: bool = Field(
+        default=False, description="A transposed (fractionally strided) convolution."
+    )
+    stride: Annotated[
+        list[Size],
+        Field(min_length=1, max_length=3),
+        Allowed(f"a list of positive integers, one per kernel entry (each 1 to {MAX_SIZE})"),
+    ] | None = Field(
+        default=None,
+        description="Stride per spatial dimension, one per kernel entry; default all 1.",
+        examples=[[2, 2]],
+    )
+    bias: bool = Field(default=True, description="Whether the layer has a bias per channel.")
+
+    @model_validator(mode="before")
+    @classmethod
+    def _fill_stride(cls, data: Any) -> Any:
+        if isinstance(data, dict) and data.get("stride") is None:
+            kernel = data.get("kernel")
+            if isinstance(kernel, list) and 1 <= len(kernel) <= 3:
+                data = dict(data)
+                data["stride"] = [1] * len(kernel)
+        return data
+
+    def _check_kind(self) -> None:
+        if self.stride is not None and len(self.stride) != len(self.kernel):
+            raise field_error(
+                "invalid_value",
+                f"stride needs one entry per kernel entry ({len(self.kernel)}); got "
+                f"{len(self.stride)}",
+                "stride",
+            )
+        g = self.groups
+        if self.channels_in % g or self.channels_out % g:
+            raise field_error(
+                "invalid_value",
+                f"groups must divide channels_in ({self.channels_in}) and channels_out "
+                f"({self.channels_out}); got {g}",
+                "groups",
+            )
+
+
+class EmbeddingLayer(_LayerBase):
+    """A lookup table: one row of `dim` values per token id."""
+
+    model_config = ConfigDict(title="embedding layer")
+
+    kind: Literal["embedding"] = Field(description="Layer kind.", examples=["embedding"])
+    vocab: Size = Field(description="Number of rows (token ids).", examples=[32000])
+    dim: Size = Field(description="Width of each row.", examples=[512])
+    bias: bool = Field(default=False, description="Always false: an embedding has no bias.")
+
+    def _check_kind(self) -> None:
+        if self.bias:
+            raise field_error(
+                "not_allowed", "an embedding has no bias; omit bias or set it false", "bias"
+            )
+
+
+class RecurrentLayer(_LayerBase):
+    """A recurrent layer: simple (Elman), LSTM or GRU cell, gates stacked in `gate_order`."""
+
+    model_config = ConfigDict(title="recurrent layer")
+
+    kind: Literal["recurrent"] = Field(description="Layer kind.", examples=["recurrent"])
+    cell: Cell = Field(description="simple, lstm or gru.", examples=["lstm"])
+    n_in: Size = Field(description="Input features per step.", examples=[128])
+    hidden: Size = Field(description="Hidden state size.", examples=[256])
+    gate_order: Annotated[
+        list[str],
+        Allowed(
+            "each gate of the cell exactly once: lstm input, forget, cell, output; gru reset, "
+            "update, candidate"
+        ),
+    ] | None = Field(
+        default=None,
+        description="Order in which gate blocks are stacked along the output axis (lstm: input, "
+        "forget, cell, output; gru: reset, update, candidate; not for simple cells).",
+        examples=[["input", "forget", "cell", "output"]],
+    )
+    forget_bias: Finite | None = Field(
+        default=None,
+        description="lstm only: the forget-gate bias (default 1.0; Gers et al. 2000, "
+        "Jozefowicz et al. 2015).",
+        examples=[1.0],
+    )
+    bias: bool = Field(default=True, description="Whether the cell has a bias per gate unit.")
+
+    @classmethod
+    def _default_activation(cls, data: dict[str, Any]) -> str | None:
+        return "tanh" if data.get("cell") == "simple" else None
+
+    @model_validator(mode="before")
+    @classmethod
+    def _fill_cell_defaults(cls, data: Any) -> Any:
+        if not isinstance(data, dict):
+            return data
+        cell = data.get("cell")
+        data = dict(data)
+        if cell in ("lstm", "gru") and data.get("gate_order") is None:
+            data["gate_order"] = list(GATES[cell])
+        if cell == "lstm" and data.get("forget_bias") is None and data.get("bias") is not False:
+            data["forget_bias"] = 1.0
+        return data
+
+    @property
+    def gate_count(self) -> int:
+        return len(GATES[self.cell])
+
+    def _check_kind(self) -> None:
+        if self.cell == "simple":
+            if self.gate_order is not None:
+                raise field_error(
+                    "not_allowed", "a simple cell has no gates; omit gate_order", "gate_order"
+                )
+        else:
+            expected = GATES[self.cell]
+            got = self.gate_order or []
+            if sorted(got) != sorted(expected):
+                raise field_error(
+                    "invalid_value",
+                    f"gate_order must name each {self.cell} gate exactly once: "
+                    f"{', '.join(expected)} (in any order); got {got}",
+                    "gate_order",
+                )
+            if self.activation is not None:
+                raise field_error(
+                    "not_allowed",
+                    f"{self.cell} cells have built-in gate nonlinearities (sigmoid gates, tanh "
+                    "candidate); activation is only for simple cells",
+                    "activation",
+                )
+        if self.forget_bias is not None and self.cell != "lstm":
+            raise field_error(
+                "not_allowed", "forget_bias is only for lstm cells", "forget_bias"
+            )
+        if self.forget_bias is not None and not self.bias:
+            raise field_error(
+                "not_allowed", "forget_bias needs the cell to have a bias (bias: true)",
+                "forget_bias",
+            )  # fmt: skip
+
+
+class AttentionLayer(_LayerBase):
+    """Multi-head attention: query, key, value and output projections, each dim x dim."""
+
+    model_config = ConfigDict(title="attention layer")
+
+    kind: Literal["attention"] = Field(description="Layer kind.", examples=["attention"])
+    dim: Size = Field(description="Model width.", examples=[512])
+    heads: Size = Field(description="Number of heads; divides dim.", examples=[8])
+    bias: bool = Field(default=True, description="Whether each projection has a bias.")
+
+    def _check_kind(self) -> None:
+        if self.dim % self.heads:
+            raise field_error(
+                "invalid_value",
+                f"heads must divide dim ({self.dim}); got {self.heads}",
+                "heads",
+            )
+
+
+class NormLayer(_LayerBase):
+    """A normalisation layer's affine part: a scale and (with bias) a shift, each of size dim."""
+
+    model_config = ConfigDict(title="norm layer")
+
+    kind: Literal["norm"] = Field(description="Layer kind.", examples=["norm"])
+    dim: Size = Field(description="Number of features normalised.", examples=[512])
+    bias: bool = Field(default=True, description="Whether the layer has a shift vector.")
+
+    def _check_kind(self) -> None:
+        init = self.init
+        if init is None or init.method == "constant":
+            return
+        if init.method in RANDOM_METHODS and (init.std is not None or init.bound is not None):
+            return
+        raise field_error(
+            "not_allowed",
+            "a norm scale is a vector with no fan: use constant, or symmetric_uniform/glorot/"
+            "he/lecun with an explicit std or bound",
+            "init.method",
+        )
+
+
+LayerSpec = Annotated[
+    Union[DenseLayer, ConvLayer, EmbeddingLayer, RecurrentLayer, AttentionLayer, NormLayer],  # noqa: UP007
+    Field(discriminator="kind"),
+    Allowed(
+        "a layer object with name, kind (dense, conv, embedding, recurrent, attention, norm) "
+        "and the kind's size fields"
+    ),
+]
+LAYER_MODELS: dict[str, type[_LayerBase]] = {
+    "dense": DenseLayer,
+    "conv": ConvLayer,
+    "embedding": EmbeddingLayer,
+    "recurrent": RecurrentLayer,
+    "attention": AttentionLayer,
+    "norm": NormLayer,
+}
+AnyLayer = DenseLayer | ConvLayer | EmbeddingLayer | RecurrentLayer | AttentionLayer | NormLayer
+
+
+_EXAMPLE_REQUEST: dict[str, Any] = {
+    "seed": 20261201,
+    "dtype": "float32",
+    "layout": "out_in",
+    "layers": [
+        {"name": "sensor.embed", "kind": "embedding", "vocab": 4096, "dim": 64},
+        {"name": "sensor.mix", "kind": "conv", "channels_in": 64, "channels_out": 128,
+         "kernel": [5], "activation": "gelu"},
+        {"name": "sensor.memory", "kind": "recurrent", "cell": "gru", "n_in": 128,
+         "hidden": 128},
+        {"name": "alarm", "kind": "dense", "n_in": 128, "n_out": 1, "activation": "sigmoid",
+         "role": "output", "class_prior": 0.02},
+    ],
+}  # fmt: skip
+
+
+class NetworkRequest(_Strict):
+    """A request for initial weights: seed, dtype, layout and the network's layers."""
+
+    model_config = ConfigDict(
+        title="network request", json_schema_extra={"examples": [_EXAMPLE_REQUEST]}
+    )
+
+    seed: Annotated[
+        Annotated[int, Field(ge=0, le=SEED_INT_MAX)]
+        | Annotated[str, Field(min_length=1, max_length=SEED_STR_MAX)],
+        Allowed(f"an integer 0 to {SEED_INT_MAX} or a string of 1 to {SEED_STR_MAX} characters"),
+    ] = Field(
+        description=f"Integer 0 to {SEED_INT_MAX}, or a string of 1 to {SEED_STR_MAX} "
+        "characters (hashed into the generator key). Booleans are not integers.",
+        examples=[20261201, "team-baseline-2026"],
+    )
+    dtype: Annotated[DType, Allowed("one of float32, float64, float16, bfloat16")] = Field(
+        default="float32", description="Element type of every tensor.", examples=["float32"]
+    )
+    layout: Annotated[Layout, Allowed("out_in or in_out")] = Field(
+        default="out_in",
+        description="out_in: rows are output units (dense (n_out, n_in)); in_out: the "
+        "transpose (dense (n_in, n_out), conv (*kernel, in/groups, out)).",
+        examples=["out_in"],
+    )
+    layers: Annotated[
+        list[LayerSpec],
+        Field(min_length=1),
+        Allowed("a list of at least one layer object (the limit is set by the service)"),
+    ] = Field(description="The layers, in the order the signal meets them.")
+
+    @field_validator("seed", mode="before")
+    @classmethod
+    def _check_seed(cls, value: Any) -> Any:
+        allowed = f"an integer 0 to {SEED_INT_MAX} or a string of 1 to {SEED_STR_MAX} characters"
+        if isinstance(value, bool) or not isinstance(value, int | str):
+            raise field_error("invalid_type", f"got {describe_input(value)}; allowed: {allowed}")
+        if isinstance(value, int) and not 0 <= value <= SEED_INT_MAX:
+            raise field_error("invalid_value", f"got {describe_input(value)}; allowed: {allowed}")
+        if isinstance(value, str) and not 1 <= len(value) <= SEED_STR_MAX:
+            raise field_error(
+                "invalid_value", f"got a string of {len(value)} characters; allowed: {allowed}"
+            )
+        return value
+
+
+# ---------------------------------------------------------------------------------------------
+# Entry points
+
+
+def _limits_from(info: ValidationInfo) -> Limits:
+    context = info.context
+    if isinstance(context, dict):
+        limits = context.get("limits")
+        if isinstance(limits, Limits):
+            return limits
+    return Limits()
+
+
+def parse_request(data: object, limits: Limits | None = None) -> NetworkRequest:
+    """Validate a parsed JSON body into a `NetworkRequest`, or raise `RequestRejected`.
+
+    Order: the raw layer count (before any layer is looked at), the models (types, ranges,
+    per-layer combinations), then what spans layers: unique layer names, unique tensor names,
+    explicit values that must fit the dtype, and the size limits. All problems of the last
+    stage are reported together.
+    """
+    from seedbed.core.tensors import slots_by_layer, tensor_name_problems  # tensors imports spec
+
+    limits = limits if limits is not None else Limits()
+    if not isinstance(data, dict):
+        raise RequestRejected(
+            [
+                Problem(
+                    BODY,
+                    "invalid_type",
+                    f"got {describe_input(data)}; allowed: a JSON object with fields seed, "
+                    "dtype, layout, layers",
+                )
+            ]
+        )
+    check_layer_count(data, limits)
+    try:
+        request = NetworkRequest.model_validate(data, context={"limits": limits})
+    except ValidationError as err:
+        raise RequestRejected(problems_from_validation_error(NetworkRequest, err)) from None
+
+    problems = layer_name_problems(request)
+    problems += tensor_name_problems(request)
+    problems += _dtype_range_problems(request)
+    problems += size_problems(request, slots_by_layer(request), limits)
+    if problems:
+        raise RequestRejected(problems)
+    return request
+
+
+def layer_name_problems(request: NetworkRequest) -> list[Problem]:
+    """Layer names used more than once; each repeat names the first use."""
+    first: dict[str, int] = {}
+    problems: list[Problem] = []
+    for i, layer in enumerate(request.layers):
+        if layer.name in first:
+            problems.append(
+                Problem(
+                    f"layers[{i}].name",
+                    "duplicate_name",
+                    f"layer name {layer.name!r} is already used by layers[{first[layer.name]}]"
+                    ".name; layer names must be unique",
+                )
+            )
+        else:
+            first[layer.name] = i
+    return problems
+
+
+def _dtype_range_problems(request: NetworkRequest) -> list[Problem]:
+    """Explicit numbers that would overflow the request's dtype."""
+    top = DTYPE_MAX[request.dtype]
+    problems: list[Problem] = []
+
+    def check(path: str, magnitude: float, what: str, limit: float) -> None:
+        if magnitude > limit:
+            problems.append(
+                Problem(
+                    path,
+                    "invalid_value",
+                    f"{what} does not fit {request.dtype}, whose largest finite value is "
+                    f"{top:g}; allowed: at most {limit:g} in magnitude",
+                )
+            )
+
+    for i, layer in enumerate(request.layers):
+        init = layer.init
+        if init is not None:
+            if init.value is not None:
+                check(f"layers[{i}].init.value", abs(init.value), f"{init.value!r}", top)
+            if init.bound is not None:
+                check(f"layers[{i}].init.bound", init.bound, f"bound {init.bound!r}", top)
+            if init.std is not None:
+                check(
+                    f"layers[{i}].init.std",
+                    init.std,
+                    f"std {init.std!r} (normal draws reach {NORMAL_EXTREME} std)",
+                    top / NORMAL_EXTREME,
+                )
+        if layer.bias_init is not None:
+            v = layer.bias_init.value
+            check(f"layers[{i}].bias_init.value", abs(v), f"{v!r}", top)
+        if isinstance(layer, RecurrentLayer) and layer.forget_bias is not None:
+            v = layer.forget_bias
+            check(f"layers[{i}].forget_bias", abs(v), f"{v!r}", top)
+    return problems
+
+
+def canonical_request(request: NetworkRequest) -> dict[str, Any]:
+    """The request as JSON-ready data: defaults filled, absent options dropped, keys sorted.
+
+    Same meaning, same dict: defaults are filled by the models (activation, activation_param,
+    stride, gate_order, forget_bias, override distribution and fan), integers given for float
+    fields become floats, and unset optional fields are omitted rather than written as null.
+    `parse_request(canonical_request(r))` gives back an equal request.
+    """
+    return _sorted(request.model_dump(mode="json", exclude_none=True))
+
+
+def _sorted(value: Any) -> Any:
+    if isinstance(value, dict):
+        return {k: _sorted(value[k]) for k in sorted(value)}
+    if isinstance(value, list):
+        return [_sorted(v) for v in value]
+    return value
+
