@@ -323,7 +323,7 @@ def tensor_from_array(
     if chunk_bytes < 1:
         raise FormatInputError(f"chunk_bytes must be at least 1, got {chunk_bytes}")
     arr = np.asarray(array)
-    name_of_dtype = dtype if dtype is not None else str(arr.dtype)
+    name_of_dtype = dtype if dtype is not None else arr.dtype.name
     if name_of_dtype not in ITEMSIZE:
         raise FormatInputError(
             f"tensor {name!r}: dtype {name_of_dtype!r} is not supported; "
