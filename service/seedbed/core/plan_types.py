@@ -36,13 +36,15 @@ class TensorPlan:
     distribution: str | None  # uniform | normal | truncated_normal; None when not random
     sampler: SamplerKind
     scale: float  # see SamplerKind; for orthogonal/identity the gain; for constant the value
-    fan_in: int | None
-    fan_out: int | None
+    fan_in: int | float | None  # a float only when a stride makes the count an average
+    fan_out: int | float | None
     gain: float | None
     std: float | None  # of the distribution as realised (after truncation)
     bound: float | None  # uniform and truncated only
     value: float | None  # constant only
     gate_blocks: int = 1  # recurrent weights: gates stacked along the logical output axis
+    # constant sampler with one value per gate block (an LSTM bias whose forget block is 1)
+    block_values: tuple[float, ...] | None = None
     reproducible: Reproducibility = "exact"
     rationale: str = ""
     references: tuple[str, ...] = ()
@@ -78,6 +80,7 @@ class TensorPlan:
             "std": self.std,
             "bound": self.bound,
             "value": self.value,
+            "block_values": None if self.block_values is None else list(self.block_values),
             "reproducible": self.reproducible,
             "rationale": self.rationale,
             "references": list(self.references),

@@ -1,0 +1,173 @@
+"""From a request to a plan: one entry per tensor with method, scale, rationale and warnings.
+
+Cheap by construction: no values are generated here, and every size limit has been checked
+from shapes alone (seedbed.core.spec.parse_request) before anything else happens.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from seedbed.core.activations import describe_activation
+from seedbed.core.limits import Limits
+from seedbed.core.plan_types import Plan, TensorPlan
+from seedbed.core.problems import Problem, RequestRejected
+from seedbed.core.recommend import Choice, override_weight, recommend_weight, vector_choice
+from seedbed.core.spec import NetworkRequest, canonical_request, parse_request
+from seedbed.core.tensors import TensorSlot, slots_by_layer
+from seedbed.core.version import ALGORITHM
+
+# A stack of consecutive sigmoid layers longer than this gets a vanishing-gradient warning:
+# sigmoid'(x) <= 1/4, so each layer can shrink the backward signal fourfold.
+_SIGMOID_STACK = 4
+# tanh' <= 1 and the gain compensates the forward pass, but saturation still compounds.
+_TANH_STACK = 10
+# Warn when the product of per-layer std ratios (explicit scale / variance-preserving scale)
+# moves the forward signal's scale by more than this factor in either direction.
+_DRIFT = 100.0
+
+
+def _identity_problem(index: int, layer: Any, slot: TensorSlot) -> Problem | None:
+    rows = slot.logical_shape[0] // slot.gate_blocks
+    cols = slot.logical_shape[1]
+    if rows == cols:
+        return None
+    what = ("channels_out/groups must equal channels_in/groups" if layer.kind == "conv"
+            else "the weight must be square per gate block")
+    return Problem(f"layers[{index}].init.method", "invalid_value",
+                   f"identity needs {what}: {slot.tensor} has {rows} outputs and {cols} inputs "
+                   "per block; use orthogonal for rectangular weights")
+
+
+def _tensor_plan(slot: TensorSlot, dtype: str, choice: Choice) -> TensorPlan:
+    return TensorPlan(
+        tensor=slot.tensor, layer=slot.layer, layer_kind=slot.layer_kind, part=slot.part,
+        shape=slot.served_shape, logical_shape=slot.logical_shape, served_axes=slot.served_axes,
+        dtype=dtype, method=choice.method, distribution=choice.distribution,
+        sampler=choice.sampler,  # type: ignore[arg-type]
+        scale=choice.scale, fan_in=choice.fan_in, fan_out=choice.fan_out, gain=choice.gain,
+        std=choice.std, bound=choice.bound, value=choice.value, gate_blocks=slot.gate_blocks,
+        block_values=choice.block_values,
+        reproducible=choice.reproducible,  # type: ignore[arg-type]
+        rationale=choice.rationale, references=choice.references, warnings=choice.warnings,
+    )
+
+
+def _uses_identity_recurrence(layer: Any) -> bool:
+    return layer.kind == "recurrent" and layer.cell == "simple" and layer.activation == "relu"
+
+
+def _layer_choices(index: int, layer: Any, slots: list[TensorSlot],
+                   problems: list[Problem]) -> list[tuple[TensorSlot, Choice]]:
+    out: list[tuple[TensorSlot, Choice]] = []
+    for slot in slots:
+        if slot.is_bias or layer.kind == "norm":
+            out.append((slot, vector_choice(layer, slot)))
+            continue
+        recommended = recommend_weight(layer, slot, _uses_identity_recurrence(layer))
+        if layer.init is None:
+            out.append((slot, recommended))
+            continue
+        if layer.init.method == "identity":
+            problem = _identity_problem(index, layer, slot)
+            if problem is not None:
+                problems.append(problem)
+                continue
+        out.append((slot, override_weight(layer, slot, layer.init, recommended)))
+    return out
+
+
+def _stack_warnings(request: NetworkRequest,
+                    weights: list[tuple[Any, Choice]]) -> list[str]:
+    """Request-wide warnings about what depth does to the chosen scales."""
+    warnings: list[str] = []
+    run: list[str] = []
+    run_act = ""
+
+    def close_run() -> None:
+        limit = _SIGMOID_STACK if run_act == "sigmoid" else _TANH_STACK
+        if run_act in ("sigmoid", "tanh") and len(run) >= limit:
+            n = len(run)
+            if run_act == "sigmoid":
+                detail = (f"sigmoid'(x) <= 1/4, so backpropagated gradients can shrink by up to "
+                          f"4^-{n} = {4.0 ** -n:.3g} from {run[-1]} back to {run[0]}")
+            else:
+                detail = ("tanh saturates on both sides; gradients shrink wherever units saturate "
+                          "and the shrinkage compounds with depth")
+            warnings.append(f"{n} consecutive {run_act} layers ({run[0]} .. {run[-1]}): {detail}. "
+                            "Expect vanishing gradients; a rectifier family activation, "
+                            "normalisation layers or residual connections avoid this.")
+
+    for layer, _ in weights:
+        act = layer.activation or "linear"
+        if layer.role != "output" and describe_activation(act).saturating and act == run_act:
+            run.append(layer.name)
+            continue
+        close_run()
+        run, run_act = ([layer.name], act) if layer.role != "output" else ([], "")
+    close_run()
+
+    drift = 1.0
+    for layer, choice in weights:
+        if choice.scale_ratio == 0.0:
+            continue  # constant weights: the symmetry warning already says what goes wrong
+        drift *= choice.scale_ratio
+        if not 1.0 / _DRIFT <= drift <= _DRIFT:
+            direction = "shrinks" if drift < 1 else "grows"
+            warnings.append(
+                f"the explicit scales multiply the forward signal's scale by about {drift:.3g} "
+                f"by layer {layer.name} (each layer contributes its std divided by the "
+                f"variance-preserving std): the signal {direction} geometrically with depth, "
+                "so activations and gradients will "
+                f"{'vanish' if drift < 1 else 'explode'}. This is an estimate from scales "
+                "alone, not a simulation.")
+            break
+    return warnings
+
+
+def plan_request(request: NetworkRequest) -> Plan:
+    """The plan of an already validated request."""
+    problems: list[Problem] = []
+    tensors: list[TensorPlan] = []
+    weights: list[tuple[Any, Choice]] = []
+    for index, (layer, slots) in enumerate(zip(request.layers, slots_by_layer(request),
+                                               strict=True)):
+        for slot, choice in _layer_choices(index, layer, slots, problems):
+            tensors.append(_tensor_plan(slot, request.dtype, choice))
+            if layer.kind in ("dense", "conv") and not slot.is_bias:
+                weights.append((layer, choice))
+    if problems:
+        raise RequestRejected(problems)
+    return Plan(
+        algorithm=ALGORITHM, seed=request.seed, dtype=request.dtype, layout=request.layout,
+        tensors=tuple(tensors), warnings=tuple(_stack_warnings(request, weights)),
+        canonical_request=canonical_request(request),
+    )
+
+
+def build_plan(data: object, limits: Limits | None = None) -> Plan:
+    """Validate a parsed JSON body and plan it; raises RequestRejected with every problem."""
+    return plan_request(parse_request(data, limits if limits is not None else Limits()))
+
+
+def plan_document(plan: Plan) -> dict[str, Any]:
+    """The JSON-ready body of a plan response."""
+    values = plan.total_count
+    return {
+        "algorithm": plan.algorithm,
+        "seed": plan.seed,
+        "dtype": plan.dtype,
+        "layout": plan.layout,
+        "tensors": [t.manifest() for t in plan.tensors],
+        "warnings": list(plan.warnings),
+        "totals": {
+            "tensors": len(plan.tensors),
+            "values": values,
+            "bytes": sum(t.nbytes for t in plan.tensors),
+        },
+        "notice": ("Scales follow published rules for the stated activations; they make a good "
+                   "start likely, not certain. Diagnostics are estimates."),
+    }
+
+
+__all__ = ["build_plan", "plan_document", "plan_request"]
