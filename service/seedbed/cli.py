@@ -108,9 +108,8 @@ def _serve(args: argparse.Namespace) -> int:
 
 
 def _plan(args: argparse.Namespace) -> int:
-    from seedbed.core.plan import build_plan
+    from seedbed.core.plan import build_plan, plan_document
     from seedbed.core.problems import RequestRejected
-    from seedbed.web.documents import plan_document
 
     try:
         if args.file == "-":

@@ -16,7 +16,7 @@ def _refuse_constant(token: str) -> NoReturn:
     # Python's json module accepts NaN, Infinity and -Infinity by default; JSON does not.
     raise ApiError.one(
         400,
-        "body",
+        "(body)",
         "non_finite_number",
         f"the body contains {token}, which is not JSON; numbers must be finite",
     )
@@ -28,7 +28,7 @@ def _no_duplicate_keys(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
         if key in out:
             # A repeated key is silently "last one wins" in most parsers: ambiguous, so refused.
             raise ApiError.one(
-                400, "body", "duplicate_key", f"the key {key!r} appears twice in one JSON object"
+                400, "(body)", "duplicate_key", f"the key {key!r} appears twice in one JSON object"
             )
         out[key] = value
     return out
@@ -50,7 +50,7 @@ def _check_content_type(request: Request) -> None:
 def _too_large(limit: int, seen: str) -> ApiError:
     return ApiError.one(
         413,
-        "body",
+        "(body)",
         "body_too_large",
         f"the request body is {seen} bytes; at most {limit} bytes are accepted "
         "(SEEDBED_MAX_BODY_BYTES)",
@@ -81,12 +81,12 @@ async def read_json_body(request: Request, max_bytes: int) -> Any:
         parts.append(chunk)
     raw = b"".join(parts)
     if not raw.strip():
-        raise ApiError.one(400, "body", "invalid_json", "the body is empty; send a JSON object")
+        raise ApiError.one(400, "(body)", "invalid_json", "the body is empty; send a JSON object")
     try:
         text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise ApiError.one(
-            400, "body", "invalid_json", f"the body is not UTF-8 text (byte {exc.start})"
+            400, "(body)", "invalid_json", f"the body is not UTF-8 text (byte {exc.start})"
         ) from None
     try:
         return json.loads(
@@ -95,15 +95,15 @@ async def read_json_body(request: Request, max_bytes: int) -> Any:
     except json.JSONDecodeError as exc:
         raise ApiError.one(
             400,
-            "body",
+            "(body)",
             "invalid_json",
             f"the body is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}",
         ) from None
     except RecursionError:
         raise ApiError.one(
-            400, "body", "invalid_json", "the body's JSON is nested too deeply"
+            400, "(body)", "invalid_json", "the body's JSON is nested too deeply"
         ) from None
     except ValueError as exc:  # e.g. an integer literal with more digits than Python converts
         raise ApiError.one(
-            400, "body", "invalid_json", f"the body is not usable JSON: {exc}"
+            400, "(body)", "invalid_json", f"the body is not usable JSON: {exc}"
         ) from None

@@ -9,20 +9,6 @@ import numpy as np
 from seedbed.core.plan_types import Plan, TensorPlan
 
 
-def plan_document(plan: Plan) -> dict[str, Any]:
-    return {
-        "algorithm": plan.algorithm,
-        "seed": plan.seed,
-        "dtype": plan.dtype,
-        "layout": plan.layout,
-        "tensor_count": len(plan.tensors),
-        "total_values": plan.total_count,
-        "total_bytes": sum(t.nbytes for t in plan.tensors),
-        "warnings": list(plan.warnings),
-        "tensors": [t.manifest() for t in plan.tensors],
-    }
-
-
 def response_document(plan: Plan, selection: dict[str, Any] | None) -> dict[str, Any]:
     """Response-wide manifest fields; the numpy version is recorded because it is part of what
     the bytes were produced with (and of the ETag)."""

@@ -88,7 +88,7 @@ def error_response(
 def from_rejection(exc: RequestRejected) -> ApiError:
     faults = [Fault(p.field, p.code, p.message) for p in exc.problems]
     if not faults:  # the core promises problems; never answer with an empty list regardless
-        faults = [Fault("body", "invalid_request", str(exc) or "the request was refused")]
+        faults = [Fault("(body)", "invalid_request", str(exc) or "the request was refused")]
     return ApiError(413 if exc.too_large else 422, faults)
 
 
@@ -98,7 +98,7 @@ def from_rejection(exc: RequestRejected) -> ApiError:
 class ProblemDoc(BaseModel):
     field: str = Field(
         description="Where the problem is: a body path like layers[2].kernel, "
-        "a query parameter name, a header name, 'body' or 'path'."
+        "a query parameter name, a header name, or (body), (path), (method) for the whole."
     )
     code: str = Field(description="Machine-readable reason, e.g. too_large, invalid_value.")
     message: str = Field(description="What is wrong and what is allowed.")
@@ -117,7 +117,7 @@ def _validation_faults(exc: RequestValidationError) -> list[Fault]:
     faults: list[Fault] = []
     for err in exc.errors():
         loc = [str(p) for p in err.get("loc", ()) if p not in ("query", "path", "header", "body")]
-        where = ".".join(loc) or "request"
+        where = ".".join(loc) or "(request)"
         kind = str(err.get("type", ""))
         code = {
             "missing": "missing_field",
@@ -125,12 +125,12 @@ def _validation_faults(exc: RequestValidationError) -> list[Fault]:
             "enum": "not_allowed",
         }.get(kind, "invalid_value")
         faults.append(Fault(where, code, f"{where}: {err.get('msg', 'invalid value')}"))
-    return faults or [Fault("request", "invalid_value", "the request is not valid")]
+    return faults or [Fault("(request)", "invalid_value", "the request is not valid")]
 
 
 _STATUS_CODES = {
-    404: ("path", "not_found"),
-    405: ("method", "method_not_allowed"),
+    404: ("(path)", "not_found"),
+    405: ("(method)", "method_not_allowed"),
 }
 
 
@@ -159,7 +159,7 @@ def install_error_handlers(app: FastAPI) -> None:
 
     async def on_http(request: Request, exc: Exception) -> JSONResponse:
         assert isinstance(exc, StarletteHTTPException)
-        field, code = _STATUS_CODES.get(exc.status_code, ("request", "http_error"))
+        field, code = _STATUS_CODES.get(exc.status_code, ("(request)", "http_error"))
         if exc.status_code == 404:
             message = f"no such endpoint: {request.url.path}; see /docs or openapi/openapi.json"
         elif exc.status_code == 405:

@@ -119,7 +119,7 @@ class RequestBookkeeping:
                 500,
                 [
                     Fault(
-                        "request",
+                        "(request)",
                         "internal_error",
                         f"the service failed unexpectedly; quote request id {rid} "
                         "when reporting it",

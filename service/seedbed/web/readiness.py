@@ -68,7 +68,17 @@ PROBE_REQUESTS: dict[str, dict[str, Any]] = {
 
 # "<probe>/<tensor>" -> hex SHA-256 of the tensor's raw little-endian bytes, for BAKED_ALGORITHM.
 BAKED_ALGORITHM = "seedbed-philox4x64-v1"
-BAKED_SHA256: dict[str, str] = {}
+BAKED_SHA256: dict[str, str] = {
+    "probe32/intake.weight": "e14371149f885abddfdec432407e4de985ba98f477de8d2bf4db7e518b6ac5f6",
+    "probe32/intake.bias": "f5a5fd42d16a20302798ef6ed309979b43003d2320d9f0e8ea9831a92759fb4b",
+    "probe32/mixer.weight": "1778e7162258156aeb43391cdee0e87428c9048a2ceb9f2ade2b2cdc119a009f",
+    "probe32/mixer.bias": "f5a5fd42d16a20302798ef6ed309979b43003d2320d9f0e8ea9831a92759fb4b",
+    "probe32/spread.weight": "9829af0cced4079d3eb86433aef3d5f3e32ad0d64c5d78da4c17cd611edc9a60",
+    "probe32/spread.bias": "66687aadf862bd776c8fc18b8e9f8e20089714856ee233b3902a591d0d5f2925",
+    "probe16/edge.weight": "57bda7bfda07ae00d6b96006e2fa3048362794daa3d72aee09ffeb96f5ddd67f",
+    "probe16/edge.bias": "af5570f5a1810b7af78caf4bc70a660f0df51e42baf91d4de5b2328de0e83dfc",
+    "probe_bf16/lookup.weight": "4275f6d93135f876290242a968fc479cb5575a2e49b7162233920c0b45a06e54",
+}
 
 
 @dataclass(frozen=True)

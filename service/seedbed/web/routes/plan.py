@@ -8,7 +8,7 @@ from fastapi import APIRouter, Request, Response
 from fastapi.responses import JSONResponse
 
 from seedbed.core.catalog import catalog
-from seedbed.web.documents import plan_document
+from seedbed.core.plan import plan_document
 from seedbed.web.etag import body_etag, none_match, strong_etag
 from seedbed.web.openapi_doc import error_responses, request_body
 from seedbed.web.plan_loader import load_plan

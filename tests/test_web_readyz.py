@@ -1,0 +1,62 @@
+"""/readyz: ready when this machine reproduces the baked reference bytes, 503 with the reason
+when it does not. The mismatch is provoked through the app factory's reference arguments, never
+by patching the core."""
+
+from __future__ import annotations
+
+import pytest
+from fastapi.testclient import TestClient
+
+from seedbed.core.version import ALGORITHM
+from seedbed.web import Settings, create_app
+from seedbed.web.readiness import BAKED_ALGORITHM, BAKED_SHA256, tensor_digests
+
+pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
+
+
+def test_baked_values_match_the_core_today() -> None:
+    # The baked digests were recorded from the core; if the core's bytes change without a new
+    # ALGORITHM string, this fails (and so would every replica's /readyz).
+    assert BAKED_ALGORITHM == ALGORITHM
+    assert len(BAKED_SHA256) >= 5
+    assert tensor_digests() == {k: BAKED_SHA256[k] for k in tensor_digests()}
+    assert set(tensor_digests()) == set(BAKED_SHA256)
+
+
+def test_ready_normally() -> None:
+    with TestClient(create_app(Settings())) as c:
+        got = c.get("/readyz")
+        assert got.status_code == 200, got.text
+        assert got.json()["status"] == "ready"
+        assert got.json()["tensors_checked"] == len(BAKED_SHA256)
+        assert c.head("/readyz").status_code == 200
+
+
+def test_not_ready_when_a_reference_value_is_wrong() -> None:
+    wrong = dict(BAKED_SHA256)
+    name = sorted(wrong)[0]
+    wrong[name] = "0" * 64
+    with TestClient(create_app(Settings(), reference_digests=wrong)) as c:
+        got = c.get("/readyz")
+        assert got.status_code == 503
+        body = got.json()
+        assert body["status"] == "not_ready" and body["mismatches"] == [name]
+        assert name in body["reason"] and "0" * 64 in body["reason"]
+        assert BAKED_SHA256[name] in body["reason"]  # what this machine actually produced
+        # Liveness is unaffected: the process is fine, it just must not take traffic.
+        assert c.get("/healthz").status_code == 200
+
+
+def test_not_ready_when_the_reference_is_for_another_algorithm() -> None:
+    app = create_app(Settings(), reference_algorithm="seedbed-some-older-algorithm")
+    with TestClient(app) as c:
+        got = c.get("/readyz")
+        assert got.status_code == 503
+        assert "seedbed-some-older-algorithm" in got.json()["reason"]
+
+
+def test_not_ready_before_the_self_check_ran() -> None:
+    # Without the lifespan (no `with`), the check has not run: the answer must not be "ready".
+    c = TestClient(create_app(Settings()))
+    got = c.get("/readyz")
+    assert got.status_code == 503 and "not finished" in got.json()["reason"]
