@@ -198,7 +198,9 @@ def locate(root: type[BaseModel], loc: Sequence[str | int]) -> _Where:
         path = _join(path, part)
         if isinstance(tp, type) and issubclass(tp, BaseModel) and isinstance(part, str):
             info = tp.model_fields.get(part)
-            allowed = _allowed_in(info.metadata) if info is not None else None
+            allowed = None
+            if info is not None:  # Optional[Annotated[...]] keeps its metadata inside
+                allowed = _allowed_in([*info.metadata, *_normalise(info.annotation)[1]])
             where = _Where(path, tp, part, allowed, False)
             tp = info.annotation if info is not None else None
         elif isinstance(part, int) and get_origin(tp) is list:
@@ -317,7 +319,9 @@ def _translate(root: type[BaseModel], error: Any) -> Problem:
             f"got {describe_input(value)}; allowed: {allowed or _length_phrase(ctx)}",
         )
     if kind in _TYPE_ERRORS:
-        code = "invalid_value" if kind in ("literal_error", "enum") else "invalid_type"
+        # A choice among strings given as a string is a wrong value; anything else a wrong type.
+        choice = kind in ("literal_error", "enum") and isinstance(value, str)
+        code = "invalid_value" if choice else "invalid_type"
         hint = ""
         if isinstance(value, str) and kind in ("int_type", "float_type", "int_parsing"):
             hint = " (numbers must not be quoted)"

@@ -157,9 +157,10 @@ class WeightOverride(_Strict):
 
     model_config = ConfigDict(title="weight override")
 
-    method: WeightMethod = Field(
-        description="The initialisation method.", examples=["he", "orthogonal"]
-    )
+    method: Annotated[
+        WeightMethod,
+        Allowed("one of symmetric_uniform, glorot, he, lecun, orthogonal, identity, constant"),
+    ] = Field(description="The initialisation method.", examples=["he", "orthogonal"])
     distribution: Distribution | None = Field(
         default=None,
         description="Distribution for symmetric_uniform/glorot/he/lecun; filled with the "
@@ -273,7 +274,7 @@ class BiasOverride(_Strict):
 
     model_config = ConfigDict(title="bias override")
 
-    method: Literal["constant"] = Field(
+    method: Annotated[Literal["constant"], Allowed("constant (the only bias method)")] = Field(
         description="Only constant is available for biases.", examples=["constant"]
     )
     value: Finite = Field(description="The value of every bias element.", examples=[0.1])
