@@ -220,3 +220,17 @@ def test_a_member_past_4_gib_takes_the_real_zip64_path() -> None:
     assert struct.unpack("<HH", head[30 + name_len:34 + name_len]) == (0x0001, 16)
     dsig, _crc, dsize, dcsize = struct.unpack("<IIQQ", tail[descriptor_at:descriptor_at + 24])
     assert dsig == 0x08074B50 and dsize == dcsize == info.file_size
+
+
+@pytest.mark.slow
+def test_more_than_65534_members_use_the_zip64_count() -> None:
+    # The classic end record counts members in 16 bits; 65535 tensors + the manifest overflow it.
+    tensors = [raw_tensor(f"cell.{i}.shift", b"", "float32", (0,), entry={})
+               for i in range(65535)]
+    body = collect(npz_body({}, tensors))
+    sig, _, _, on_disk, total, *_ = _end_record(body)
+    assert sig == 0x06054B50 and on_disk == total == 0xFFFF
+    with zipfile.ZipFile(io.BytesIO(body)) as zf:
+        names = zf.namelist()
+        assert len(names) == 65536 and names[-1] == MANIFEST_MEMBER
+        assert zf.read("cell.65534.shift.npy").endswith(b"\n")  # header only, no data
