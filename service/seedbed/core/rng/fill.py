@@ -23,7 +23,7 @@ from .unit import centered_probability_into, symmetric_uniform_into
 DISTRIBUTIONS = ("uniform", "normal", "truncated_normal")
 DEFAULT_CHUNK = 1 << 18
 # Transforms run on slices this long so their float64 temporaries stay in the CPU cache.
-_PIECE = 1 << 13
+_PIECE = 1 << 15
 
 
 def _uniform_piece(raw: np.ndarray, out: np.ndarray) -> None:

@@ -3,7 +3,7 @@
 numpy's np.log dispatches to different SIMD code on different CPUs, and its last bit may
 differ between them; the normal transform's tail needs log(r), so we build our own:
 
-    x = 2**e * m,  m in [sqrt(1/2), sqrt(2))   (exponent and mantissa read from the bits)
+    x = 2**e * m,  m in [sqrt(1/2), sqrt(2))   (e and m from integer operations on the bits)
     f = m - 1                                   (exact: Sterbenz)
     s = f / (2 + f)                             (= (m - 1) / (m + 1))
     log(m) = 2*atanh(s) = 2s + 2s^3/3 + 2s^5/5 + ...
@@ -30,52 +30,52 @@ LN2_LO = float.fromhex("0x1.a39ef35793c76p-33")  # float64(ln 2 - LN2_HI)
 # rounded, so these are the same doubles everywhere.
 SERIES = tuple(2.0 / (2 * k + 1) for k in range(1, 12))
 
-_EXP_MASK = np.uint64(0x7FF0000000000000)
-_FRAC_MASK = np.uint64(0x000FFFFFFFFFFFFF)
-_ONE_EXP_BITS = np.uint64(0x3FF0000000000000)  # exponent field of [1, 2)
-_HALF_EXP_BITS = np.uint64(0x3FE0000000000000)  # exponent field of [1/2, 1)
-# Mantissa field of float64(sqrt(2)) = 0x1.6a09e667f3bcdp+0: above it, m is moved to [1/2, 1).
-_SQRT2_FRAC = np.uint64(0x6A09E667F3BCD)
+# Bits of float64(sqrt(1/2)) = 0x1.6a09e667f3bcdp-1. Subtracting them from a positive
+# double's bits and shifting right by 52 (arithmetically) gives the e for which
+# m = x / 2**e lies in [0x1.6a09e667f3bcdp-1, 0x1.6a09e667f3bcdp+0), as bit patterns.
+_REDUCE_OFFSET = 0x3FE6A09E667F3BCD
+_EXPONENT_BITS = -(1 << 52)  # 0xFFF0000000000000 as int64: keeps the top 12 bits
+_MIN_NORMAL_BITS = 1 << 52
 _TWO_POW_54 = float.fromhex("0x1p54")
 
 
 def log_positive(x: np.ndarray) -> np.ndarray:
     """log of positive finite float64 values (not checked: the caller guarantees the domain)."""
     x = np.ascontiguousarray(x, dtype=np.float64)
-    bits = x.view(np.uint64)
-    exponent_shift = np.zeros(x.shape, dtype=np.int64)
-    subnormal = bits < np.uint64(1 << 52)
-    if subnormal.any():
+    ix = x.view(np.int64)
+    subnormal_shift: np.ndarray | None = None
+    if ix.size and ix.min() < _MIN_NORMAL_BITS:
         # Scaling by 2**54 is exact and makes every subnormal normal.
+        subnormal = ix < _MIN_NORMAL_BITS
         scaled = x.copy()
         scaled[subnormal] *= _TWO_POW_54
-        bits = scaled.view(np.uint64)
-        exponent_shift[subnormal] = -54
-    field = bits & _FRAC_MASK
-    upper = field > _SQRT2_FRAC
-    m = (field | np.where(upper, _HALF_EXP_BITS, _ONE_EXP_BITS)).view(np.float64)
-    e = (bits >> np.uint64(52)).astype(np.int64)
-    e -= 1023
-    e += upper
-    e += exponent_shift
-    ef = e.astype(np.float64)  # |e| < 1100: exact
+        ix = scaled.view(np.int64)
+        subnormal_shift = np.where(subnormal, -54.0, 0.0)
+    shifted = np.subtract(ix, _REDUCE_OFFSET)
+    np.bitwise_and(shifted, _EXPONENT_BITS, out=shifted)  # e * 2**52
+    m = np.subtract(ix, shifted).view(np.float64)  # x / 2**e, exact
+    np.right_shift(shifted, 52, out=shifted)  # arithmetic shift: e
+    ef = shifted.astype(np.float64)  # |e| < 1100: exact
+    if subnormal_shift is not None:
+        ef += subnormal_shift
 
-    f = m - 1.0
+    f = np.subtract(m, 1.0, out=m)  # exact (Sterbenz)
     s = np.add(f, 2.0)
     np.divide(f, s, out=s)
     w = s * s
-    t = np.full_like(w, SERIES[-1])
-    for c in SERIES[-2::-1]:
+    t = np.multiply(w, SERIES[-1])
+    np.add(t, SERIES[-2], out=t)
+    for c in SERIES[-3::-1]:
         np.multiply(t, w, out=t)
         np.add(t, c, out=t)
     np.multiply(t, w, out=t)  # T
     np.subtract(f, t, out=t)  # f - T
     np.multiply(t, s, out=t)  # c = s*(f - T), small
-    lo = ef * LN2_LO
-    np.subtract(t, lo, out=t)  # c - e*LN2_LO, still small
+    np.multiply(ef, LN2_LO, out=w)
+    np.subtract(t, w, out=t)  # c - e*LN2_LO, still small
     np.subtract(f, t, out=t)  # log(m) + e*LN2_LO in one rounding of the large part
-    np.multiply(ef, LN2_HI, out=lo)  # exact
-    np.add(lo, t, out=t)
+    np.multiply(ef, LN2_HI, out=w)  # exact
+    np.add(w, t, out=t)
     return t
 
 

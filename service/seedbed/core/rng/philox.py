@@ -48,13 +48,18 @@ def check_stream(stream: object) -> int:
     return value
 
 
-def numpy_counter_words(block: int, stream: int) -> np.ndarray:
-    """The counter to give numpy so that its first block is (block, stream, 0, 0).
+def numpy_counter_words(counter: int) -> np.ndarray:
+    """The counter to give numpy so that the first block it produces is for `counter`.
 
-    This is the pre-increment trap: numpy increments before generating, so we subtract one.
+    This is the pre-increment trap: numpy adds one before generating, so we subtract one.
     """
-    value = (block + (stream << 64) - 1) % _COUNTER_MOD
+    value = (counter - 1) % _COUNTER_MOD
     return np.array([(value >> (64 * w)) & WORD_MASK for w in range(4)], dtype=np.uint64)
+
+
+def block_counter(block: int, stream: int) -> int:
+    """The 256-bit counter (block, stream, 0, 0), word 0 least significant."""
+    return block | (stream << 64)
 
 
 class DrawSource:
@@ -70,19 +75,27 @@ class DrawSource:
         self._key = np.array([k0, k1], dtype=np.uint64)
         self._bitgen = np.random.Philox(key=self._key, counter=np.zeros(4, dtype=np.uint64))
 
-    def draws(self, start: int, count: int, stream: int = 0) -> np.ndarray:
-        """uint64 draws for logical indices [start, start + count) (arguments pre-validated)."""
-        block, lane = divmod(start, LANES)
+    def _blocks_from(self, counter: int, count: int) -> np.ndarray:
         self._bitgen.state = {
             "bit_generator": "Philox",
-            "state": {"counter": numpy_counter_words(block, stream), "key": self._key},
+            "state": {"counter": numpy_counter_words(counter), "key": self._key},
             "buffer": np.zeros(LANES, dtype=np.uint64),
             "buffer_pos": LANES,  # empty buffer: the next draw starts a fresh block
             "has_uint32": 0,
             "uinteger": 0,
         }
-        raw = self._bitgen.random_raw(lane + count)
+        raw = self._bitgen.random_raw(count)
         assert isinstance(raw, np.ndarray)
+        return raw
+
+    def block(self, counter: int) -> np.ndarray:
+        """The four output words of Philox4x64-10(key, counter), counter in 0..2**256-1."""
+        return self._blocks_from(counter, LANES)
+
+    def draws(self, start: int, count: int, stream: int = 0) -> np.ndarray:
+        """uint64 draws for logical indices [start, start + count) (arguments pre-validated)."""
+        block, lane = divmod(start, LANES)
+        raw = self._blocks_from(block_counter(block, stream), lane + count)
         return raw[lane:] if lane else raw
 
 
