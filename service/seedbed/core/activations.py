@@ -35,7 +35,8 @@ quadrature on fixed breakpoints over [-12, 12] with nodes computed by mpmath its
 piecewise activations sits on a breakpoint. The truncated tails weigh less than 1e-30; against
 adaptive mpmath quadrature at 140 bits the result agrees to ~1e-28 relative, far under float64's
 half-ulp, so the float is the correctly rounded gain. A new (activation, parameter) pair costs
-about 20-50 ms once (measured; GELU's erfc is the slowest); results are cached.
+about 20-50 ms once (measured on a 2-core machine: elu with a new alpha ~21 ms; GELU, whose erfc
+is the slowest and which takes no parameter, 50-100 ms once per process); results are cached.
 
 `apply_activation` and `activation_derivative` evaluate phi and phi' on numpy arrays for
 diagnostics. They use numpy ufuncs and are NOT bit-reproducible across platforms; never feed
