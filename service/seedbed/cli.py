@@ -140,7 +140,7 @@ def _plan(args: argparse.Namespace) -> int:
 
 
 def _settings(args: argparse.Namespace) -> int:
-    from seedbed.web.settings import Settings, SettingsError, settings_table
+    from seedbed.web.settings import Settings, SettingsError, settings_table, shown
 
     try:
         current = Settings.from_env()
@@ -152,7 +152,7 @@ def _settings(args: argparse.Namespace) -> int:
         for part in name.split("."):
             obj = getattr(obj, part)
         origin = "environment" if var in os.environ else "default"
-        print(f"{var}={obj}  ({origin}; default {default})")
+        print(f"{var}={shown(obj)}  ({origin}; default {default})")
     return 0
 
 

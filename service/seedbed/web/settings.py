@@ -119,12 +119,19 @@ _PARSERS: dict[str, Callable[[str, str], Any]] = {
 }
 
 
+def shown(value: object) -> str:
+    """A setting's value as the environment would spell it."""
+    if isinstance(value, bool):
+        return "on" if value else "off"
+    return str(value)
+
+
 def settings_table() -> list[tuple[str, str, str]]:
     """(variable, default, field) rows: what docs/service.md's table is checked against."""
     defaults = Settings()
-    rows = [(PREFIX + n.upper(), str(getattr(defaults, n)), n) for n in _PARSERS]
+    rows = [(PREFIX + n.upper(), shown(getattr(defaults, n)), n) for n in _PARSERS]
     rows += [
-        (PREFIX + f.name.upper(), str(getattr(defaults.limits, f.name)), f"limits.{f.name}")
+        (PREFIX + f.name.upper(), shown(getattr(defaults.limits, f.name)), f"limits.{f.name}")
         for f in dataclasses.fields(Limits)
     ]
     return rows
