@@ -6,6 +6,7 @@ from shapes alone (seedbed.core.spec.parse_request) before anything else happens
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Any
 
 from seedbed.core.activations import describe_activation
@@ -61,6 +62,10 @@ def _layer_choices(index: int, layer: Any, slots: list[TensorSlot],
                    problems: list[Problem]) -> list[tuple[TensorSlot, Choice]]:
     out: list[tuple[TensorSlot, Choice]] = []
     for slot in slots:
+        if layer.kind == "conv" and not slot.is_bias:
+            # Groups are independent blocks along the output axis, like a recurrent layer's
+            # gates: identity and orthogonal act within each group.
+            slot = replace(slot, gate_blocks=layer.groups)
         if slot.is_bias or layer.kind == "norm":
             out.append((slot, vector_choice(layer, slot)))
             continue
