@@ -18,12 +18,14 @@ from seedbed.core.problems import PROBLEM_CODES, RequestRejected
 from seedbed.core.spec import (
     DTYPE_MAX,
     AttentionLayer,
+    BiasOverride,
     ConvLayer,
     DenseLayer,
     EmbeddingLayer,
     NetworkRequest,
     NormLayer,
     RecurrentLayer,
+    WeightOverride,
     canonical_request,
     parse_request,
 )
@@ -372,9 +374,10 @@ def test_request_rejected_needs_problems() -> None:
 def test_schema_has_descriptions_and_examples_for_every_field() -> None:
     # The models become the OpenAPI document: every field should explain itself.
     for model in (NetworkRequest, DenseLayer, ConvLayer, EmbeddingLayer, RecurrentLayer,
-                  AttentionLayer, NormLayer):  # fmt: skip
+                  AttentionLayer, NormLayer, WeightOverride, BiasOverride):  # fmt: skip
         for name, info in model.model_fields.items():
             assert info.description, f"{model.__name__}.{name} has no description"
+            assert info.examples, f"{model.__name__}.{name} has no examples"
     schema = NetworkRequest.model_json_schema()
     assert schema["examples"]
     parse_request(schema["examples"][0])  # the published example is itself valid

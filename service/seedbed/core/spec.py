@@ -481,7 +481,9 @@ class DenseLayer(_LayerBase):
     kind: Literal["dense"] = Field(description="Layer kind.", examples=["dense"])
     n_in: Size = Field(description="Input features.", examples=[784])
     n_out: Size = Field(description="Output features (units).", examples=[256])
-    bias: bool = Field(default=True, description="Whether the layer has a bias vector.")
+    bias: bool = Field(
+        default=True, description="Whether the layer has a bias vector.", examples=[True]
+    )
 
 
 class ConvLayer(_LayerBase):
@@ -503,7 +505,9 @@ class ConvLayer(_LayerBase):
         examples=[1],
     )
     transposed: bool = Field(
-        default=False, description="A transposed (fractionally strided) convolution."
+        default=False,
+        description="A transposed (fractionally strided) convolution.",
+        examples=[False],
     )
     stride: Annotated[
         list[Size],
@@ -514,7 +518,9 @@ class ConvLayer(_LayerBase):
         description="Stride per spatial dimension, one per kernel entry; default all 1.",
         examples=[[2, 2]],
     )
-    bias: bool = Field(default=True, description="Whether the layer has a bias per channel.")
+    bias: bool = Field(
+        default=True, description="Whether the layer has a bias per channel.", examples=[True]
+    )
 
     @model_validator(mode="before")
     @classmethod
@@ -552,7 +558,9 @@ class EmbeddingLayer(_LayerBase):
     kind: Literal["embedding"] = Field(description="Layer kind.", examples=["embedding"])
     vocab: Size = Field(description="Number of rows (token ids).", examples=[32000])
     dim: Size = Field(description="Width of each row.", examples=[512])
-    bias: bool = Field(default=False, description="Always false: an embedding has no bias.")
+    bias: bool = Field(
+        default=False, description="Always false: an embedding has no bias.", examples=[False]
+    )
 
     def _check_kind(self) -> None:
         if self.bias:
@@ -588,7 +596,9 @@ class RecurrentLayer(_LayerBase):
         "Jozefowicz et al. 2015).",
         examples=[1.0],
     )
-    bias: bool = Field(default=True, description="Whether the cell has a bias per gate unit.")
+    bias: bool = Field(
+        default=True, description="Whether the cell has a bias per gate unit.", examples=[True]
+    )
 
     @classmethod
     def _default_activation(cls, data: dict[str, Any]) -> str | None:
@@ -653,7 +663,9 @@ class AttentionLayer(_LayerBase):
     kind: Literal["attention"] = Field(description="Layer kind.", examples=["attention"])
     dim: Size = Field(description="Model width.", examples=[512])
     heads: Size = Field(description="Number of heads; divides dim.", examples=[8])
-    bias: bool = Field(default=True, description="Whether each projection has a bias.")
+    bias: bool = Field(
+        default=True, description="Whether each projection has a bias.", examples=[True]
+    )
 
     def _check_kind(self) -> None:
         if self.dim % self.heads:
@@ -671,7 +683,9 @@ class NormLayer(_LayerBase):
 
     kind: Literal["norm"] = Field(description="Layer kind.", examples=["norm"])
     dim: Size = Field(description="Number of features normalised.", examples=[512])
-    bias: bool = Field(default=True, description="Whether the layer has a shift vector.")
+    bias: bool = Field(
+        default=True, description="Whether the layer has a shift vector.", examples=[True]
+    )
 
     def _check_kind(self) -> None:
         init = self.init
@@ -751,7 +765,10 @@ class NetworkRequest(_Strict):
         list[LayerSpec],
         Field(min_length=1),
         Allowed("a list of at least one layer object (the limit is set by the service)"),
-    ] = Field(description="The layers, in the order the signal meets them.")
+    ] = Field(
+        description="The layers, in the order the signal meets them.",
+        examples=[_EXAMPLE_REQUEST["layers"][:2]],
+    )
 
     @field_validator("seed", mode="before")
     @classmethod
@@ -809,10 +826,11 @@ def parse_request(data: object, limits: Limits | None = None) -> NetworkRequest:
     except ValidationError as err:
         raise RequestRejected(problems_from_validation_error(NetworkRequest, err)) from None
 
+    slots = slots_by_layer(request)
     problems = layer_name_problems(request)
-    problems += tensor_name_problems(request)
+    problems += tensor_name_problems(request, slots)
     problems += _dtype_range_problems(request)
-    problems += size_problems(request, slots_by_layer(request), limits)
+    problems += size_problems(request, slots, limits)
     if problems:
         raise RequestRejected(problems)
     return request

@@ -155,15 +155,19 @@ def tensor_slots(layer: AnyLayer, layout: Layout) -> list[TensorSlot]:
     raise TypeError(f"not a layer model: {type(layer).__name__}")
 
 
-def tensor_name_problems(request: NetworkRequest) -> list[Problem]:
+def tensor_name_problems(
+    request: NetworkRequest, slots: Sequence[Sequence[TensorSlot]] | None = None
+) -> list[Problem]:
     """Tensor names claimed by two different layers (e.g. dense "a.query" next to attention "a").
 
-    Layers with the same name are reported by the layer-name check, not again here.
+    `slots` may pass `slots_by_layer(request)` when the caller has it already. Layers with the
+    same name are reported by the layer-name check, not again here.
     """
+    per_layer = slots if slots is not None else slots_by_layer(request)
     owner: dict[str, int] = {}
     problems: list[Problem] = []
     for i, layer in enumerate(request.layers):
-        for slot in tensor_slots(layer, request.layout):
+        for slot in per_layer[i]:
             j = owner.setdefault(slot.tensor, i)
             if j != i and request.layers[j].name != layer.name:
                 other = request.layers[j]
@@ -190,6 +194,6 @@ def request_slots(request: NetworkRequest) -> list[TensorSlot]:
     return out
 
 
-def slots_by_layer(request: NetworkRequest) -> Sequence[list[TensorSlot]]:
+def slots_by_layer(request: NetworkRequest) -> list[list[TensorSlot]]:
     """The tensors of each layer, aligned with `request.layers`."""
     return [tensor_slots(layer, request.layout) for layer in request.layers]
