@@ -8,9 +8,9 @@ from collections.abc import Iterator
 
 import ml_dtypes
 import numpy as np
-from test_formats_helpers import DEMO_DOCUMENT, array_tensor, collect, sha256_hex
 
 from seedbed.formats import OutgoingTensor, json_body, json_size
+from test_formats_helpers import DEMO_DOCUMENT, array_tensor, collect, sha256_hex
 
 _NP_DTYPES = {"float32": np.float32, "float64": np.float64, "float16": np.float16,
               "bfloat16": ml_dtypes.bfloat16}

@@ -13,11 +13,11 @@ import numpy as np
 import safetensors
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from test_formats_helpers import ITEMSIZE, collect, parse_safetensors, raw_tensor, sha256_hex
 
 from seedbed.formats import FORMAT_NAMES, OutgoingTensor, encode_body, json_size
 from seedbed.formats.npz_out import MANIFEST_MEMBER, NPY_DESCR, npz_body
 from seedbed.formats.safetensors_out import MANIFEST_KEY
+from test_formats_helpers import ITEMSIZE, collect, parse_safetensors, raw_tensor, sha256_hex
 
 _ST_CODES = {"float64": "F64", "float32": "F32", "float16": "F16", "bfloat16": "BF16"}
 

@@ -11,7 +11,16 @@ import numpy as np
 import pytest
 import safetensors
 import safetensors.numpy
+
 from conftest import require_oracle
+from seedbed.formats import (
+    FormatInputError,
+    OutgoingTensor,
+    safetensors_body,
+    safetensors_out,
+    tensor_digests,
+)
+from seedbed.formats.safetensors_out import ALGORITHM_KEY, MANIFEST_KEY
 from test_formats_helpers import (
     DEMO_DOCUMENT,
     array_tensor,
@@ -20,10 +29,6 @@ from test_formats_helpers import (
     raw_tensor,
     sha256_hex,
 )
-
-from seedbed.formats import FormatInputError, OutgoingTensor, safetensors_body, tensor_digests
-from seedbed.formats import safetensors_out
-from seedbed.formats.safetensors_out import ALGORITHM_KEY, MANIFEST_KEY
 
 
 def _demo_arrays() -> dict[str, np.ndarray]:
@@ -137,6 +142,6 @@ def test_header_over_the_reader_limit_is_refused_before_streaming(
     monkeypatch.setattr(safetensors_out, "HEADER_LIMIT", 4000)
     tensors = [raw_tensor(f"t{i}", b"", "float32", (0,), entry={"rationale": "x" * 500})
                for i in range(8)]
-    with pytest.raises(FormatInputError, match="safetensors header would be .* readers refuse"):
+    with pytest.raises(FormatInputError, match=r"safetensors header would be .* readers refuse"):
         safetensors_body(DEMO_DOCUMENT, tensors)
     collect(safetensors_body(DEMO_DOCUMENT, tensors[:3]))  # about 1.7 kB fits

@@ -173,14 +173,15 @@ def _member_name(text: str) -> tuple[bytes, int]:
 def _end_records(count: int, cd_offset: int, cd_size: int, limit: int) -> bytes:
     """ZIP64 end record + locator when any classic field overflows, then the classic end."""
     out = b""
-    if count >= _COUNT_LIMIT or cd_offset >= limit or cd_size >= limit:
+    count_limit = min(_COUNT_LIMIT, limit)  # a lowered test limit lowers this one too
+    if count >= count_limit or cd_offset >= limit or cd_size >= limit:
         end64_offset = cd_offset + cd_size
         out += struct.pack(
             "<IQHHIIQQQQ", _SIG_END64, 44, _MADE_BY, _NEEDS_ZIP64, 0, 0, count, count,
             cd_size, cd_offset,
         )
         out += struct.pack("<IIQI", _SIG_LOCATOR64, 0, end64_offset, 1)
-    count16 = count if count < _COUNT_LIMIT else 0xFFFF
+    count16 = count if count < count_limit else 0xFFFF
     size32 = cd_size if cd_size < limit else 0xFFFFFFFF
     offset32 = cd_offset if cd_offset < limit else 0xFFFFFFFF
     out += struct.pack("<IHHHHIIH", _SIG_END, 0, 0, count16, count16, size32, offset32, 0)
@@ -201,7 +202,8 @@ def npz_body(
     """Build the NPZ response; one generation pass. With `digests`, each tensor is checked
     against its digest while streaming (the stream aborts before a mismatching tensor ends).
 
-    `_zip64_limit` exists for tests: lowering it exercises the ZIP64 records on small archives.
+    `_zip64_limit` exists for tests: lowering it (sizes, offsets and, below 0xFFFF, the member
+    count) exercises the ZIP64 records on small archives.
     """
     tensors = tuple(tensors)
     check_inputs(document, tensors)
