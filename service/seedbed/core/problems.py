@@ -86,6 +86,9 @@ class Allowed:
     """
 
     text: str
+    # A size field: exceeding its upper bound is "too_large" (a request too big to serve), not
+    # a malformed value.
+    is_size: bool = False
 
 
 def field_error(code: ProblemCode, message: str, field: str | None = None) -> PydanticCustomError:
@@ -158,8 +161,8 @@ def _tag_of(model: type[BaseModel]) -> str | None:
     return args[0] if len(args) == 1 and isinstance(args[0], str) else None
 
 
-def _allowed_in(meta: Sequence[Any]) -> str | None:
-    return next((m.text for m in meta if isinstance(m, Allowed)), None)
+def _allowed_in(meta: Sequence[Any]) -> Allowed | None:
+    return next((m for m in meta if isinstance(m, Allowed)), None)
 
 
 @dataclass
@@ -167,8 +170,7 @@ class _Where:
     path: str  # readable path
     container: type[BaseModel] | None  # the model whose field the path ends in
     leaf: str | None  # the last field name
-    allowed: str | None  # the Allowed text of that field, if any
-    item: bool  # the path ends inside a list (kernel[0])
+    allowed: Allowed | None  # what the field (or list item) accepts, if declared
 
 
 def _join(path: str, part: str | int) -> str:
@@ -186,7 +188,7 @@ def locate(root: type[BaseModel], loc: Sequence[str | int]) -> _Where:
     """
     path = ""
     tp: Any = root
-    where = _Where(BODY, None, None, None, False)
+    where = _Where(BODY, None, None, None)
     for part in loc:
         tp, _ = _normalise(tp)
         members = _model_members(tp)
@@ -201,14 +203,14 @@ def locate(root: type[BaseModel], loc: Sequence[str | int]) -> _Where:
             allowed = None
             if info is not None:  # Optional[Annotated[...]] keeps its metadata inside
                 allowed = _allowed_in([*info.metadata, *_normalise(info.annotation)[1]])
-            where = _Where(path, tp, part, allowed, False)
+            where = _Where(path, tp, part, allowed)
             tp = info.annotation if info is not None else None
         elif isinstance(part, int) and get_origin(tp) is list:
             (tp,) = get_args(tp)
             # An item's own description, if it has one; the list's text describes the list.
-            where = _Where(path, where.container, where.leaf, _allowed_in(_normalise(tp)[1]), True)
+            where = _Where(path, where.container, where.leaf, _allowed_in(_normalise(tp)[1]))
         else:
-            where = _Where(path, where.container, where.leaf, where.allowed, where.item)
+            where = _Where(path, where.container, where.leaf, where.allowed)
             tp = None
     return where
 
@@ -282,7 +284,7 @@ def _translate(root: type[BaseModel], error: Any) -> Problem:
 
     where = locate(root, loc)
     path = where.path
-    allowed = where.allowed
+    allowed = where.allowed.text if where.allowed is not None else None
 
     if kind == "extra_forbidden":
         return Problem(
@@ -298,7 +300,7 @@ def _translate(root: type[BaseModel], error: Any) -> Problem:
             f"required field {where.leaf!r} is missing"
             + (f"; it must be {allowed}" if allowed else ""),
         )
-    if kind == "less_than_equal" and allowed and "positive integer" in allowed:
+    if kind == "less_than_equal" and where.allowed is not None and where.allowed.is_size:
         # Sizes are capped so that shape arithmetic stays small and every framework can index it.
         return Problem(
             path,

@@ -123,7 +123,7 @@ DEFAULT_DISTRIBUTION: dict[str, str] = {
 _NAME_PATTERN = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.\-]*")
 
 _SIZE_TEXT = f"a positive integer (1 to {MAX_SIZE})"
-Size = Annotated[int, Field(ge=1, le=MAX_SIZE), Allowed(_SIZE_TEXT)]
+Size = Annotated[int, Field(ge=1, le=MAX_SIZE), Allowed(_SIZE_TEXT, is_size=True)]
 Positive = Annotated[float, Field(gt=0), Allowed("a positive finite number")]
 Finite = Annotated[float, Allowed("a finite number")]
 
