@@ -235,7 +235,7 @@ def test_weights_etag_304_generates_nothing(
     cached = client.post(
         "/v1/weights?format=safetensors",
         json=GREENHOUSE,
-        headers={"if-none-match": f'"something-else", W/{etag}'},
+        headers={"if-none-match": f'"something-else", W/{etag.removeprefix("W/")}'},
     )
     assert cached.status_code == 304 and cached.content == b""
     assert cached.headers["etag"] == etag
@@ -244,6 +244,23 @@ def test_weights_etag_304_generates_nothing(
         "/v1/weights?format=safetensors", json=GREENHOUSE, headers={"if-none-match": '"nope"'}
     )
     assert fresh.status_code == 200 and fresh.content == first.content and calls
+
+
+def test_weak_etag_only_when_bytes_may_vary_by_platform(client: TestClient) -> None:
+    # GREENHOUSE has recurrent weights, planned as orthogonal: `reproducible: platform`.
+    plan = build_plan(GREENHOUSE)
+    platform = [t.tensor for t in plan.tensors if t.reproducible == "platform"]
+    exact = [t.tensor for t in plan.tensors if t.reproducible == "exact"]
+    assert platform and exact
+    whole = client.post("/v1/weights?format=npz", json=GREENHOUSE).headers["etag"]
+    assert whole.startswith('W/"')
+    one = client.post(f"/v1/weights?format=npz&tensor={platform[0]}", json=GREENHOUSE)
+    assert one.headers["etag"].startswith('W/"')
+    other = client.post(f"/v1/weights?format=npz&tensor={exact[0]}", json=GREENHOUSE)
+    assert other.headers["etag"].startswith('"')
+    cached = client.post("/v1/weights?format=npz", json=GREENHOUSE,
+                         headers={"if-none-match": whole})
+    assert cached.status_code == 304
 
 
 def test_catalog(client: TestClient) -> None:

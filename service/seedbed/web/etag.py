@@ -37,10 +37,5 @@ def none_match(header: str | None, etag: str) -> bool:
         return False
     if header.strip() == "*":
         return True
-    for item in header.split(","):
-        tag = item.strip()
-        if tag.startswith("W/"):
-            tag = tag[2:]
-        if tag == etag:
-            return True
-    return False
+    ours = etag.removeprefix("W/")
+    return any(item.strip().removeprefix("W/") == ours for item in header.split(","))
