@@ -47,7 +47,11 @@ def test_int_and_string_seeds_differ() -> None:
 
 
 def test_names_and_seeds_change_the_key() -> None:
-    keys = {derive_key(seed, name) for seed in (1, 2, "1", "2") for name in ("a.weight", "b.weight", "a.bias")}
+    keys = {
+        derive_key(seed, name)
+        for seed in (1, 2, "1", "2")
+        for name in ("a.weight", "b.weight", "a.bias")
+    }
     assert len(keys) == 12
 
 

@@ -105,9 +105,9 @@ def test_truncation_constants_against_scipy() -> None:
     special = require_oracle("scipy.special")
     # Standard result: the variance of N(0,1) restricted to [-2, 2] is
     # 1 - 4 phi(2) / (Phi(2) - Phi(-2)); scipy integrates its own truncated normal.
-    assert TRUNCATION_STD_FACTOR == pytest.approx(stats.truncnorm(-2, 2).std(), rel=1e-14)
-    assert TRUNCATION_STD_FACTOR == pytest.approx(0.8796256610342398, rel=1e-15)
-    assert TRUNCATION_MASS == pytest.approx(special.ndtr(2.0) - special.ndtr(-2.0), rel=1e-15)
+    assert pytest.approx(stats.truncnorm(-2, 2).std(), rel=1e-14) == TRUNCATION_STD_FACTOR
+    assert pytest.approx(0.8796256610342398, rel=1e-15) == TRUNCATION_STD_FACTOR
+    assert pytest.approx(special.ndtr(2.0) - special.ndtr(-2.0), rel=1e-15) == TRUNCATION_MASS
 
 
 def test_truncation_constants_are_correctly_rounded() -> None:
@@ -116,5 +116,5 @@ def test_truncation_constants_are_correctly_rounded() -> None:
         mass = mpmath.ncdf(2) - mpmath.ncdf(-2)
         factor = mpmath.sqrt(1 - 4 * mpmath.npdf(2) / mass)
         # float(mpf) rounds to nearest: the constants must be exactly those doubles.
-        assert TRUNCATION_MASS == float(mass)
-        assert TRUNCATION_STD_FACTOR == float(factor)
+        assert float(mass) == TRUNCATION_MASS
+        assert float(factor) == TRUNCATION_STD_FACTOR

@@ -72,7 +72,7 @@ def test_generator_block_matches_known_answers(counter, key, expected) -> None:
 
 def test_raw_draws_zero_key_zero_counter_known_answer() -> None:
     # Counter (0, 0, 0, 0) is logical block 0 of stream 0: indices 0..3.
-    counter, key, expected = KAT[0]
+    _counter, key, expected = KAT[0]
     assert [int(w) for w in raw_draws(key, 0, 4)] == list(expected)
 
 
@@ -112,7 +112,9 @@ def test_numpy_pre_increment_trap() -> None:
 )
 def test_raw_draws_agree_with_reference_anywhere(start, count, k0, k1) -> None:
     draws = raw_draws((k0, k1), start, count)
-    expected = [reference_philox4x64_10(i // 4, (k0, k1))[i % 4] for i in range(start, start + count)]
+    expected = [
+        reference_philox4x64_10(i // 4, (k0, k1))[i % 4] for i in range(start, start + count)
+    ]
     assert draws.dtype == np.uint64
     assert [int(v) for v in draws] == expected
 

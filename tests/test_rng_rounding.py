@@ -48,7 +48,9 @@ def _sample(fraction_bits: int, min_exp: int, max_finite: Fraction) -> np.ndarra
     expo = rng.integers(min_exp - fraction_bits, min_exp + 12, size=1000).astype(float)
     ties = (k + 0.5) * np.exp2(expo - fraction_bits)
     near = np.nextafter(ties, np.inf), np.nextafter(ties, -np.inf)
-    tiny = np.exp2(float(min_exp - fraction_bits - 1)) * np.array([1.0, 0.5, 1.5, 0.999, -1.0, -1.5])
+    tiny = np.exp2(float(min_exp - fraction_bits - 1)) * np.array(
+        [1.0, 0.5, 1.5, 0.999, -1.0, -1.5]
+    )
     return np.concatenate([values, ties, -ties, *near, tiny, [0.0, -0.0]])
 
 
@@ -60,7 +62,9 @@ def test_matches_exact_round_half_even(dtype) -> None:
     got = round_to_dtype(x, dtype).astype(np.float64)
     expected = [exact_round(v, fraction_bits, min_exp) for v in x.tolist()]
     mismatches = [
-        (v, g, float(e)) for v, g, e in zip(x.tolist(), got.tolist(), expected, strict=True) if Fraction(g) != e
+        (v, g, float(e))
+        for v, g, e in zip(x.tolist(), got.tolist(), expected, strict=True)
+        if Fraction(g) != e
     ]
     assert not mismatches, mismatches[:5]
     # Signed zeros keep their sign, as IEEE conversion does.
@@ -100,7 +104,13 @@ def test_double_rounding_case_is_avoided() -> None:
 
 @pytest.mark.parametrize(
     ("dtype", "value"),
-    [("float16", 65520.0), ("float16", -1e6), ("bfloat16", 3.4e38), ("float32", 3.5e38), ("float32", -1e300)],
+    [
+        ("float16", 65520.0),
+        ("float16", -1e6),
+        ("bfloat16", 3.4e38),
+        ("float32", 3.5e38),
+        ("float32", -1e300),
+    ],
 )
 def test_overflow_is_refused(dtype, value) -> None:
     with pytest.raises(ValueError, match="exceed the largest"):

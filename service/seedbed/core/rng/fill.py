@@ -56,9 +56,7 @@ def _transform(dist: str) -> Callable[[np.ndarray, np.ndarray], None]:
     try:
         return _TRANSFORMS[dist]
     except (KeyError, TypeError):
-        raise ValueError(
-            f"dist must be one of {', '.join(DISTRIBUTIONS)}, got {dist!r}"
-        ) from None
+        raise ValueError(f"dist must be one of {', '.join(DISTRIBUTIONS)}, got {dist!r}") from None
 
 
 def _transform_all(
@@ -91,9 +89,11 @@ def fill_standard(
 ) -> None:
     """out[j] = standard value of logical index start + j, for j in range(len(out)).
 
-    Work is cut into chunks of `chunk` values; up to `threads` chunks are in flight, each
-    holding about 8 bytes of scratch per value, so memory beyond `out` stays below roughly
-    chunk * threads * 16 bytes.
+    Work is cut into chunks of `chunk` values; up to `threads` chunks are in flight. Each
+    holds its raw draws (8 bytes per value) and the transform's float64 temporaries for at
+    most 32768 values at a time (about 100 bytes per value), so memory beyond `out` is
+    bounded by about threads * (8 * chunk + 100 * min(chunk, 32768)) bytes, whatever the
+    size of `out`.
     """
     transform = _transform(dist)
     checked_key = check_key(key)
