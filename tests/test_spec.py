@@ -65,6 +65,7 @@ BAD: list[tuple[str, object, str, str, str]] = [
     ("seed float", req(seed=1.5), "seed", "invalid_type", "string of 1 to 128 characters"),
     ("seed empty str", req(seed=""), "seed", "invalid_value", "string of 1 to 128"),
     ("seed long str", req(seed="s" * 129), "seed", "invalid_value", "string of 1 to 128"),
+    ("seed lone surrogate", req(seed="ab\ud800"), "seed", "invalid_value", "valid Unicode"),
     ("seed missing", {"layers": [dense()]}, "seed", "missing_field", "integer 0 to"),
     ("dtype unknown", req(dtype="float8"), "dtype", "invalid_value", "float16, bfloat16"),
     ("dtype null", req(dtype=None), "dtype", "invalid_type", "float32, float64"),

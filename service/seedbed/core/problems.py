@@ -15,6 +15,7 @@ Codes (our own vocabulary; the web layer passes them through unchanged):
     not_allowed      a field that is valid on its own but not in this combination
     duplicate_name   a layer name or tensor name used twice (the message names both places)
     too_large        a size or a count over a limit (the message has the number and the limit)
+    out_of_range     a position outside what exists (a row range past a tensor's end)
 
 `RequestRejected.too_large` is true when every problem is `too_large`: the request is
 well-formed but too big to serve (HTTP 413). A request that is also malformed gets 422, so
@@ -47,6 +48,7 @@ ProblemCode = Literal[
     "not_allowed",
     "duplicate_name",
     "too_large",
+    "out_of_range",
 ]
 PROBLEM_CODES: frozenset[str] = frozenset(get_args(ProblemCode))
 

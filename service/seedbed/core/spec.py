@@ -74,6 +74,8 @@ from seedbed.core.problems import (
     field_error,
     problems_from_validation_error,
 )
+from seedbed.core.rng.keys import SEED_INT_MAX
+from seedbed.core.rng.keys import SEED_STR_MAX_CHARS as SEED_STR_MAX
 
 # ---------------------------------------------------------------------------------------------
 # Vocabulary
@@ -88,8 +90,6 @@ WeightMethod = Literal[
 Distribution = Literal["uniform", "normal", "truncated_normal"]
 Fan = Literal["in", "out", "mean"]
 
-SEED_INT_MAX = 2**63 - 1
-SEED_STR_MAX = 128
 
 # Largest finite value of each dtype (IEEE 754 binary16/32/64; bfloat16 keeps float32's
 # exponent with an 8-bit significand). A test checks these against numpy/ml_dtypes finfo.
@@ -259,7 +259,7 @@ class WeightOverride(_Strict):
                         f"scale; remove {name}, or remove {which} to use the {m} formula",
                         name,
                     )
-        if m == "glorot" and self.fan not in (None, "mean"):
+        if m not in FAN_METHODS and self.fan not in (None, "mean"):
             raise field_error(
                 "not_allowed",
                 "glorot always uses the mean of fan-in and fan-out (allowed: mean); use he or "
@@ -778,10 +778,18 @@ class NetworkRequest(_Strict):
             raise field_error("invalid_type", f"got {describe_input(value)}; allowed: {allowed}")
         if isinstance(value, int) and not 0 <= value <= SEED_INT_MAX:
             raise field_error("invalid_value", f"got {describe_input(value)}; allowed: {allowed}")
-        if isinstance(value, str) and not 1 <= len(value) <= SEED_STR_MAX:
-            raise field_error(
-                "invalid_value", f"got a string of {len(value)} characters; allowed: {allowed}"
-            )
+        if isinstance(value, str):
+            if not 1 <= len(value) <= SEED_STR_MAX:
+                raise field_error(
+                    "invalid_value", f"got a string of {len(value)} characters; allowed: {allowed}"
+                )
+            try:  # the seed is hashed as UTF-8; JSON can smuggle in lone surrogates (\ud800)
+                value.encode("utf-8")
+            except UnicodeEncodeError:
+                raise field_error(
+                    "invalid_value",
+                    f"the string contains a lone surrogate; allowed: {allowed} of valid Unicode",
+                ) from None
         return value
 
 
