@@ -109,7 +109,9 @@ def river_gauge_forecaster() -> dict[str, Any]:
     return {"seed": 20261202, "dtype": "float32", "layers": layers}
 
 
-def single_dense(n_in: int, n_out: int, *, activation: str = "relu", seed: int = 7) -> dict[str, Any]:
+def single_dense(
+    n_in: int, n_out: int, *, activation: str = "relu", seed: int = 7
+) -> dict[str, Any]:
     """One bias-free dense layer: the simplest way to ask for an exact number of values."""
     return {
         "seed": seed,

@@ -141,11 +141,18 @@ def start_server(
     for _ in range(_PORT_RACE_ATTEMPTS):
         port = free_port()
         command = [
-            sys.executable, "-m", "seedbed.cli", "serve", "--host", HOST, "--port", str(port),
+            sys.executable,
+            "-m",
+            "seedbed.cli",
+            "serve",
+            "--host",
+            HOST,
+            "--port",
+            str(port),
         ]
         log_path = directory / f"server-{port}.log"
         with open(log_path, "wb") as log:
-            process = subprocess.Popen(  # noqa: S603 - our own fixed command line
+            process = subprocess.Popen(
                 command,
                 cwd=ROOT,
                 env=child_environment(env),

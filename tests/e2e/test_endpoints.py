@@ -10,7 +10,6 @@ import httpx
 import pytest
 
 from .networks import greenhouse_controller, harbor_crane_monitor
-from .server import RunningServer
 
 GET_ROUTES = ["/healthz", "/readyz", "/metrics", "/v1/catalog"]
 
@@ -25,7 +24,9 @@ def _metric(text: str, name: str, **labels: str) -> float:
         match = re.fullmatch(r"([A-Za-z_:][A-Za-z0-9_:]*)(\{(.*)\})? (\S+)( \S+)?", line)
         if match is None or match.group(1) != name:
             continue
-        have = dict(re.findall(r'([A-Za-z_][A-Za-z0-9_]*)="((?:[^"\\]|\\.)*)"', match.group(3) or ""))
+        have = dict(
+            re.findall(r'([A-Za-z_][A-Za-z0-9_]*)="((?:[^"\\]|\\.)*)"', match.group(3) or "")
+        )
         if all(have.get(k) == v for k, v in labels.items()):
             total += float(match.group(4))
             found = True
@@ -76,8 +77,20 @@ def test_plan_describes_every_tensor_without_values(client: httpx.Client) -> Non
     assert "operator.weight" in names and "focus.norm.scale" in names
     for entry in doc["tensors"]:
         assert "data" not in entry and "sha256" not in entry
-        for key in ("layer", "shape", "dtype", "method", "fan_in", "fan_out", "gain", "std",
-                    "bound", "reproducible", "rationale", "references"):
+        for key in (
+            "layer",
+            "shape",
+            "dtype",
+            "method",
+            "fan_in",
+            "fan_out",
+            "gain",
+            "std",
+            "bound",
+            "reproducible",
+            "rationale",
+            "references",
+        ):
             assert key in entry, f"{entry['tensor']}: plan entry lacks {key}"
     dense = next(t for t in doc["tensors"] if t["tensor"] == "alarm.weight")
     assert dense["shape"] == [3, 24]  # out_in layout: (n_out, n_in), as DESIGN.md fixes it
@@ -141,9 +154,7 @@ def test_metrics_count_requests_bytes_and_values(client: httpx.Client) -> None:
     after = _settled_metrics(client)
     ok = {"route": "/v1/weights", "method": "POST", "status": "200"}
     requests_name = "seedbed_http_requests_total"
-    assert _metric(after, requests_name, **ok) == _metric_or_zero(
-        before, requests_name, **ok
-    ) + 1
+    assert _metric(after, requests_name, **ok) == _metric_or_zero(before, requests_name, **ok) + 1
     sent = "seedbed_http_response_body_bytes_total"
     route = {"route": "/v1/weights"}
     grew = _metric(after, sent, **route) - _metric_or_zero(before, sent, **route)
