@@ -17,6 +17,7 @@ from seedbed.core.limits import Limits
 from seedbed.core.problems import PROBLEM_CODES, RequestRejected
 from seedbed.core.spec import (
     DTYPE_MAX,
+    DTYPE_TINY,
     AttentionLayer,
     BiasOverride,
     ConvLayer,
@@ -168,9 +169,15 @@ BAD: list[tuple[str, object, str, str, str]] = [
     ("fan with std", req(dense(init={"method": "he", "std": 0.02, "fan": "out"})),
      "layers[0].init.fan", "not_allowed", "final scale"),
     ("gain negative", req(dense(init={"method": "he", "gain": -1.0})), "layers[0].init.gain",
-     "invalid_value", "positive finite number"),
+     "invalid_value", "from 1e-06 to 1e+06"),
+    ("gain subnormal", req(dense(init={"method": "he", "gain": 5e-324})), "layers[0].init.gain",
+     "invalid_value", "from 1e-06 to 1e+06"),
+    ("gain huge", req(dense(init={"method": "orthogonal", "gain": 1e300})),
+     "layers[0].init.gain", "invalid_value", "from 1e-06 to 1e+06"),
     ("gain infinite", req(dense(init={"method": "he", "gain": float("inf")})),
-     "layers[0].init.gain", "invalid_value", "positive finite number"),
+     "layers[0].init.gain", "invalid_value", "from 1e-06 to 1e+06"),
+    ("std zero", req(dense(init={"method": "he", "std": 0.0})), "layers[0].init.std",
+     "invalid_value", "positive finite number"),
     ("uniform by definition", req(dense(init={"method": "symmetric_uniform",
                                               "distribution": "normal"})),
      "layers[0].init.distribution", "not_allowed", "omit distribution or set uniform"),
@@ -208,6 +215,10 @@ BAD: list[tuple[str, object, str, str, str]] = [
      "layers[0].bias_init.value", "invalid_value", "65504"),
     ("forget bias over fp16", req(lstm(forget_bias=1e5), dtype="float16"),
      "layers[0].forget_bias", "invalid_value", "65504"),
+    ("std under fp16", req(dense(init={"method": "he", "std": 1e-5}), dtype="float16"),
+     "layers[0].init.std", "invalid_value", "at least 6.10352e-05"),
+    ("bound under fp32", req(dense(init={"method": "symmetric_uniform", "bound": 1e-39})),
+     "layers[0].init.bound", "invalid_value", "at least 1.17549e-38"),
     ("std over fp32", req(dense(init={"method": "he", "std": 1e38})), "layers[0].init.std",
      "invalid_value", "3.40282e+38"),
 ]  # fmt: skip
@@ -259,6 +270,10 @@ def test_dtype_max_table_matches_numpy_and_ml_dtypes() -> None:
     assert DTYPE_MAX["float32"] == float(np.finfo(np.float32).max)
     assert DTYPE_MAX["float64"] == float(np.finfo(np.float64).max)
     assert DTYPE_MAX["bfloat16"] == float(ml_dtypes.finfo(ml_dtypes.bfloat16).max)
+    assert DTYPE_TINY["float16"] == float(np.finfo(np.float16).tiny)
+    assert DTYPE_TINY["float32"] == float(np.finfo(np.float32).tiny)
+    assert DTYPE_TINY["float64"] == float(np.finfo(np.float64).tiny)
+    assert DTYPE_TINY["bfloat16"] == float(ml_dtypes.finfo(ml_dtypes.bfloat16).tiny)
 
 
 def test_std_bound_uses_the_extreme_normal_draw() -> None:
@@ -445,7 +460,7 @@ def _override(draw: st.DrawFn) -> dict[str, Any]:
     method = draw(st.sampled_from(["symmetric_uniform", "glorot", "he", "lecun", "orthogonal",
                                    "identity", "constant"]))  # fmt: skip
     out: dict[str, Any] = {"method": method}
-    positive = st.floats(min_value=1e-3, max_value=10.0, allow_nan=False)
+    positive = st.floats(min_value=1e-3, max_value=10.0, allow_nan=False)  # fits every dtype
     if method == "constant":
         out["value"] = draw(st.floats(min_value=-10, max_value=10, allow_nan=False))
     elif method in ("orthogonal", "identity"):

@@ -99,6 +99,20 @@ DTYPE_MAX: dict[str, float] = {
     "float16": 65504.0,
     "bfloat16": 3.3895313892515355e38,
 }
+# Smallest positive normal number of each dtype. An explicit std or bound below it would give
+# values that are subnormal (a few bits of precision) or round to zero, making units identical.
+DTYPE_TINY: dict[str, float] = {
+    "float64": 2.2250738585072014e-308,
+    "float32": 1.1754943508222875e-38,
+    "float16": 6.103515625e-05,
+    "bfloat16": 1.1754943508222875e-38,
+}
+# An explicit gain is a multiplier of order one in every published rule (sqrt(2) for ReLU,
+# ~1.59 for tanh, 1 for SELU; branch down-scaling goes to ~1e-2). 1e-6 .. 1e6 leaves ample
+# room while keeping every scale derived from it finite and non-zero in float64 arithmetic.
+GAIN_MIN = 1e-6
+GAIN_MAX = 1e6
+
 # Normal draws come from probabilities no closer to 0 or 1 than 2**-53, whose normal quantile
 # is about -8.21 (scipy.special.ndtri); 8.3 bounds |z| with a margin. A std is refused when
 # 8.3 * std would not fit the dtype.
@@ -125,6 +139,9 @@ _NAME_PATTERN = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.\-]*")
 _SIZE_TEXT = f"a positive integer (1 to {MAX_SIZE})"
 Size = Annotated[int, Field(ge=1, le=MAX_SIZE), Allowed(_SIZE_TEXT, is_size=True)]
 Positive = Annotated[float, Field(gt=0), Allowed("a positive finite number")]
+Gain = Annotated[
+    float, Field(ge=GAIN_MIN, le=GAIN_MAX), Allowed(f"a number from {GAIN_MIN:g} to {GAIN_MAX:g}")
+]
 Finite = Annotated[float, Allowed("a finite number")]
 
 
@@ -173,9 +190,10 @@ class WeightOverride(_Strict):
         "he and lecun take any (default in); glorot is always mean.",
         examples=["in"],
     )
-    gain: Positive | None = Field(
+    gain: Gain | None = Field(
         default=None,
-        description="Multiplier of the method's unit scale; default: the activation's gain.",
+        description=f"Multiplier of the method's unit scale, {GAIN_MIN:g} to {GAIN_MAX:g}; "
+        "default: the activation's gain.",
         examples=[1.0],
     )
     std: Positive | None = Field(
@@ -864,9 +882,22 @@ def layer_name_problems(request: NetworkRequest) -> list[Problem]:
 
 
 def _dtype_range_problems(request: NetworkRequest) -> list[Problem]:
-    """Explicit numbers that would overflow the request's dtype."""
+    """Explicit numbers that would overflow the request's dtype, or scales that underflow it."""
     top = DTYPE_MAX[request.dtype]
+    tiny = DTYPE_TINY[request.dtype]
     problems: list[Problem] = []
+
+    def check_tiny(path: str, scale: float, what: str) -> None:
+        if scale < tiny:
+            problems.append(
+                Problem(
+                    path,
+                    "invalid_value",
+                    f"{what} {scale!r} is below {request.dtype}'s smallest normal number "
+                    f"{tiny:g}: the values would lose their precision or round to zero; "
+                    f"allowed: at least {tiny:g}",
+                )
+            )
 
     def check(path: str, magnitude: float, what: str, limit: float) -> None:
         if magnitude > limit:
@@ -886,6 +917,7 @@ def _dtype_range_problems(request: NetworkRequest) -> list[Problem]:
                 check(f"layers[{i}].init.value", abs(init.value), f"{init.value!r}", top)
             if init.bound is not None:
                 check(f"layers[{i}].init.bound", init.bound, f"bound {init.bound!r}", top)
+                check_tiny(f"layers[{i}].init.bound", init.bound, "bound")
             if init.std is not None:
                 check(
                     f"layers[{i}].init.std",
@@ -893,6 +925,7 @@ def _dtype_range_problems(request: NetworkRequest) -> list[Problem]:
                     f"std {init.std!r} (normal draws reach {NORMAL_EXTREME} std)",
                     top / NORMAL_EXTREME,
                 )
+                check_tiny(f"layers[{i}].init.std", init.std, "std")
         if layer.bias_init is not None:
             v = layer.bias_init.value
             check(f"layers[{i}].bias_init.value", abs(v), f"{v!r}", top)
