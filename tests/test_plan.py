@@ -153,3 +153,24 @@ def test_explicit_std_override_reports_ratio_to_recommendation() -> None:
     factor = stats.truncnorm(-2, 2).std()
     assert w.bound == pytest.approx(2 * 0.02 / factor, rel=1e-12)
     assert "0.141421 times the recommended std" in w.rationale
+
+
+def test_derived_scale_beyond_the_dtype_is_refused_with_the_field() -> None:
+    with pytest.raises(RequestRejected) as err:
+        plan_of(dense("a", 8, 8, activation="relu", init={"method": "he", "gain": 1e6}),
+                dtype="float16")
+    (problem,) = err.value.problems
+    assert problem.field == "layers[0].init" and "65504" in problem.message
+
+
+def test_scale_below_the_dtype_precision_warns() -> None:
+    t = plan_of(dense("a", 8, 8, init={"method": "glorot", "gain": 1e-6}), dtype="float16")
+    assert any("subnormal" in w for w in t.tensor("a.weight").warnings)
+
+
+def test_norm_scale_override_with_explicit_std() -> None:
+    p = plan_of({"name": "n", "kind": "norm", "dim": 16,
+                 "init": {"method": "he", "distribution": "normal", "std": 0.1}})
+    t = p.tensor("n.scale")
+    assert (t.sampler, t.std) == ("normal", 0.1)
+    assert p.tensor("n.shift").value == 0.0

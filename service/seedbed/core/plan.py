@@ -14,7 +14,14 @@ from seedbed.core.limits import Limits
 from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.problems import Problem, RequestRejected
 from seedbed.core.recommend import Choice, override_weight, recommend_weight, vector_choice
-from seedbed.core.spec import NetworkRequest, canonical_request, parse_request
+from seedbed.core.spec import (
+    DTYPE_MAX,
+    DTYPE_TINY,
+    NORMAL_EXTREME,
+    NetworkRequest,
+    canonical_request,
+    parse_request,
+)
 from seedbed.core.tensors import TensorSlot, slots_by_layer
 from seedbed.core.version import ALGORITHM
 
@@ -33,11 +40,38 @@ def _identity_problem(index: int, layer: Any, slot: TensorSlot) -> Problem | Non
     cols = slot.logical_shape[1]
     if rows == cols:
         return None
-    what = ("channels_out/groups must equal channels_in/groups" if layer.kind == "conv"
-            else "the weight must be square per gate block")
+    what = ("channels_out/groups equal to channels_in/groups" if layer.kind == "conv"
+            else "a square weight (per gate block)")
     return Problem(f"layers[{index}].init.method", "invalid_value",
                    f"identity needs {what}: {slot.tensor} has {rows} outputs and {cols} inputs "
                    "per block; use orthogonal for rectangular weights")
+
+
+def _largest_magnitude(choice: Choice) -> float:
+    if choice.sampler == "normal":
+        return choice.scale * NORMAL_EXTREME
+    if choice.sampler == "constant":
+        return max(abs(v) for v in (choice.block_values or (choice.scale,)))
+    return abs(choice.scale) * (2.0 if choice.sampler == "truncated_normal" else 1.0)
+
+
+def _dtype_fit(index: int, layer: Any, slot: TensorSlot, choice: Choice, dtype: str,
+               problems: list[Problem]) -> Choice:
+    """Refuse derived scales that overflow the dtype; warn when they drown in its precision."""
+    top, tiny = DTYPE_MAX[dtype], DTYPE_TINY[dtype]
+    field = f"layers[{index}].init" if layer.init is not None else f"layers[{index}]"
+    if _largest_magnitude(choice) > top:
+        problems.append(Problem(field, "invalid_value",
+                                f"{slot.tensor} would reach {_largest_magnitude(choice):.3g}, "
+                                f"beyond the largest finite {dtype} ({top:g}); allowed: scales "
+                                f"whose values stay within +-{top:g} (lower the gain or use a "
+                                "wider dtype)"))
+    elif choice.std is not None and 0.0 < choice.std < tiny:
+        note = (f"std {choice.std:.3g} is below the smallest normal {dtype} number ({tiny:.3g}): "
+                "most values become subnormal or zero, losing precision and the symmetry "
+                "breaking; use a wider dtype.")
+        return replace(choice, warnings=(*choice.warnings, note))
+    return choice
 
 
 def _tensor_plan(slot: TensorSlot, dtype: str, choice: Choice) -> TensorPlan:
@@ -58,7 +92,7 @@ def _uses_identity_recurrence(layer: Any) -> bool:
     return layer.kind == "recurrent" and layer.cell == "simple" and layer.activation == "relu"
 
 
-def _layer_choices(index: int, layer: Any, slots: list[TensorSlot],
+def _layer_choices(index: int, layer: Any, slots: list[TensorSlot], dtype: str,
                    problems: list[Problem]) -> list[tuple[TensorSlot, Choice]]:
     out: list[tuple[TensorSlot, Choice]] = []
     for slot in slots:
@@ -69,17 +103,23 @@ def _layer_choices(index: int, layer: Any, slots: list[TensorSlot],
         if slot.is_bias or layer.kind == "norm":
             out.append((slot, vector_choice(layer, slot)))
             continue
-        recommended = recommend_weight(layer, slot, _uses_identity_recurrence(layer))
-        if layer.init is None:
-            out.append((slot, recommended))
-            continue
-        if layer.init.method == "identity":
-            problem = _identity_problem(index, layer, slot)
-            if problem is not None:
-                problems.append(problem)
-                continue
-        out.append((slot, override_weight(layer, slot, layer.init, recommended)))
+        choice = _weight_choice(index, layer, slot, problems)
+        if choice is not None:
+            out.append((slot, _dtype_fit(index, layer, slot, choice, dtype, problems)))
     return out
+
+
+def _weight_choice(index: int, layer: Any, slot: TensorSlot,
+                   problems: list[Problem]) -> Choice | None:
+    recommended = recommend_weight(layer, slot, _uses_identity_recurrence(layer))
+    if layer.init is None:
+        return recommended
+    if layer.init.method == "identity":
+        problem = _identity_problem(index, layer, slot)
+        if problem is not None:
+            problems.append(problem)
+            return None
+    return override_weight(layer, slot, layer.init, recommended)
 
 
 def _stack_warnings(request: NetworkRequest,
@@ -137,7 +177,7 @@ def plan_request(request: NetworkRequest) -> Plan:
     weights: list[tuple[Any, Choice]] = []
     for index, (layer, slots) in enumerate(zip(request.layers, slots_by_layer(request),
                                                strict=True)):
-        for slot, choice in _layer_choices(index, layer, slots, problems):
+        for slot, choice in _layer_choices(index, layer, slots, request.dtype, problems):
             tensors.append(_tensor_plan(slot, request.dtype, choice))
             if layer.kind in ("dense", "conv") and not slot.is_bias:
                 weights.append((layer, choice))

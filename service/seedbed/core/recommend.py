@@ -316,9 +316,27 @@ def _constant(value: float, why: str, refs: tuple[str, ...] = (),
     )
 
 
+def _norm_scale_override(ov: WeightOverride) -> Choice:
+    """A norm scale set by the caller: a constant, or a distribution with an explicit scale."""
+    if ov.method == "constant":
+        assert ov.value is not None
+        return _constant(ov.value, f"Caller's override: every scale element {ov.value!r}.")
+    dist = ov.distribution or "uniform"
+    realised = (distribution_for_std(ov.std, dist) if ov.std is not None
+                else distribution_for_bound(ov.bound or 0.0, dist))
+    return Choice(
+        method=ov.method, distribution=dist, sampler=dist, scale=realised.sampler_scale,
+        fan_in=None, fan_out=None, gain=None, std=realised.std, bound=realised.bound, value=None,
+        rationale=f"Caller's override of the normalisation scale: {realised.text}.",
+        references=(),
+    )
+
+
 def vector_choice(layer: Any, slot: TensorSlot) -> Choice:
     """Biases, norm scales and shifts: constants, with the published exceptions."""
     if layer.kind == "norm":
+        if slot.part == "scale" and layer.init is not None:
+            return _norm_scale_override(layer.init)
         if slot.part == "scale":
             return _constant(1.0, "Normalisation scale starts at 1 so the layer begins as plain "
                              "normalisation (common practice).")
