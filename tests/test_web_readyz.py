@@ -4,23 +4,38 @@ by patching the core."""
 
 from __future__ import annotations
 
+import json
+from pathlib import Path
+
 import pytest
 from fastapi.testclient import TestClient
 
 from seedbed.core.version import ALGORITHM
 from seedbed.web import Settings, create_app
-from seedbed.web.readiness import BAKED_ALGORITHM, BAKED_SHA256, tensor_digests
+from seedbed.web.readiness import (
+    BAKED_ALGORITHM,
+    BAKED_SHA256,
+    PROBE_REQUESTS,
+    tensor_digests,
+)
+from support.golden_cases import CASES
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 
-def test_baked_values_match_the_core_today() -> None:
-    # The baked digests were recorded from the core; if the core's bytes change without a new
-    # ALGORITHM string, this fails (and so would every replica's /readyz).
+def test_baked_values_agree_with_the_golden_tests() -> None:
+    # The probes are the golden cases and the baked digests a subset of the committed golden
+    # values (tests/test_golden.py), so the two checks can never disagree silently.
     assert BAKED_ALGORITHM == ALGORITHM
-    assert len(BAKED_SHA256) >= 5
-    assert tensor_digests() == {k: BAKED_SHA256[k] for k in tensor_digests()}
-    assert set(tensor_digests()) == set(BAKED_SHA256)
+    assert PROBE_REQUESTS == CASES
+    golden = json.loads((Path(__file__).parent / "golden" / "core_digests.json").read_text())
+    assert {k: golden.get(k) for k in BAKED_SHA256} == BAKED_SHA256
+    # Every dtype and layout takes part.
+    assert {k.split("/")[0] for k in BAKED_SHA256} == set(CASES)
+
+
+def test_baked_values_match_the_core_today() -> None:
+    assert tensor_digests(BAKED_SHA256) == BAKED_SHA256
 
 
 def test_ready_normally() -> None:
