@@ -110,7 +110,8 @@ async def generate_weights(
     if none_match(request.headers.get("if-none-match"), etag):
         return Response(status_code=304, headers=common)
     if format == "json":
-        size = json_size_of(plan, selection)
+        # Serialising thousands of manifest entries to measure them is CPU work: off the loop.
+        size = await run_in_threadpool(json_size_of, plan, selection)
         if size > settings.max_json_response_bytes:
             raise ApiError.one(
                 413,
