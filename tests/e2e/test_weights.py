@@ -156,6 +156,31 @@ def test_etag_and_if_none_match(client: httpx.Client) -> None:
     assert stale.status_code == 200
 
 
+def test_etag_is_weak_exactly_when_a_served_tensor_is_platform_reproducible(
+    client: httpx.Client,
+) -> None:
+    # RFC 9110 sec. 8.8.1: a strong validator promises identical bytes. Orthogonal tensors may
+    # differ in their last bits between BLAS builds (reproducible: platform), so a response that
+    # carries one can only honestly have a weak tag.
+    request = harbor_crane_monitor()
+    plan = {t["tensor"]: t for t in client.post("/v1/plan", json=request).json()["tensors"]}
+    platform = [name for name, t in plan.items() if t["reproducible"] == "platform"]
+    assert "timeline.recurrent_weight" in platform  # recurrent matrices: orthogonal
+    whole = client.post("/v1/weights", params={"format": "npz"}, json=request)
+    assert whole.headers["etag"].startswith('W/"')
+    for name in ("timeline.recurrent_weight", "trace.conv.weight"):
+        one = client.post("/v1/weights", params={"format": "npz", "tensor": name}, json=request)
+        weak = one.headers["etag"].startswith('W/"')
+        assert weak == (name in platform), (name, one.headers["etag"])
+        again = client.post(
+            "/v1/weights",
+            params={"format": "npz", "tensor": name},
+            json=request,
+            headers={"If-None-Match": one.headers["etag"]},
+        )
+        assert again.status_code == 304
+
+
 def test_etag_follows_meaning_not_spelling(client: httpx.Client) -> None:
     request = greenhouse_controller()
     compact = client.post("/v1/plan", json=request)
