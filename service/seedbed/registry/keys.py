@@ -30,31 +30,31 @@ from seedbed.registry.records import now_utc, utc
 from seedbed.registry.tables import KEY_NAME_LENGTH, publish_keys
 
 TOKEN_PREFIX = "sbk1"
-KEY_NAME_PATTERN = re.compile(r"[a-z0-9][a-z0-9._-]{0,%d}" % (KEY_NAME_LENGTH - 1))
+KEY_NAME_PATTERN = re.compile(rf"[a-z0-9][a-z0-9._-]{{0,{KEY_NAME_LENGTH - 1}}}")
 _TOKEN_PATTERN = re.compile(r"sbk1_([0-9a-f]{16})_([A-Za-z0-9_-]{43})")
 
 
-class KeyProblem(Exception):
+class KeyCommandError(Exception):
     """A key command that cannot be carried out (the message says why and what to do)."""
 
 
-class KeyNameRejected(KeyProblem):
+class KeyNameError(KeyCommandError):
     pass
 
 
-class KeyExists(KeyProblem):
+class KeyExistsError(KeyCommandError):
     pass
 
 
-class KeyUnknown(KeyProblem):
+class UnknownKeyError(KeyCommandError):
     pass
 
 
-class KeyAlreadyRevoked(KeyProblem):
+class KeyRevokedError(KeyCommandError):
     pass
 
 
-class NotAuthenticated(Exception):
+class AuthenticationError(Exception):
     """The caller's token is missing, malformed, unknown or revoked (the message says which)."""
 
 
@@ -81,7 +81,7 @@ def token_hash(token: str) -> str:
 
 def check_key_name(name: str) -> None:
     if not KEY_NAME_PATTERN.fullmatch(name):
-        raise KeyNameRejected(
+        raise KeyNameError(
             f"key name {name!r} is not allowed; use 1-{KEY_NAME_LENGTH} characters: lower-case "
             "letters, digits, '.', '_' or '-', starting with a letter or digit"
         )
@@ -99,7 +99,7 @@ def create_key(engine: Engine, name: str) -> NewKey:
         if taken is not None:
             # Names stay taken after revocation: recipes name their publisher, and a new key
             # under an old name would blur who published what.
-            raise KeyExists(
+            raise KeyExistsError(
                 f"a key named {name!r} already exists (revoked or not); choose another name"
             )
         conn.execute(
@@ -129,9 +129,9 @@ def revoke_key(engine: Engine, name: str) -> KeyInfo:
             .where(publish_keys.c.name == name)
         ).first()
         if row is None:
-            raise KeyUnknown(f"no key named {name!r}; `seedbed keys list` shows the names")
+            raise UnknownKeyError(f"no key named {name!r}; `seedbed keys list` shows the names")
         if row.revoked_at is not None:
-            raise KeyAlreadyRevoked(
+            raise KeyRevokedError(
                 f"key {name!r} was already revoked at {utc(row.revoked_at).isoformat()}"
             )
         revoked = now_utc()
@@ -144,13 +144,13 @@ def revoke_key(engine: Engine, name: str) -> KeyInfo:
 def bearer_token(header: str | None) -> str:
     """The token of an `Authorization: Bearer <token>` header."""
     if header is None or not header.strip():
-        raise NotAuthenticated(
+        raise AuthenticationError(
             "this needs a publishing key: send Authorization: Bearer <key> "
             "(an operator creates one with `seedbed keys create NAME`)"
         )
     scheme, _, value = header.strip().partition(" ")
     if scheme.lower() != "bearer" or not value.strip():
-        raise NotAuthenticated("the Authorization header must be 'Bearer <key>'")
+        raise AuthenticationError("the Authorization header must be 'Bearer <key>'")
     return value.strip()
 
 
@@ -160,7 +160,7 @@ def identify(conn: Connection, token: str, *, lock: bool = False) -> str:
     this check and the write that relies on it."""
     match = _TOKEN_PATTERN.fullmatch(token)
     if match is None:
-        raise NotAuthenticated("the key is not a seedbed publishing key (sbk1_...)")
+        raise AuthenticationError("the key is not a seedbed publishing key (sbk1_...)")
     query = select(
         publish_keys.c.name, publish_keys.c.token_sha256, publish_keys.c.revoked_at
     ).where(publish_keys.c.lookup_id == match.group(1))
@@ -170,9 +170,9 @@ def identify(conn: Connection, token: str, *, lock: bool = False) -> str:
     # Hash and compare even when no row matched, so unknown and wrong keys take equally long.
     stored = row.token_sha256 if row is not None else "0" * 64
     if not hmac.compare_digest(token_hash(token), stored) or row is None:
-        raise NotAuthenticated("the key is not valid")
+        raise AuthenticationError("the key is not valid")
     if row.revoked_at is not None:
-        raise NotAuthenticated(
+        raise AuthenticationError(
             f"the key {row.name!r} was revoked at {utc(row.revoked_at).isoformat()}"
         )
     return str(row.name)

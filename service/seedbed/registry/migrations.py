@@ -44,7 +44,7 @@ from seedbed.registry.tables import schema_steps
 _ADVISORY_LOCK_KEY = 0x5EEDBED
 
 
-class SchemaTooNew(RuntimeError):
+class SchemaTooNewError(RuntimeError):
     """The database was upgraded by a newer seedbed than this one."""
 
 
@@ -155,7 +155,7 @@ def upgrade(engine: Engine, target: int | None = None) -> list[int]:
         schema_steps.create(conn, checkfirst=True)
         current = _current(conn)
         if current > LATEST:
-            raise SchemaTooNew(
+            raise SchemaTooNewError(
                 f"the database is at schema version {current}, but this seedbed knows versions "
                 f"up to {LATEST}; run a seedbed at least as new as the one that upgraded it"
             )

@@ -25,8 +25,9 @@ class Registry:
                 conn.execute(text("SELECT 1"))
             version = migrations.schema_version(self.engine)
         except SQLAlchemyError as exc:
+            inner = getattr(exc, "orig", None) or exc
             return (f"the registry database ({self.config.describe()}) is unreachable: "
-                    f"{type(exc.orig or exc).__name__}: {str(exc.orig or exc).strip()[:300]}")
+                    f"{type(inner).__name__}: {str(inner).strip()[:300]}")
         if version != migrations.LATEST:
             return (f"the registry database is at schema version {version}, this service needs "
                     f"{migrations.LATEST}")

@@ -17,7 +17,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import Connection, Engine, Row, func, select
+from sqlalchemy import Connection, Engine, func, select
 from sqlalchemy.dialects import postgresql, sqlite
 
 from seedbed.core.plan import build_plan, plan_document
@@ -30,7 +30,7 @@ from seedbed.registry.tables import recipe_heads, recipe_versions
 MAX_PAGE = 1000
 
 
-class RecipeNotFound(LookupError):
+class RecipeNotFoundError(LookupError):
     """No such recipe name or version (the message says which)."""
 
 
@@ -94,7 +94,7 @@ def publish(engine: Engine, prepared: PreparedRecipe, token: str) -> VersionSumm
     """Store a new version of `prepared.name`, published with `token`'s key.
 
     The key is checked again inside the writing transaction (and its row locked on PostgreSQL),
-    so a key revoked a moment earlier cannot publish; raises keys.NotAuthenticated then.
+    so a key revoked a moment earlier cannot publish; raises keys.AuthenticationError then.
     """
     with writing(engine) as conn:
         publisher = identify(conn, token, lock=True)
@@ -124,7 +124,7 @@ _SUMMARY_COLUMNS = (
 )
 
 
-def _summary(row: Row[Any]) -> VersionSummary:
+def _summary(row: Any) -> VersionSummary:
     return VersionSummary(row.name, int(row.version), row.description, row.publisher,
                           utc(row.published_at), row.algorithm)
 
@@ -157,11 +157,11 @@ def list_versions(engine: Engine, name: str) -> list[VersionSummary]:
             .order_by(recipe_versions.c.version)
         ).all()
     if not rows:
-        raise RecipeNotFound(f"no recipe named {name!r}; GET /v1/recipes lists the names")
+        raise RecipeNotFoundError(f"no recipe named {name!r}; GET /v1/recipes lists the names")
     return [_summary(r) for r in rows]
 
 
-def _full(row: Row[Any]) -> RecipeVersion:
+def _full(row: Any) -> RecipeVersion:
     return RecipeVersion(_summary(row), row.request_json, row.plan_json, row.fingerprints_json,
                          row.content_sha256)
 
@@ -185,8 +185,8 @@ def get_version(engine: Engine, name: str, version: int) -> RecipeVersion:
             ).scalar()
     if row is None:
         if latest is None:
-            raise RecipeNotFound(f"no recipe named {name!r}; GET /v1/recipes lists the names")
-        raise RecipeNotFound(
+            raise RecipeNotFoundError(f"no recipe named {name!r}; GET /v1/recipes lists the names")
+        raise RecipeNotFoundError(
             f"recipe {name!r} has no version {version}; its versions are 1 to {latest}"
         )
     return _full(row)
@@ -232,6 +232,7 @@ def integrity_problems(record: RecipeVersion, *, replan: bool = True) -> list[st
         problems.append(f"{where}: fingerprints of {bad_hex} are not SHA-256 hex digests")
     if replan:
         plan = build_plan(record.request)
-        if plan.algorithm == s.algorithm and canonical_text(plan_document(plan)) != record.plan_json:
+        same_algorithm = plan.algorithm == s.algorithm
+        if same_algorithm and canonical_text(plan_document(plan)) != record.plan_json:
             problems.append(f"{where}: the stored request no longer plans to the stored plan")
     return problems

@@ -1,0 +1,481 @@
+"""Team recipes: publish a request under a name, fetch any version and its weights by URL.
+
+    POST /v1/recipes                              publish (Authorization: Bearer <key>) -> 201
+    GET  /v1/recipes                              names with their latest version
+    GET  /v1/recipes/{name}                       the versions of one name
+    GET  /v1/recipes/{name}/{version}             stored request, plan, fingerprints, publisher
+    GET  /v1/recipes/{name}/{version}/weights     the weights, cacheable for a year
+
+Every GET also answers HEAD. A stored version never changes, so its documents carry strong
+ETags and `immutable` caching; a version's weights are byte-identical to POST /v1/weights of its
+request (same encoders, same ETag), and are checked against the fingerprints stored at publish
+time while they stream: a replica that produced different bytes would cut the body short rather
+than pass off other values under the recipe's name.
+
+The registry is taken from `app.state.registry` when the app installed one at start-up; else
+it is opened from the SEEDBED_* variables on first use. Every request reads the database, so a
+revoked key is refused by every replica from the next request on.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable, Iterator
+from typing import Any, Literal, TypeVar
+
+from fastapi import APIRouter, Path, Query, Request, Response
+from fastapi.responses import StreamingResponse
+from sqlalchemy.exc import SQLAlchemyError
+from starlette.concurrency import run_in_threadpool
+
+from seedbed.core.plan import build_plan
+from seedbed.core.plan_types import Plan
+from seedbed.formats import encode_body
+from seedbed.registry import LazyRegistry, Registry, RegistryConfigError
+from seedbed.registry.keys import AuthenticationError, authenticate, bearer_token
+from seedbed.registry.migrations import SchemaTooNewError
+from seedbed.registry.prepare import (
+    MAX_DESCRIPTION_CHARS,
+    NAME_PATTERN_TEXT,
+    PreparedRecipe,
+    name_problem,
+    prepare_recipe,
+)
+from seedbed.registry.records import iso
+from seedbed.registry.store import (
+    MAX_PAGE,
+    RecipeNotFoundError,
+    RecipeVersion,
+    VersionSummary,
+    get_version,
+    list_recipes,
+    list_versions,
+    publish,
+)
+from seedbed.web.body import read_json_body
+from seedbed.web.documents import response_document
+from seedbed.web.encoding import json_size_of, outgoing_tensors
+from seedbed.web.errors import ApiError
+from seedbed.web.etag import body_etag, none_match, strong_etag
+from seedbed.web.metrics import ServiceMetrics
+from seedbed.web.openapi_doc import REQUEST_SCHEMA_NAME, error_responses
+from seedbed.web.plan_loader import settings_of
+
+router = APIRouter(tags=["recipes"])
+
+WeightsFormat = Literal["json", "npz", "safetensors"]
+T = TypeVar("T")
+
+IMMUTABLE = "max-age=31536000, immutable"
+# Lists grow with every publish: a cache may keep them but must ask again each time.
+MUTABLE = "no-cache"
+
+_PUBLISH_BODY = {
+    "requestBody": {
+        "required": True,
+        "description": "The name to publish under, the network request, and a description.",
+        "content": {
+            "application/json": {
+                "schema": {
+                    "type": "object",
+                    "required": ["name", "request"],
+                    "additionalProperties": False,
+                    "properties": {
+                        "name": {"type": "string", "pattern": f"^{NAME_PATTERN_TEXT}$"},
+                        "description": {
+                            "type": "string",
+                            "maxLength": MAX_DESCRIPTION_CHARS,
+                            "default": "",
+                        },
+                        "request": {"$ref": f"#/components/schemas/{REQUEST_SCHEMA_NAME}"},
+                    },
+                },
+                "examples": {
+                    "orchard-counter": {
+                        "summary": "Pin the init of a small fruit-counting network",
+                        "value": {
+                            "name": "orchard-counter",
+                            "description": "baseline for the spring survey runs",
+                            "request": {
+                                "seed": 424242,
+                                "dtype": "float32",
+                                "layers": [
+                                    {"name": "trunk", "kind": "dense", "n_in": 64,
+                                     "n_out": 32, "activation": "relu"},
+                                    {"name": "count", "kind": "dense", "n_in": 32,
+                                     "n_out": 1, "role": "output"},
+                                ],
+                            },
+                        },
+                    }
+                },
+            }
+        },
+    }
+}
+ResponsesDoc = dict[int | str, dict[str, Any]]
+_AUTH_DOC: ResponsesDoc = {401: {"description": "Missing, malformed, unknown or revoked key."}}
+_UNAVAILABLE_DOC: ResponsesDoc = {
+    503: {"description": "The registry database cannot be reached."}
+}
+_WEIGHTS_MEDIA = {
+    "application/json": {"schema": {"type": "object"}},
+    "application/zip": {"schema": {"type": "string", "format": "binary"}},
+    "application/octet-stream": {"schema": {"type": "string", "format": "binary"}},
+}
+
+
+# --- plumbing ---------------------------------------------------------------------------------
+
+
+def _unavailable(message: str) -> ApiError:
+    return ApiError.one(503, "(registry)", "registry_unavailable", message, {"Retry-After": "5"})
+
+
+def _registry(request: Request) -> Registry:
+    state = request.app.state
+    installed = getattr(state, "registry", None)
+    if isinstance(installed, Registry):
+        return installed
+    lazy = getattr(state, "registry_on_demand", None)
+    if lazy is None:
+        lazy = state.registry_on_demand = LazyRegistry()
+    try:
+        registry: Registry = lazy.get()
+    except (RegistryConfigError, SchemaTooNewError) as exc:
+        raise _unavailable(f"the registry is not configured correctly: {exc}") from None
+    except SQLAlchemyError as exc:
+        raise _unavailable(f"the registry database cannot be opened: {_db_reason(exc)}") from None
+    return registry
+
+
+def _db_reason(exc: SQLAlchemyError) -> str:
+    inner = getattr(exc, "orig", None) or exc
+    return f"{type(inner).__name__}: {str(inner).strip().splitlines()[0][:200]}"
+
+
+async def _db(call: Callable[..., T], *args: Any) -> T:
+    """Run a blocking registry call in the threadpool; database trouble becomes a 503."""
+    try:
+        return await run_in_threadpool(call, *args)
+    except SQLAlchemyError as exc:
+        raise _unavailable(f"the registry database did not answer: {_db_reason(exc)}") from None
+
+
+def _refused(exc: AuthenticationError) -> ApiError:
+    return ApiError.one(
+        401, "authorization", "not_authenticated", str(exc),
+        {"WWW-Authenticate": 'Bearer realm="seedbed"'},
+    )
+
+
+async def _check_reader(request: Request, registry: Registry) -> None:
+    if not registry.config.read_requires_key:
+        return
+    try:
+        token = bearer_token(request.headers.get("authorization"))
+        await _db(authenticate, registry.engine, token)
+    except AuthenticationError as exc:
+        raise _refused(exc) from None
+
+
+def _cache_control(registry: Registry, base: str) -> str:
+    # With reads behind keys, a shared cache must not hand a stored copy to someone without one.
+    if base == MUTABLE:
+        return base
+    return ("private, " if registry.config.read_requires_key else "public, ") + base
+
+
+def _checked_name(name: str) -> str:
+    problem = name_problem(name)
+    if problem is not None:
+        raise ApiError.one(422, "name", problem.code, problem.message)
+    return name
+
+
+def _json_bytes(doc: Any) -> bytes:
+    return json.dumps(
+        doc, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False
+    ).encode("utf-8")
+
+
+def _json_response(
+    request: Request, body: bytes, headers: dict[str, str], status: int = 200
+) -> Response:
+    if request.method == "HEAD":
+        return Response(
+            status_code=status,
+            media_type="application/json",
+            headers={**headers, "Content-Length": str(len(body))},
+        )
+    return Response(body, status_code=status, media_type="application/json", headers=headers)
+
+
+def _links(name: str, version: int) -> dict[str, str]:
+    base = f"/v1/recipes/{name}/{version}"
+    return {"self": base, "weights": base + "/weights"}
+
+
+def _summary_doc(s: VersionSummary) -> dict[str, Any]:
+    return {
+        "name": s.name,
+        "version": s.version,
+        "description": s.description,
+        "publisher": s.publisher,
+        "published_at": iso(s.published_at),
+        "algorithm": s.algorithm,
+        "links": _links(s.name, s.version),
+    }
+
+
+# --- publishing -------------------------------------------------------------------------------
+
+
+@router.post(
+    "/v1/recipes",
+    operation_id="publishRecipe",
+    summary="Publish a new version of a named recipe",
+    description=(
+        "Needs `Authorization: Bearer <key>`. Validates the request exactly as POST /v1/weights "
+        "does, stores it in canonical form with its plan and each tensor's SHA-256, and answers "
+        "201 with the version the server assigned (1, 2, 3 ... per name; never reused, never "
+        "changed). Publishing the same request again makes a new version."
+    ),
+    status_code=201,
+    responses={
+        201: {"description": "Published; `Location` is the new version's URL."},
+        **_AUTH_DOC,
+        **error_responses(400, 413, 415, 422),
+        **_UNAVAILABLE_DOC,
+    },
+    openapi_extra=_PUBLISH_BODY,
+)
+async def publish_recipe(request: Request) -> Response:
+    settings = settings_of(request)
+    registry = _registry(request)
+    try:
+        token = bearer_token(request.headers.get("authorization"))
+        # Checked before the body is even read: strangers cost us no validation or hashing.
+        await _db(authenticate, registry.engine, token)
+    except AuthenticationError as exc:
+        raise _refused(exc) from None
+    body = await read_json_body(request, settings.max_body_bytes)
+    prepared: PreparedRecipe = await run_in_threadpool(
+        prepare_recipe, body, settings.limits, settings.generation_threads
+    )
+    try:
+        summary = await _db(publish, registry.engine, prepared, token)
+    except AuthenticationError as exc:  # revoked while we were hashing
+        raise _refused(exc) from None
+    doc = {**_summary_doc(summary), "fingerprints": prepared.fingerprints}
+    location = _links(summary.name, summary.version)["self"]
+    return Response(
+        _json_bytes(doc),
+        status_code=201,
+        media_type="application/json",
+        headers={"Location": location, "Cache-Control": "no-store"},
+    )
+
+
+# --- reading ----------------------------------------------------------------------------------
+
+
+@router.get(
+    "/v1/recipes",
+    operation_id="listRecipes",
+    summary="Recipe names with their latest version",
+    description="In name order, `limit` at a time; pass the previous page's `next_after` as "
+    "`after` for the next page (null on the last page).",
+    responses={200: {"description": "One page of names."}, **_AUTH_DOC, **_UNAVAILABLE_DOC,
+               **error_responses(422)},
+)
+@router.head("/v1/recipes", operation_id="listRecipesHead", summary="List headers only.")
+async def list_recipe_names(
+    request: Request,
+    after: str | None = Query(None, description="Continue after this name.", max_length=100),
+    limit: int = Query(100, ge=1, le=MAX_PAGE, description="Names per page."),
+) -> Response:
+    registry = _registry(request)
+    await _check_reader(request, registry)
+    rows = await _db(list_recipes, registry.engine, after, limit)
+    doc = {
+        "recipes": [
+            {**_summary_doc(r.latest), "latest_version": r.latest_version,
+             "first_published_at": iso(r.first_published_at)}
+            for r in rows
+        ],
+        "next_after": rows[-1].name if len(rows) == limit else None,
+    }
+    return _json_response(request, _json_bytes(doc), {"Cache-Control": MUTABLE})
+
+
+@router.get(
+    "/v1/recipes/{name}",
+    operation_id="listRecipeVersions",
+    summary="The versions of one recipe",
+    responses={200: {"description": "Every version, oldest first."}, **_AUTH_DOC,
+               404: {"description": "No recipe has this name."}, **_UNAVAILABLE_DOC,
+               **error_responses(422)},
+)
+@router.head("/v1/recipes/{name}", operation_id="listRecipeVersionsHead",
+             summary="Version list headers only.")
+async def recipe_versions(request: Request, name: str) -> Response:
+    registry = _registry(request)
+    _checked_name(name)
+    await _check_reader(request, registry)
+    try:
+        versions = await _db(list_versions, registry.engine, name)
+    except RecipeNotFoundError as exc:
+        raise ApiError.one(404, "name", "recipe_not_found", str(exc)) from None
+    doc = {"name": name, "versions": [_summary_doc(v) for v in versions]}
+    return _json_response(request, _json_bytes(doc), {"Cache-Control": MUTABLE})
+
+
+async def _stored(request: Request, registry: Registry, name: str, version: int) -> RecipeVersion:
+    _checked_name(name)
+    await _check_reader(request, registry)
+    try:
+        return await _db(get_version, registry.engine, name, version)
+    except RecipeNotFoundError as exc:
+        field = "version" if "has no version" in str(exc) else "name"
+        raise ApiError.one(404, field, "recipe_not_found", str(exc)) from None
+
+
+_VERSION = Path(description="The version number (1, 2, 3 ...).", ge=1, le=2**31 - 1)
+
+
+@router.get(
+    "/v1/recipes/{name}/{version}",
+    operation_id="describeRecipeVersion",
+    summary="One stored version: request, plan, fingerprints, publisher and time",
+    description="Never changes once published: strong ETag, cacheable for a year.",
+    responses={200: {"description": "The stored version."}, 304: {"description": "Unchanged."},
+               **_AUTH_DOC, 404: {"description": "No such name or version."},
+               **_UNAVAILABLE_DOC, **error_responses(422)},
+)
+@router.head("/v1/recipes/{name}/{version}", operation_id="describeRecipeVersionHead",
+             summary="Stored version headers only.")
+async def recipe_version(request: Request, name: str, version: int = _VERSION) -> Response:
+    registry = _registry(request)
+    record = await _stored(request, registry, name, version)
+    doc = {
+        **_summary_doc(record.summary),
+        "request": record.request,
+        "plan": record.plan,
+        "fingerprints": record.fingerprints,
+        "content_sha256": record.content_sha256,
+    }
+    body = _json_bytes(doc)
+    headers = {"ETag": body_etag(body), "Cache-Control": _cache_control(registry, IMMUTABLE)}
+    if none_match(request.headers.get("if-none-match"), headers["ETag"]):
+        return Response(status_code=304, headers=headers)
+    return _json_response(request, body, headers)
+
+
+def _replanned(record: RecipeVersion, settings_limits: Any) -> Plan:
+    plan = build_plan(record.request, settings_limits)
+    s = record.summary
+    if plan.algorithm != s.algorithm:
+        raise ApiError.one(
+            409, "version", "algorithm_changed",
+            f"{s.name} v{s.version} was published under the generator {s.algorithm!r}; this "
+            f"server runs {plan.algorithm!r}, whose bytes differ, so it cannot serve this "
+            "version's weights; ask a server that runs the recipe's algorithm",
+        )
+    missing = sorted({t.tensor for t in plan.tensors} ^ set(record.fingerprints))
+    if missing:
+        raise ApiError.one(
+            500, "version", "recipe_inconsistent",
+            f"{s.name} v{s.version}: the stored fingerprints do not match the stored request's "
+            f"tensors ({', '.join(missing[:5])}); the stored version is damaged",
+        )
+    return plan
+
+
+@router.get(
+    "/v1/recipes/{name}/{version}/weights",
+    operation_id="fetchRecipeWeights",
+    summary="The weights of one stored version",
+    description=(
+        "Byte-identical to POST /v1/weights of the stored request, with the same ETag. "
+        "`Cache-Control: public, max-age=31536000, immutable` (private when reads need a key). "
+        "If-None-Match with the ETag answers 304 without generating anything. Each tensor is "
+        "checked against the fingerprint stored at publish time while it streams; a mismatch "
+        "ends the body early, so a short body means do not use it."
+    ),
+    response_class=Response,
+    responses={
+        200: {"description": "The weights.", "content": _WEIGHTS_MEDIA},
+        304: {"description": "Unchanged: the caller's ETag matches."},
+        **_AUTH_DOC,
+        404: {"description": "No such name or version."},
+        409: {"description": "This server's generator differs from the recipe's."},
+        **error_responses(413, 422),
+        **_UNAVAILABLE_DOC,
+    },
+)
+@router.head("/v1/recipes/{name}/{version}/weights", operation_id="fetchRecipeWeightsHead",
+             summary="Weights headers only.", response_class=Response)
+async def recipe_weights(
+    request: Request,
+    name: str,
+    version: int = _VERSION,
+    format: WeightsFormat = Query(  # noqa: B008 - FastAPI's parameter declaration style
+        "json", description="Container: json, npz or safetensors (as for POST /v1/weights)."
+    ),
+) -> Response:
+    settings = settings_of(request)
+    registry = _registry(request)
+    record = await _stored(request, registry, name, version)
+    plan = await run_in_threadpool(_replanned, record, settings.limits)
+    etag = strong_etag(
+        "weights", request=plan.canonical_request, algorithm=plan.algorithm, format=format,
+        tensor=None, rows=None,
+    )
+    exact = all(t.reproducible == "exact" for t in plan.tensors)
+    if not exact:
+        # Orthogonal values may differ in the last bits between BLAS builds (as for
+        # POST /v1/weights): only a weak validator is honest, and the stored fingerprints are
+        # this platform's, not a promise for every replica.
+        etag = "W/" + etag
+    headers = {
+        "ETag": etag,
+        "Cache-Control": _cache_control(registry, IMMUTABLE),
+        "X-Seedbed-Algorithm": plan.algorithm,
+        "X-Seedbed-Recipe": f"{name}/{version}",
+    }
+    if none_match(request.headers.get("if-none-match"), etag):
+        return Response(status_code=304, headers=headers)
+    if format == "json":
+        size = await run_in_threadpool(json_size_of, plan, None)
+        if size > settings.max_json_response_bytes:
+            raise ApiError.one(
+                413, "format", "json_too_large",
+                f"this JSON response would be {size} bytes, above the limit of "
+                f"{settings.max_json_response_bytes} (SEEDBED_MAX_JSON_RESPONSE_BYTES); ask for "
+                "format=npz or format=safetensors",
+            )
+    tensors = outgoing_tensors(plan, None, settings.chunk_bytes, settings.generation_threads)
+    # With digests given the formats verify every tensor while streaming and skip their own
+    # hashing pass; the bytes are the same either way.
+    encoded = await run_in_threadpool(
+        lambda: encode_body(format, response_document(plan, None), tensors,
+                            digests=record.fingerprints if exact else None)
+    )
+    headers["Content-Length"] = str(encoded.content_length)
+    headers["Content-Disposition"] = f'attachment; filename="{name}-v{version}.{format}"'
+    if request.method == "HEAD":
+        return Response(status_code=200, media_type=encoded.media_type, headers=headers)
+    metrics: ServiceMetrics = request.app.state.metrics
+    return StreamingResponse(
+        _counted(encoded.body, metrics, format, plan.total_count),
+        media_type=encoded.media_type,
+        headers=headers,
+    )
+
+
+def _counted(body: Iterator[bytes], metrics: ServiceMetrics, fmt: str, values: int
+             ) -> Iterator[bytes]:
+    # Sync generator: StreamingResponse steps it in the threadpool, off the event loop.
+    yield from body
+    metrics.values_served.labels(format=fmt).inc(values)
