@@ -26,7 +26,7 @@ from datetime import datetime
 from sqlalchemy import Connection, Engine, select
 
 from seedbed.registry.engine import is_postgres, reading, writing
-from seedbed.registry.records import now_utc, utc
+from seedbed.registry.records import iso, now_utc, utc
 from seedbed.registry.tables import KEY_NAME_LENGTH, publish_keys
 
 TOKEN_PREFIX = "sbk1"
@@ -132,7 +132,7 @@ def revoke_key(engine: Engine, name: str) -> KeyInfo:
             raise UnknownKeyError(f"no key named {name!r}; `seedbed keys list` shows the names")
         if row.revoked_at is not None:
             raise KeyRevokedError(
-                f"key {name!r} was already revoked at {utc(row.revoked_at).isoformat()}"
+                f"key {name!r} was already revoked at {iso(row.revoked_at)}"
             )
         revoked = now_utc()
         conn.execute(
@@ -173,7 +173,7 @@ def identify(conn: Connection, token: str, *, lock: bool = False) -> str:
         raise AuthenticationError("the key is not valid")
     if row.revoked_at is not None:
         raise AuthenticationError(
-            f"the key {row.name!r} was revoked at {utc(row.revoked_at).isoformat()}"
+            f"the key {row.name!r} was revoked at {iso(row.revoked_at)}"
         )
     return str(row.name)
 
