@@ -1,0 +1,1 @@
+"""Team recipes: storage on SQLite and PostgreSQL, keys, HTTP routes, replicas, crashes, deploy."""
