@@ -17,7 +17,7 @@ import pytest
 from seedbed.registry import Registry, RegistryConfig, config_from_env, open_registry
 from seedbed.registry.keys import create_key
 
-from .pgcluster import ClusterUnavailable, Cluster, fresh_database, start_cluster
+from .pgcluster import Cluster, ClusterUnavailable, fresh_database, start_cluster
 
 BACKENDS = ("sqlite", "postgresql")
 

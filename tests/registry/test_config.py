@@ -78,7 +78,7 @@ def test_url_from_a_secret_file(tmp_path: Path) -> None:
     assert config.backend == "postgresql"
     assert config.database_url == "postgresql+psycopg://svc:pw@primary:5432/recipes"
     assert "pw" not in config.describe()
-    with pytest.raises(RegistryConfigError, match="SEEDBED_DATABASE_URL_FILE.*cannot be read"):
+    with pytest.raises(RegistryConfigError, match=r"SEEDBED_DATABASE_URL_FILE.*cannot be read"):
         config_from_env({"SEEDBED_DATABASE_URL_FILE": str(tmp_path / "absent")})
     (tmp_path / "empty").write_text("  \n")
     with pytest.raises(RegistryConfigError, match="is empty"):

@@ -8,8 +8,7 @@ from datetime import UTC, datetime
 import pytest
 from sqlalchemy import Column, Integer, MetaData, Table, func, inspect, select, text
 
-from seedbed.registry import RegistryConfig, open_registry
-from seedbed.registry import migrations
+from seedbed.registry import RegistryConfig, migrations, open_registry
 from seedbed.registry.engine import open_engine
 from seedbed.registry.keys import token_hash
 from seedbed.registry.prepare import prepare_recipe
