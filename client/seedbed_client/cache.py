@@ -1,0 +1,238 @@
+"""A local, content-addressed, size-capped store of verified weights responses.
+
+Layout under the cache directory:
+
+    v1/blobs/<sha256 of the body>      a response body exactly as received (shared by keys
+                                       whose bodies are identical)
+    v1/entries/<key>.json              which blob answers a request key, its ETag and format;
+                                       the file's modification time is its last use
+    v1/tmp/                            bodies being downloaded; renamed into blobs/ when done
+
+The key is the SHA-256 of the canonical request JSON plus the format and tensor/rows selection
+(`wire.WeightsCall.cache_key`). Every write is a temporary file renamed into place, the blob
+before its entry: a crash leaves at most an orphan blob, never an entry pointing at half a
+body. Orphans and stale temporary files are removed by the next eviction.
+
+Reading never trusts the disk: the caller re-verifies every tensor's sha256 (and the blob's own
+digest) before using an entry, and discards it when it fails.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import platform
+import tempfile
+import time
+from collections.abc import Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from seedbed_client.spool import FileSink, ProgressHook
+
+__all__ = [
+    "WeightCache",
+    "default_cache_dir",
+]
+
+DEFAULT_MAX_BYTES = 2 * 1024**3
+ENV_DIR = "SEEDBED_CACHE_DIR"
+ENV_MAX_BYTES = "SEEDBED_CACHE_MAX_BYTES"
+# Files that nothing references are removed only after this long, so a store running in another
+# process (blob renamed, entry not yet written) is never undercut.
+ORPHAN_GRACE_S = 600.0
+
+
+def default_cache_dir(env: Mapping[str, str] | None = None) -> Path:
+    """SEEDBED_CACHE_DIR, else the platform's per-user cache directory + seedbed."""
+    environ = os.environ if env is None else env
+    explicit = environ.get(ENV_DIR)
+    if explicit:
+        return Path(explicit).expanduser()
+    system = platform.system()
+    if system == "Darwin":
+        return Path.home() / "Library" / "Caches" / "seedbed"
+    if system == "Windows":
+        base = environ.get("LOCALAPPDATA")
+        root = Path(base) if base else Path.home() / "AppData" / "Local"
+        return root / "seedbed" / "Cache"
+    xdg = environ.get("XDG_CACHE_HOME")
+    root = Path(xdg).expanduser() if xdg and Path(xdg).is_absolute() else Path.home() / ".cache"
+    return root / "seedbed"
+
+
+def default_max_bytes(env: Mapping[str, str] | None = None) -> int:
+    environ = os.environ if env is None else env
+    text = environ.get(ENV_MAX_BYTES)
+    if text is None or not text.strip():
+        return DEFAULT_MAX_BYTES
+    try:
+        value = int(text.replace("_", ""))
+    except ValueError:
+        value = -1
+    if value < 0:
+        raise ValueError(f"{ENV_MAX_BYTES}={text!r}: allowed: a whole number of bytes >= 0")
+    return value
+
+
+@dataclass(frozen=True)
+class CacheEntry:
+    key: str
+    blob: str  # sha256 of the body = the blob's file name
+    format: str
+    etag: str | None
+    size: int
+    entry_path: Path
+    blob_path: Path
+
+
+class WeightCache:
+    """The on-disk store. Safe to share between processes: every change is an atomic rename."""
+
+    def __init__(self, directory: Path | str, max_bytes: int = DEFAULT_MAX_BYTES) -> None:
+        if isinstance(max_bytes, bool) or not isinstance(max_bytes, int) or max_bytes < 0:
+            raise ValueError(f"cache_max_bytes must be a whole number >= 0, got {max_bytes!r}")
+        self.directory = Path(directory).expanduser()
+        self.max_bytes = max_bytes
+        root = self.directory / "v1"
+        self._blobs = root / "blobs"
+        self._entries = root / "entries"
+        self._tmp = root / "tmp"
+
+    # --- reading -------------------------------------------------------------------------------
+
+    def lookup(self, key: str) -> CacheEntry | None:
+        path = self._entries / f"{key}.json"
+        try:
+            doc = json.loads(path.read_text(encoding="utf-8"))
+            blob = str(doc["blob"])
+            entry = CacheEntry(
+                key=key,
+                blob=blob,
+                format=str(doc["format"]),
+                etag=doc.get("etag"),
+                size=int(doc["size"]),
+                entry_path=path,
+                blob_path=self._blobs / blob,
+            )
+        except FileNotFoundError:
+            return None
+        except (OSError, ValueError, KeyError, TypeError):
+            # An unreadable entry is as good as none; remove it so it is not read again.
+            path.unlink(missing_ok=True)
+            return None
+        if not entry.blob_path.is_file():
+            path.unlink(missing_ok=True)
+            return None
+        return entry
+
+    def touch(self, entry: CacheEntry, etag: str | None = None) -> None:
+        """Mark an entry used now (LRU order); record a new ETag if the service sent one."""
+        if etag is not None and etag != entry.etag:
+            self._write_entry(entry.key, entry.blob, entry.format, etag, entry.size)
+            return
+        # A read-only or vanished entry only loses its place in the LRU order.
+        with contextlib.suppress(OSError):
+            os.utime(entry.entry_path)
+
+    def discard(self, entry: CacheEntry) -> None:
+        entry.entry_path.unlink(missing_ok=True)
+        if not self._referenced(entry.blob):
+            entry.blob_path.unlink(missing_ok=True)
+
+    # --- writing -------------------------------------------------------------------------------
+
+    def spool(self, progress: ProgressHook | None = None) -> FileSink:
+        return FileSink(self._tmp, progress)
+
+    def store(self, key: str, sink: FileSink, fmt: str, etag: str | None) -> CacheEntry | None:
+        """Move a finished, verified download into the cache under `key`.
+
+        Returns None (and leaves the file where it is for the caller) when the body alone is
+        larger than the cap.
+        """
+        path = sink.close()
+        size = path.stat().st_size
+        if size > self.max_bytes:
+            return None
+        blob = sink.digest()
+        target = self._blobs / blob
+        target.parent.mkdir(parents=True, exist_ok=True)
+        os.replace(path, target)
+        self._write_entry(key, blob, fmt, etag, size)
+        self.evict(keep=key)
+        return self.lookup(key)
+
+    def _write_entry(self, key: str, blob: str, fmt: str, etag: str | None, size: int) -> None:
+        self._entries.mkdir(parents=True, exist_ok=True)
+        doc: dict[str, Any] = {"blob": blob, "etag": etag, "format": fmt, "size": size}
+        fd, name = tempfile.mkstemp(prefix="entry-", suffix=".tmp", dir=self._entries)
+        try:
+            with os.fdopen(fd, "w", encoding="utf-8") as fh:
+                json.dump(doc, fh, sort_keys=True)
+                fh.flush()
+                os.fsync(fh.fileno())
+            os.replace(name, self._entries / f"{key}.json")
+        except BaseException:
+            Path(name).unlink(missing_ok=True)
+            raise
+
+    # --- size cap ------------------------------------------------------------------------------
+
+    def _all_entries(self) -> list[tuple[float, Path, str]]:
+        out = []
+        for path in self._entries.glob("*.json"):
+            try:
+                blob = str(json.loads(path.read_text(encoding="utf-8"))["blob"])
+                out.append((path.stat().st_mtime, path, blob))
+            except (OSError, ValueError, KeyError, TypeError):
+                path.unlink(missing_ok=True)
+        return out
+
+    def _referenced(self, blob: str) -> bool:
+        return any(b == blob for _, _, b in self._all_entries())
+
+    def evict(self, keep: str | None = None) -> None:
+        """Drop least recently used entries until the blobs fit the cap; clear old leftovers."""
+        now = time.time()
+        entries = sorted(self._all_entries())  # oldest use first
+        referenced = {blob for _, _, blob in entries}
+        for folder in (self._blobs, self._tmp):
+            for path in folder.glob("*") if folder.is_dir() else ():
+                if path.name not in referenced and _age(path, now) > ORPHAN_GRACE_S:
+                    path.unlink(missing_ok=True)
+        sizes = {}
+        for _, _, blob in entries:
+            try:
+                sizes[blob] = (self._blobs / blob).stat().st_size
+            except OSError:
+                sizes[blob] = 0
+        total = sum(sizes.values())
+        users: dict[str, int] = {}
+        for _, _, blob in entries:
+            users[blob] = users.get(blob, 0) + 1
+        for _, path, blob in entries:
+            if total <= self.max_bytes:
+                break
+            if keep is not None and path.name == f"{keep}.json":
+                continue
+            path.unlink(missing_ok=True)
+            users[blob] -= 1
+            if users[blob] == 0:
+                (self._blobs / blob).unlink(missing_ok=True)
+                total -= sizes[blob]
+
+    def size_bytes(self) -> int:
+        """Bytes held in blobs now."""
+        if not self._blobs.is_dir():
+            return 0
+        return sum(p.stat().st_size for p in self._blobs.glob("*") if p.is_file())
+
+
+def _age(path: Path, now: float) -> float:
+    try:
+        return now - path.stat().st_mtime
+    except OSError:
+        return 0.0

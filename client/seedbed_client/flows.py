@@ -1,0 +1,340 @@
+"""The client's logic without any I/O: what to send, when to retry, what to trust.
+
+Each operation is a generator ("flow") that yields effects — `Send` an HTTP request, `Wait` some
+seconds — and receives their outcomes (`Reply` or `Failure`). It returns the verified result or
+raises a typed error. The sync `Client` and the `AsyncClient` only carry effects out
+(`drivers.py`), so retries, cache use, error mapping and verification exist once.
+
+Local file work (cache lookups, hashing, parsing) happens inside the flow; the async driver
+advances the flow in a worker thread, so that work never blocks an event loop.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import random
+import time
+from collections.abc import Callable, Generator, Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Literal
+
+from seedbed_client.cache import CacheEntry, WeightCache
+from seedbed_client.containers import Inspection, inspect_body, require_intact
+from seedbed_client.errors import (
+    CacheCorrupted,
+    IntegrityError,
+    ServiceUnavailable,
+    service_error,
+)
+from seedbed_client.retry import NO_RETRY, RETRY_STATUSES, RetryBudget, RetryPolicy
+from seedbed_client.retry import retry_after_seconds as _retry_after
+from seedbed_client.spool import BodySink, FileSink, MemorySink, ProgressHook, map_file
+from seedbed_client.wire import WeightsCall
+
+Source = Literal["service", "cache", "revalidated"]
+
+
+@dataclass(frozen=True)
+class Send:
+    """Send one HTTP request. A 200 body goes to `sink` when there is one, else to memory."""
+
+    method: str
+    path: str
+    params: Mapping[str, str]
+    headers: Mapping[str, str]
+    body: bytes | None = None
+    sink: BodySink | None = None
+
+
+@dataclass(frozen=True)
+class Wait:
+    seconds: float
+
+
+@dataclass(frozen=True)
+class Reply:
+    """An answer. `complete` is False when fewer body bytes arrived than Content-Length said."""
+
+    status: int
+    headers: Mapping[str, str]  # lower-case names
+    content: bytes = b""  # the body, unless it went to the sink
+    complete: bool = True
+    received: int = 0
+    expected: int | None = None
+
+
+@dataclass(frozen=True)
+class Failure:
+    """No usable answer: `kind` connect (never reached), timeout, or dropped (cut mid-body)."""
+
+    kind: Literal["connect", "timeout", "dropped"]
+    detail: str
+    received: int = 0
+    expected: int | None = None
+
+
+Effect = Send | Wait
+Outcome = Reply | Failure | None
+Flow = Generator[Effect, Outcome, Any]
+
+
+@dataclass
+class FlowContext:
+    """What every flow needs besides its own arguments (built once per client)."""
+
+    retry: RetryPolicy = field(default_factory=RetryPolicy)
+    cache: WeightCache | None = None
+    extra_headers: Mapping[str, str] = field(default_factory=dict)
+    rng: random.Random = field(default_factory=random.Random)
+    clock: Callable[[], float] = time.monotonic
+
+
+@dataclass(frozen=True)
+class Delivery:
+    """A verified weights body: its parsed manifest and tensors, and where it came from."""
+
+    inspection: Inspection
+    buffer: Any  # bytes, bytearray or a copy-on-write mmap; the tensors view into it
+    etag: str | None
+    source: Source
+    path: Path | None  # a file holding exactly this body (cache blob or spooled file)
+
+    @property
+    def manifest(self) -> dict[str, Any]:
+        return self.inspection.manifest
+
+
+# --- one exchange, with retries --------------------------------------------------------------
+
+
+def _truncation(outcome: Reply | Failure) -> str | None:
+    if isinstance(outcome, Failure) and outcome.kind == "dropped":
+        return (
+            f"the connection dropped after {outcome.received} of "
+            f"{outcome.expected if outcome.expected is not None else 'an unknown number of'} "
+            f"body bytes ({outcome.detail})"
+        )
+    if isinstance(outcome, Reply) and not outcome.complete:
+        return f"the body ended after {outcome.received} of {outcome.expected} bytes"
+    return None
+
+
+def _describe(outcome: Reply | Failure) -> str:
+    if isinstance(outcome, Failure):
+        return f"{outcome.kind}: {outcome.detail}"
+    try:
+        err = service_error(outcome.status, json.loads(outcome.content or b"null"))
+        return str(err)
+    except ValueError:
+        return f"HTTP {outcome.status}"
+
+
+def exchange(
+    make: Callable[[], Send], policy: RetryPolicy, ctx: FlowContext
+) -> Generator[Effect, Outcome, tuple[Send, Reply]]:
+    """Send until an answer is usable: retry connection failures, cut bodies, 5xx and 429.
+
+    Returns the last Send and its Reply, which is complete and has a non-retryable status.
+    """
+    budget = RetryBudget(policy, ctx.clock(), ctx.rng)
+    while True:
+        send = make()
+        budget.attempts += 1
+        outcome = yield send
+        if outcome is None:
+            raise RuntimeError("a driver answered a Send with nothing")
+        if isinstance(outcome, Reply) and outcome.complete and outcome.status not in RETRY_STATUSES:
+            return send, outcome
+        if send.sink is not None:
+            send.sink.abandon()
+        retry_after = _retry_after(outcome.headers) if isinstance(outcome, Reply) else None
+        wait = budget.next_wait(ctx.clock(), retry_after)
+        if wait is None:
+            tries = f"{budget.attempts} attempt{'s' if budget.attempts > 1 else ''}"
+            cut = _truncation(outcome)
+            if cut is not None:
+                raise IntegrityError(f"{cut}; gave up after {tries}; no data was returned")
+            status = outcome.status if isinstance(outcome, Reply) else None
+            raise ServiceUnavailable(
+                f"{send.method} {send.path}: no usable answer after {tries} "
+                f"(last: {_describe(outcome)})",
+                attempts=budget.attempts,
+                last_status=status,
+            )
+        if wait > 0:
+            yield Wait(wait)
+
+
+def _headers(ctx: FlowContext, **more: str) -> dict[str, str]:
+    headers = {"accept-encoding": "identity", **ctx.extra_headers}
+    headers.update(more)
+    return headers
+
+
+def _json_reply(reply: Reply) -> Any:
+    try:
+        return json.loads(reply.content)
+    except ValueError:
+        return reply.content.decode("utf-8", errors="replace")
+
+
+def _raise_for(reply: Reply) -> None:
+    if reply.status != 200:
+        raise service_error(reply.status, _json_reply(reply), reply.headers.get("x-request-id"))
+
+
+# --- small JSON endpoints --------------------------------------------------------------------
+
+
+def json_flow(
+    method: str, path: str, body: bytes | None, ctx: FlowContext
+) -> Generator[Effect, Outcome, Any]:
+    """POST /v1/plan, GET /v1/catalog: one JSON document, retried, no cache."""
+    extra = {"content-type": "application/json"} if body is not None else {}
+    headers = _headers(ctx, accept="application/json", **extra)
+    _, reply = yield from exchange(lambda: Send(method, path, {}, headers, body), ctx.retry, ctx)
+    _raise_for(reply)
+    try:
+        return json.loads(reply.content)
+    except ValueError:
+        raise IntegrityError(f"{path} answered 200 with a body that is not JSON") from None
+
+
+# --- weights ---------------------------------------------------------------------------------
+
+
+def _open_cached(cache: WeightCache, entry: CacheEntry, call: WeightsCall) -> Delivery:
+    """Map a cached body and verify it whole (content address) and per tensor (manifest)."""
+    if entry.format != call.format:
+        raise IntegrityError(f"cached entry is {entry.format}, the key says {call.format}")
+    try:
+        buffer = map_file(entry.blob_path)
+    except OSError as exc:
+        raise IntegrityError(f"cached body unreadable: {exc}") from None
+    if hashlib.sha256(buffer).hexdigest() != entry.blob:
+        raise IntegrityError("cached body does not match its content address")
+    inspection = inspect_body(buffer, call.format)
+    require_intact(inspection, "the cached copy")
+    return Delivery(inspection, buffer, entry.etag, "cache", entry.blob_path)
+
+
+def _finish_download(send: Send, reply: Reply, call: WeightsCall, ctx: FlowContext) -> Delivery:
+    sink = send.sink
+    etag = reply.headers.get("etag")
+    if isinstance(sink, MemorySink):
+        buffer: Any = sink.buffer()
+        path = None
+    elif isinstance(sink, FileSink):
+        path = sink.close()
+        buffer = map_file(path)
+    else:  # a driver must route a 200 body to the sink it was given
+        raise RuntimeError("weights body arrived without a sink")
+    try:
+        inspection = inspect_body(buffer, call.format)
+        require_intact(inspection)
+    except IntegrityError:
+        sink.abandon()
+        raise
+    if ctx.cache is not None and isinstance(sink, FileSink):
+        stored = ctx.cache.store(call.cache_key, sink, call.format, etag)
+        if stored is not None:
+            path = stored.blob_path
+    return Delivery(inspection, buffer, etag, "service", path)
+
+
+def weights_flow(
+    call: WeightsCall,
+    ctx: FlowContext,
+    *,
+    progress: ProgressHook | None = None,
+    spool_dir: Path | None = None,
+) -> Generator[Effect, Outcome, Delivery]:
+    """Fetch one weights response, from the cache when it holds a verified copy.
+
+    With a cached copy the service is asked once, with If-None-Match (304: the copy is current;
+    unreachable: the copy is used). A copy that fails verification is discarded and fetched
+    again; if that is impossible, CacheCorrupted. Without a cache the body goes to a file in
+    `spool_dir` when given (large downloads for the command line), else to memory.
+    """
+    cache = ctx.cache
+    entry: CacheEntry | None = None
+    cached: Delivery | None = None
+    damage: IntegrityError | None = None
+    if cache is not None:
+        entry = cache.lookup(call.cache_key)
+        if entry is not None:
+            try:
+                cached = _open_cached(cache, entry, call)
+            except IntegrityError as exc:
+                cache.discard(entry)
+                entry, damage = None, exc
+
+    more = {"content-type": "application/json"}
+    if cached is not None and cached.etag:
+        more["if-none-match"] = cached.etag
+    headers = _headers(ctx, **more)
+
+    def make() -> Send:
+        sink: BodySink
+        if cache is not None:
+            sink = cache.spool(progress)
+        elif spool_dir is not None:
+            sink = FileSink(spool_dir, progress)
+        else:
+            sink = MemorySink(progress)
+        return Send("POST", "/v1/weights", call.params, headers, call.body, sink)
+
+    # Revalidating a verified copy is a single try: when it fails the copy is the answer.
+    policy = NO_RETRY if cached is not None else ctx.retry
+    try:
+        send, reply = yield from exchange(make, policy, ctx)
+    except (ServiceUnavailable, IntegrityError) as exc:
+        if cached is not None:
+            return cached
+        if damage is not None:
+            raise CacheCorrupted(
+                f"the cached copy failed verification ({damage}) and was discarded; fetching "
+                f"it again failed too ({exc}); no data was returned"
+            ) from exc
+        raise
+    if reply.status == 304:
+        if send.sink is not None:
+            send.sink.abandon()
+        if cached is None or entry is None or cache is None:
+            raise IntegrityError(
+                "the service answered 304 Not Modified to an unconditional request"
+            )
+        cache.touch(entry, reply.headers.get("etag"))
+        return Delivery(cached.inspection, cached.buffer, cached.etag, "revalidated", cached.path)
+    if reply.status != 200:
+        if send.sink is not None:
+            send.sink.abandon()
+        _raise_for(reply)
+    return _finish_download(send, reply, call, ctx)
+
+
+def run_flow_step(flow: Flow, outcome: Outcome) -> tuple[bool, Any]:
+    """Advance a flow by one step: (False, next effect) or (True, its result).
+
+    StopIteration cannot cross a thread or a future, so the async driver steps through this.
+    """
+    try:
+        return False, flow.send(outcome)
+    except StopIteration as done:
+        return True, done.value
+
+
+__all__ = [
+    "Delivery",
+    "Failure",
+    "FlowContext",
+    "Reply",
+    "Send",
+    "Wait",
+    "exchange",
+    "json_flow",
+    "run_flow_step",
+    "weights_flow",
+]

@@ -1,0 +1,110 @@
+"""Where a response body goes while it arrives: memory, or a temporary file for large bodies.
+
+A sink counts and hashes what it receives, reports progress, and at the end hands back the
+whole body as one buffer. The file sink maps its file copy-on-write, so arrays built on it are
+writable without ever changing the file, and a large download is not held in memory twice.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import mmap
+import os
+import tempfile
+from collections.abc import Callable
+from pathlib import Path
+from typing import Protocol
+
+ProgressHook = Callable[[int, int | None], None]  # (bytes received, total or None)
+
+
+class BodySink(Protocol):
+    received: int
+
+    def begin(self, total: int | None) -> None: ...
+
+    def write(self, chunk: bytes) -> None: ...
+
+    def digest(self) -> str: ...
+
+    def abandon(self) -> None: ...
+
+
+class MemorySink:
+    """Collects the body in a bytearray (arrays built on it are writable)."""
+
+    def __init__(self, progress: ProgressHook | None = None) -> None:
+        self.received = 0
+        self.total: int | None = None
+        self._data = bytearray()
+        self._hash = hashlib.sha256()
+        self._progress = progress
+
+    def begin(self, total: int | None) -> None:
+        self.total = total
+
+    def write(self, chunk: bytes) -> None:
+        self._data += chunk
+        self._hash.update(chunk)
+        self.received += len(chunk)
+        if self._progress is not None:
+            self._progress(self.received, self.total)
+
+    def digest(self) -> str:
+        return self._hash.hexdigest()
+
+    def buffer(self) -> bytearray:
+        return self._data
+
+    def abandon(self) -> None:
+        self._data = bytearray()
+
+
+class FileSink:
+    """Writes the body to a temporary file in `directory` (same file system as its target, so
+    the finished file can be renamed into place atomically)."""
+
+    def __init__(self, directory: Path, progress: ProgressHook | None = None) -> None:
+        directory.mkdir(parents=True, exist_ok=True)
+        fd, name = tempfile.mkstemp(prefix="incoming-", suffix=".part", dir=directory)
+        self.path = Path(name)
+        self._file = os.fdopen(fd, "wb")
+        self.received = 0
+        self.total: int | None = None
+        self._hash = hashlib.sha256()
+        self._progress = progress
+
+    def begin(self, total: int | None) -> None:
+        self.total = total
+
+    def write(self, chunk: bytes) -> None:
+        self._file.write(chunk)
+        self._hash.update(chunk)
+        self.received += len(chunk)
+        if self._progress is not None:
+            self._progress(self.received, self.total)
+
+    def digest(self) -> str:
+        return self._hash.hexdigest()
+
+    def close(self) -> Path:
+        """Flush to disk and close; the file is complete once this returns."""
+        if not self._file.closed:
+            self._file.flush()
+            os.fsync(self._file.fileno())
+            self._file.close()
+        return self.path
+
+    def abandon(self) -> None:
+        if not self._file.closed:
+            self._file.close()
+        self.path.unlink(missing_ok=True)
+
+
+def map_file(path: Path) -> mmap.mmap | bytes:
+    """A private copy-on-write view of a file: writable, and writes never reach the file."""
+    with open(path, "rb") as fh:
+        size = os.fstat(fh.fileno()).st_size
+        if size == 0:
+            return b""
+        return mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_COPY)

@@ -1,0 +1,1 @@
+"""The seedbed client, tested over real services (tests/client/conftest.py)."""
