@@ -6,7 +6,7 @@ Layout under the cache directory:
                                        whose bodies are identical)
     v1/entries/<key>.json              which blob answers a request key, its ETag and format;
                                        the file's modification time is its last use
-    v1/tmp/                            bodies being downloaded; renamed into blobs/ when done
+    v1/tmp/                            blobs being written; renamed into blobs/ when complete
 
 The key is the SHA-256 of the canonical request JSON plus the format and tensor/rows selection
 (`wire.WeightsCall.cache_key`). Every write is a temporary file renamed into place, the blob
@@ -23,14 +23,13 @@ import contextlib
 import json
 import os
 import platform
+import shutil
 import tempfile
 import time
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
-
-from seedbed_client.spool import FileSink, ProgressHook
 
 __all__ = [
     "WeightCache",
@@ -144,24 +143,41 @@ class WeightCache:
 
     # --- writing -------------------------------------------------------------------------------
 
-    def spool(self, progress: ProgressHook | None = None) -> FileSink:
-        return FileSink(self._tmp, progress)
+    def store(
+        self,
+        key: str,
+        body: Path | bytes | bytearray,
+        digest: str,
+        fmt: str,
+        etag: str | None,
+    ) -> CacheEntry | None:
+        """Keep a verified body (in memory, or a file that is copied) under `key`.
 
-    def store(self, key: str, sink: FileSink, fmt: str, etag: str | None) -> CacheEntry | None:
-        """Move a finished, verified download into the cache under `key`.
-
-        Returns None (and leaves the file where it is for the caller) when the body alone is
-        larger than the cap.
+        `digest` is the body's sha256, its name in blobs/. Returns None when the body alone is
+        larger than the cap (nothing is stored then).
         """
-        path = sink.close()
-        size = path.stat().st_size
+        size = body.stat().st_size if isinstance(body, Path) else len(body)
         if size > self.max_bytes:
             return None
-        blob = sink.digest()
-        target = self._blobs / blob
-        target.parent.mkdir(parents=True, exist_ok=True)
-        os.replace(path, target)
-        self._write_entry(key, blob, fmt, etag, size)
+        target = self._blobs / digest
+        if not target.is_file():  # an identical body may be stored already under another key
+            self._tmp.mkdir(parents=True, exist_ok=True)
+            target.parent.mkdir(parents=True, exist_ok=True)
+            fd, name = tempfile.mkstemp(prefix="blob-", suffix=".part", dir=self._tmp)
+            try:
+                with os.fdopen(fd, "wb") as out:
+                    if isinstance(body, Path):
+                        with open(body, "rb") as src:
+                            shutil.copyfileobj(src, out, 1024 * 1024)
+                    else:
+                        out.write(body)
+                    out.flush()
+                    os.fsync(out.fileno())
+                os.replace(name, target)
+            except BaseException:
+                Path(name).unlink(missing_ok=True)
+                raise
+        self._write_entry(key, digest, fmt, etag, size)
         self.evict(keep=key)
         return self.lookup(key)
 

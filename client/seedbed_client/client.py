@@ -14,8 +14,6 @@ from __future__ import annotations
 import asyncio
 import os
 import random
-import shutil
-import tempfile
 from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
@@ -149,26 +147,10 @@ def format_for_path(path: Path, fmt: str | None) -> WeightFormat:
 
 
 def _place(delivery: Delivery, target: Path) -> int:
-    """Write the verified body to `target` atomically (a temporary file renamed into place)."""
-    target.parent.mkdir(parents=True, exist_ok=True)
-    source = delivery.path
-    if source is not None and source.parent == target.parent and source.name.endswith(".part"):
-        os.replace(source, target)  # spooled next to the target: just rename it
-        return target.stat().st_size
-    fd, name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".part", dir=target.parent)
-    try:
-        with os.fdopen(fd, "wb") as out:
-            if source is not None:
-                with open(source, "rb") as src:
-                    shutil.copyfileobj(src, out, 1024 * 1024)
-            else:
-                out.write(delivery.buffer)
-            out.flush()
-            os.fsync(out.fileno())
-        os.replace(name, target)
-    except BaseException:
-        Path(name).unlink(missing_ok=True)
-        raise
+    """Move the verified spool file (written beside `target`) into place atomically."""
+    if delivery.path is None:  # save() always spools; guard the invariant all the same
+        raise RuntimeError("save() needs a spooled delivery")
+    os.replace(delivery.path, target)
     return target.stat().st_size
 
 
@@ -244,8 +226,10 @@ class _Setup:
         size = _place(delivery, target)
         return SavedWeights(target, fmt, size, delivery.manifest, delivery.source)
 
-    def spool_dir_for(self, target: Path) -> Path | None:
-        return None if self.cache is not None else target.parent
+    @staticmethod
+    def spool_dir_for(target: Path) -> Path:
+        target.parent.mkdir(parents=True, exist_ok=True)
+        return target.parent
 
 
 _SETUP_DOC = """

@@ -30,7 +30,15 @@ from seedbed_client.errors import (
 )
 from seedbed_client.retry import NO_RETRY, RETRY_STATUSES, RetryBudget, RetryPolicy
 from seedbed_client.retry import retry_after_seconds as _retry_after
-from seedbed_client.spool import BodySink, FileSink, MemorySink, ProgressHook, map_file
+from seedbed_client.spool import (
+    BodySink,
+    FileSink,
+    MemorySink,
+    ProgressHook,
+    copy_to_spool,
+    map_file,
+    read_file,
+)
 from seedbed_client.wire import WeightsCall
 
 Source = Literal["service", "cache", "revalidated"]
@@ -96,10 +104,10 @@ class Delivery:
     """A verified weights body: its parsed manifest and tensors, and where it came from."""
 
     inspection: Inspection
-    buffer: Any  # bytes, bytearray or a copy-on-write mmap; the tensors view into it
+    buffer: Any  # a bytearray the client owns, or a read-only map of `path`
     etag: str | None
     source: Source
-    path: Path | None  # a file holding exactly this body (cache blob or spooled file)
+    path: Path | None  # with spool_dir: the spool file holding exactly this body
 
     @property
     def manifest(self) -> dict[str, Any]:
@@ -205,42 +213,57 @@ def json_flow(
 # --- weights ---------------------------------------------------------------------------------
 
 
-def _open_cached(cache: WeightCache, entry: CacheEntry, call: WeightsCall) -> Delivery:
-    """Map a cached body and verify it whole (content address) and per tensor (manifest)."""
+def _open_cached(entry: CacheEntry, call: WeightsCall, spool_dir: Path | None) -> Delivery:
+    """Load a cached body and verify it whole (content address) and per tensor (manifest).
+
+    Into memory, or (for `save`) into a spool file in `spool_dir`: what is verified is the copy
+    that will be used, never the cache file itself, which could change afterwards.
+    """
     if entry.format != call.format:
-        raise IntegrityError(f"cached entry is {entry.format}, the key says {call.format}")
+        raise IntegrityError(f"the cached entry is {entry.format}, its key says {call.format}")
+    spooled: FileSink | None = None
     try:
-        buffer = map_file(entry.blob_path)
+        if spool_dir is None:
+            buffer: Any = read_file(entry.blob_path)
+            digest = hashlib.sha256(buffer).hexdigest()
+        else:
+            spooled = copy_to_spool(entry.blob_path, spool_dir)
+            buffer = map_file(spooled.path)
+            digest = spooled.digest()
     except OSError as exc:
-        raise IntegrityError(f"cached body unreadable: {exc}") from None
-    if hashlib.sha256(buffer).hexdigest() != entry.blob:
-        raise IntegrityError("cached body does not match its content address")
-    inspection = inspect_body(buffer, call.format)
-    require_intact(inspection, "the cached copy")
-    return Delivery(inspection, buffer, entry.etag, "cache", entry.blob_path)
+        raise IntegrityError(f"the cached body is unreadable: {exc}") from None
+    try:
+        if digest != entry.blob:
+            raise IntegrityError("the cached body does not match its content address")
+        inspection = inspect_body(buffer, call.format)
+        require_intact(inspection, "the cached copy")
+    except IntegrityError:
+        if spooled is not None:
+            spooled.abandon()
+        raise
+    path = spooled.path if spooled is not None else None
+    return Delivery(inspection, buffer, entry.etag, "cache", path)
 
 
 def _finish_download(send: Send, reply: Reply, call: WeightsCall, ctx: FlowContext) -> Delivery:
     sink = send.sink
     etag = reply.headers.get("etag")
+    path: Path | None = None
     if isinstance(sink, MemorySink):
         buffer: Any = sink.buffer()
-        path = None
     elif isinstance(sink, FileSink):
         path = sink.close()
         buffer = map_file(path)
     else:  # a driver must route a 200 body to the sink it was given
-        raise RuntimeError("weights body arrived without a sink")
+        raise RuntimeError("a weights body arrived without a sink")
     try:
         inspection = inspect_body(buffer, call.format)
         require_intact(inspection)
     except IntegrityError:
         sink.abandon()
         raise
-    if ctx.cache is not None and isinstance(sink, FileSink):
-        stored = ctx.cache.store(call.cache_key, sink, call.format, etag)
-        if stored is not None:
-            path = stored.blob_path
+    if ctx.cache is not None:
+        ctx.cache.store(call.cache_key, path or buffer, sink.digest(), call.format, etag)
     return Delivery(inspection, buffer, etag, "service", path)
 
 
@@ -255,8 +278,8 @@ def weights_flow(
 
     With a cached copy the service is asked once, with If-None-Match (304: the copy is current;
     unreachable: the copy is used). A copy that fails verification is discarded and fetched
-    again; if that is impossible, CacheCorrupted. Without a cache the body goes to a file in
-    `spool_dir` when given (large downloads for the command line), else to memory.
+    again; if that is impossible, CacheCorrupted. The body is held in memory, or with
+    `spool_dir` in a file there (`Delivery.path`, for `save` to rename into place).
     """
     cache = ctx.cache
     entry: CacheEntry | None = None
@@ -266,7 +289,7 @@ def weights_flow(
         entry = cache.lookup(call.cache_key)
         if entry is not None:
             try:
-                cached = _open_cached(cache, entry, call)
+                cached = _open_cached(entry, call, spool_dir)
             except IntegrityError as exc:
                 cache.discard(entry)
                 entry, damage = None, exc
@@ -277,13 +300,9 @@ def weights_flow(
     headers = _headers(ctx, **more)
 
     def make() -> Send:
-        sink: BodySink
-        if cache is not None:
-            sink = cache.spool(progress)
-        elif spool_dir is not None:
-            sink = FileSink(spool_dir, progress)
-        else:
-            sink = MemorySink(progress)
+        sink: BodySink = (
+            MemorySink(progress) if spool_dir is None else FileSink(spool_dir, progress)
+        )
         return Send("POST", "/v1/weights", call.params, headers, call.body, sink)
 
     # Revalidating a verified copy is a single try: when it fails the copy is the answer.
@@ -299,19 +318,16 @@ def weights_flow(
                 f"it again failed too ({exc}); no data was returned"
             ) from exc
         raise
+    if reply.status != 200 and send.sink is not None:
+        send.sink.abandon()
     if reply.status == 304:
-        if send.sink is not None:
-            send.sink.abandon()
         if cached is None or entry is None or cache is None:
-            raise IntegrityError(
-                "the service answered 304 Not Modified to an unconditional request"
-            )
+            raise IntegrityError("the service answered 304 Not Modified to a plain request")
         cache.touch(entry, reply.headers.get("etag"))
         return Delivery(cached.inspection, cached.buffer, cached.etag, "revalidated", cached.path)
-    if reply.status != 200:
-        if send.sink is not None:
-            send.sink.abandon()
-        _raise_for(reply)
+    if cached is not None and cached.path is not None:
+        Path(cached.path).unlink(missing_ok=True)  # superseded by the new answer
+    _raise_for(reply)
     return _finish_download(send, reply, call, ctx)
 
 

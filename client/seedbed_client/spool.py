@@ -1,8 +1,8 @@
-"""Where a response body goes while it arrives: memory, or a temporary file for large bodies.
+"""Where a response body goes while it arrives: memory, or a temporary file beside its target.
 
-A sink counts and hashes what it receives, reports progress, and at the end hands back the
-whole body as one buffer. The file sink maps its file copy-on-write, so arrays built on it are
-writable without ever changing the file, and a large download is not held in memory twice.
+A sink counts and hashes what it receives and reports progress. Arrays returned to callers are
+always built on memory the client owns (`MemorySink`, `read_file`); files (`FileSink`) are for
+`save`, which writes a download next to its destination and renames it once verified.
 """
 
 from __future__ import annotations
@@ -102,9 +102,39 @@ class FileSink:
 
 
 def map_file(path: Path) -> mmap.mmap | bytes:
-    """A private copy-on-write view of a file: writable, and writes never reach the file."""
+    """A read-only view of a file for checking it without reading it into memory."""
     with open(path, "rb") as fh:
         size = os.fstat(fh.fileno()).st_size
         if size == 0:
             return b""
-        return mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_COPY)
+        return mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ)
+
+
+def read_file(path: Path) -> bytearray:
+    """The whole file in memory, writable: arrays built on it cannot change behind our back
+    (a mapping of the file would show later changes to it)."""
+    with open(path, "rb") as fh:
+        size = os.fstat(fh.fileno()).st_size
+        data = bytearray(size)
+        view = memoryview(data)
+        done = 0
+        while done < size:
+            n = fh.readinto(view[done:])
+            if not n:
+                break
+            done += n
+    return data[:done] if done < size else data
+
+
+def copy_to_spool(source: Path, directory: Path) -> FileSink:
+    """Copy a file into a new spool file in `directory` (hashing it on the way)."""
+    sink = FileSink(directory)
+    try:
+        with open(source, "rb") as fh:
+            while chunk := fh.read(1024 * 1024):
+                sink.write(chunk)
+        sink.close()
+    except BaseException:
+        sink.abandon()
+        raise
+    return sink
