@@ -12,6 +12,7 @@ from typing import Any
 from seedbed.core.activations import describe_activation
 from seedbed.core.limits import Limits
 from seedbed.core.plan_types import Plan, TensorPlan
+from seedbed.core.policies import apply_policy
 from seedbed.core.problems import Problem, RequestRejected
 from seedbed.core.recommend import Choice, override_weight, recommend_weight, vector_choice
 from seedbed.core.spec import (
@@ -22,6 +23,7 @@ from seedbed.core.spec import (
     canonical_request,
     parse_request,
 )
+from seedbed.core.structure import branches_of
 from seedbed.core.tensors import TensorSlot, slots_by_layer
 from seedbed.core.version import ALGORITHM
 
@@ -92,7 +94,7 @@ def _uses_identity_recurrence(layer: Any) -> bool:
     return layer.kind == "recurrent" and layer.cell == "simple" and layer.activation == "relu"
 
 
-def _layer_choices(index: int, layer: Any, slots: list[TensorSlot], dtype: str,
+def _layer_choices(index: int, layer: Any, slots: list[TensorSlot],
                    problems: list[Problem]) -> list[tuple[TensorSlot, Choice]]:
     out: list[tuple[TensorSlot, Choice]] = []
     for slot in slots:
@@ -105,7 +107,7 @@ def _layer_choices(index: int, layer: Any, slots: list[TensorSlot], dtype: str,
             continue
         choice = _weight_choice(index, layer, slot, problems)
         if choice is not None:
-            out.append((slot, _dtype_fit(index, layer, slot, choice, dtype, problems)))
+            out.append((slot, choice))
     return out
 
 
@@ -124,7 +126,12 @@ def _weight_choice(index: int, layer: Any, slot: TensorSlot,
 
 def _stack_warnings(request: NetworkRequest,
                     weights: list[tuple[Any, Choice]]) -> list[str]:
-    """Request-wide warnings about what depth does to the chosen scales."""
+    """Request-wide warnings about what depth does to the chosen scales.
+
+    `weights` are the dense and conv weights in signal order; those inside residual branches
+    are left out of the drift estimate, since a branch adds to the signal rather than
+    multiplying it.
+    """
     warnings: list[str] = []
     run: list[str] = []
     run_act = ""
@@ -171,22 +178,42 @@ def _stack_warnings(request: NetworkRequest,
 
 
 def plan_request(request: NetworkRequest) -> Plan:
-    """The plan of an already validated request."""
+    """The plan of an already validated request.
+
+    Each tensor is first chosen as without a depth policy (recommendation or override); the
+    policy then rewrites what it is about and adds its own tensors (seedbed.core.policies);
+    finally every weight scale is checked against the dtype.
+    """
     problems: list[Problem] = []
-    tensors: list[TensorPlan] = []
-    weights: list[tuple[Any, Choice]] = []
-    for index, (layer, slots) in enumerate(zip(request.layers, slots_by_layer(request),
-                                               strict=True)):
-        for slot, choice in _layer_choices(index, layer, slots, request.dtype, problems):
-            tensors.append(_tensor_plan(slot, request.dtype, choice))
-            if layer.kind in ("dense", "conv") and not slot.is_bias:
-                weights.append((layer, choice))
+    chosen = [_layer_choices(index, layer, slots, problems)
+              for index, (layer, slots) in enumerate(zip(request.layers, slots_by_layer(request),
+                                                         strict=True))]
     if problems:
         raise RequestRejected(problems)
+    outcome = apply_policy(request, chosen)
+    in_branch = {k for b in branches_of(request) for k in b.indices}
+    tensors: list[TensorPlan] = []
+    weights: list[tuple[Any, Choice]] = []
+    for index, layer in enumerate(request.layers):
+        for slot, choice in outcome.choices[index]:
+            if not (slot.is_bias or layer.kind == "norm"):
+                choice = _dtype_fit(index, layer, slot, choice, request.dtype, problems)
+            tensors.append(_tensor_plan(slot, request.dtype, choice))
+            if layer.kind in ("dense", "conv") and not slot.is_bias and index not in in_branch:
+                weights.append((layer, choice))
+        for slot, choice in outcome.extras.get(index, ()):
+            tensors.append(_tensor_plan(slot, request.dtype, choice))
+    if problems:
+        raise RequestRejected(problems)
+    names = [t.tensor for t in tensors]
+    if len(set(names)) != len(names):  # pragma: no cover - policy names cannot clash
+        raise ValueError("a depth policy produced a tensor name twice")
     return Plan(
         algorithm=ALGORITHM, seed=request.seed, dtype=request.dtype, layout=request.layout,
-        tensors=tuple(tensors), warnings=tuple(_stack_warnings(request, weights)),
+        tensors=tuple(tensors),
+        warnings=(*_stack_warnings(request, weights), *outcome.warnings),
         canonical_request=canonical_request(request),
+        multipliers=tuple(outcome.multipliers), policy=outcome.summary,
     )
 
 
@@ -212,7 +239,20 @@ def plan_document(plan: Plan) -> dict[str, Any]:
         },
         "notice": ("Scales follow published rules for the stated activations; they make a good "
                    "start likely, not certain. Diagnostics are estimates."),
+        "layers": layer_summaries(plan),
+        "depth_policy": plan.policy,
+        "multipliers": list(plan.multipliers),
     }
 
 
-__all__ = ["build_plan", "plan_document", "plan_request"]
+_LAYER_KEYS = ("name", "kind", "branch", "activation", "role", "block")
+
+
+def layer_summaries(plan: Plan) -> list[dict[str, Any]]:
+    """The layers as planned, after expanding block shorthands: name, kind, branch,
+    activation, role and the block each came from (None where absent)."""
+    layers = plan.canonical_request.get("layers", [])
+    return [{key: layer.get(key) for key in _LAYER_KEYS} for layer in layers]
+
+
+__all__ = ["build_plan", "layer_summaries", "plan_document", "plan_request"]

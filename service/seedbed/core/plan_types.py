@@ -98,6 +98,11 @@ class Plan:
     warnings: tuple[str, ...] = ()
     # The request in canonical form (sorted keys, defaults filled): the basis of ETags.
     canonical_request: dict[str, Any] = field(default_factory=dict)
+    # Set by a request's depth_policy (seedbed.core.policies): what the training script must
+    # apply besides the weights (residual alpha, learning-rate scalings ...), JSON-ready, and
+    # the policy's resolved parameters with rationale and references.
+    multipliers: tuple[dict[str, Any], ...] = ()
+    policy: dict[str, Any] | None = None
 
     def tensor(self, name: str) -> TensorPlan:
         for t in self.tensors:

@@ -35,6 +35,43 @@ and these optional fields:
     class_prior       dense/conv output layers with a bias: the prior probability pi in (0, 1)
                       of the positive class; the bias is set to log(pi/(1-pi)) (Lin et al. 2017)
 
+Residual structure (optional on every layer; see seedbed.core.structure and docs/depth.md):
+
+    branch            name of the residual branch the layer belongs to (same character rules as
+                      layer names; must not equal a layer name). Consecutive layers with the
+                      same branch form one branch: the branch's input (the output of the layer
+                      before its first layer, or the network input) is added to the output of
+                      its last layer. Reusing a branch name further down is refused. The
+                      branch's input and output widths must match where both are known.
+    block             label of the block shorthand the layer was expanded from (set by the
+                      expansion; callers may set it to group their own layers in the plan)
+
+Block shorthands are layer kinds that `parse_request` expands into basic layers, so everything
+after parsing sees only the six basic kinds:
+
+    transformer_block    dim, heads, mlp_dim, norm (pre | post, default pre), activation
+                         (default gelu), repeat (default 1), bias. Copy i of block "enc" is
+                         norm "enc.i.attn_norm", attention "enc.i.attn" (role residual_out: its
+                         output projection closes the branch), norm "enc.i.mlp_norm", dense
+                         "enc.i.mlp_in" (dim -> mlp_dim, the activation) and dense
+                         "enc.i.mlp_out" (mlp_dim -> dim, role residual_out), in branches
+                         "enc.i.attn_branch" and "enc.i.mlp_branch". pre: each norm opens its
+                         branch (x + f(norm(x))); post: each norm follows the addition, outside
+                         the branch (norm(x + f(x))), order attn, attn_norm, mlp_in, mlp_out,
+                         mlp_norm.
+    residual_conv_block  channels, kernel, activation (default relu), norm (none, pre or post),
+                         repeat, bias. Copy i of block "res" is branch "res.i.branch" of convs
+                         "res.i.conv1" (the activation) and "res.i.conv2" (role residual_out);
+                         with norm post: conv1, norm1 (the activation), conv2, norm2; with norm
+                         pre: norm1 (the activation), conv1, norm2 (the activation), conv2.
+
+The layer limit applies to the expanded count, computed from the shorthands' numbers before
+anything is expanded.
+
+    depth_policy      optional request-level object {"name": ..., parameters} choosing a depth-
+                      or width-aware rule: fixup, skip_gate, scaled_residual, deepnorm, t_fixup,
+                      width_transfer (see seedbed.core.policies). Absent: plain recommendations.
+
 Strictness: unknown fields are refused everywhere, numbers must not be quoted, booleans are not
 numbers, NaN and Infinity are refused, sizes are positive integers at most 2**31-1.
 
@@ -51,17 +88,20 @@ ETags and caches key on.
 from __future__ import annotations
 
 import re
-from typing import Annotated, Any, Literal, Union
+from typing import TYPE_CHECKING, Annotated, Any, ClassVar, Literal, Union
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     ConfigDict,
     Field,
     ValidationError,
     ValidationInfo,
+    ValidatorFunctionWrapHandler,
     field_validator,
     model_validator,
 )
+from pydantic_core import InitErrorDetails, PydanticCustomError
 
 from seedbed.core.activations import activation_names, describe_activation
 from seedbed.core.limits import MAX_SIZE, Limits, check_layer_count, size_problems
@@ -69,6 +109,7 @@ from seedbed.core.problems import (
     BODY,
     Allowed,
     Problem,
+    ProblemCode,
     RequestRejected,
     describe_input,
     field_error,
@@ -306,14 +347,89 @@ def _activation_allowed() -> str:
     return ", ".join(activation_names())
 
 
+_NAME_TEXT = (
+    "1 to 128 characters of letters, digits, '_', '.', '-', starting with a letter, digit or '_'"
+)
+
+
+def _checked_name(value: str, info: ValidationInfo) -> str:
+    """Layer, branch and block names: the character rules and the length limit."""
+    limits = _limits_from(info)
+    if not value or len(value) > limits.max_name_length:
+        raise field_error(
+            "invalid_value",
+            f"names have 1 to {limits.max_name_length} characters; got {len(value)}",
+        )
+    if not _NAME_PATTERN.fullmatch(value):
+        raise field_error(
+            "invalid_value",
+            f"got {describe_input(value)}; allowed: letters, digits, '_', '.', '-', "
+            "starting with a letter, digit or '_'",
+        )
+    return value
+
+
+def _check_activation(activation: str | None, param: float | None, role: str) -> None:
+    """An activation with its parameter, on a layer with the given role."""
+    if activation is None:
+        if param is not None:
+            raise field_error(
+                "not_allowed",
+                "activation_param needs an activation that takes a parameter "
+                "(leaky_relu: slope; elu: alpha)",
+                "activation_param",
+            )
+        return
+    info = describe_activation(activation)
+    if info.output_only and role != "output":
+        raise field_error(
+            "not_allowed",
+            f"{activation} is only allowed on an output layer (role: output)",
+            "activation",
+        )
+    if param is not None:
+        if info.param is None:
+            takers = [
+                f"{n} ({p.name})"
+                for n in activation_names()
+                if (p := describe_activation(n).param) is not None
+            ]
+            raise field_error(
+                "not_allowed",
+                f"{activation} takes no parameter; only {', '.join(takers)} take one",
+                "activation_param",
+            )
+        if not info.param.contains(param):
+            raise field_error(
+                "invalid_value",
+                f"{activation}'s {info.param.name} must be in {info.param.range_text()}; "
+                f"got {param!r}",
+                "activation_param",
+            )
+
+
+def _fill_activation(data: dict[str, Any], default: str | None) -> dict[str, Any]:
+    """Fill a missing activation with `default` and a missing parameter with its default."""
+    data = dict(data)
+    if data.get("activation") is None:
+        if default is None:
+            data.pop("activation", None)
+        else:
+            data["activation"] = default
+    activation = data.get("activation")
+    if (
+        data.get("activation_param") is None
+        and isinstance(activation, str)
+        and activation in activation_names()
+    ):
+        spec = describe_activation(activation).param
+        if spec is not None:
+            data["activation_param"] = spec.default
+    return data
+
+
 class _LayerBase(_Strict):
-    name: Annotated[
-        str,
-        Allowed(
-            "1 to 128 characters of letters, digits, '_', '.', '-', starting with a letter, "
-            "digit or '_'"
-        ),
-    ] = Field(
+    name: Annotated[str, Allowed(_NAME_TEXT)] = Field(
         description="Unique name of the layer; tensor names are built from it.",
         examples=["encoder.0"],
     )
@@ -335,6 +451,20 @@ class _LayerBase(_Strict):
         "of a residual branch, whose output is added to the skip path).",
         examples=["output"],
     )
+    branch: Annotated[str, Allowed(_NAME_TEXT)] | None = Field(
+        default=None,
+        description="Name of the residual branch this layer belongs to. Consecutive layers "
+        "with the same branch form one branch; its input (the output of the layer before it, "
+        "or the network input) is added to the output of its last layer. Must not equal a "
+        "layer name; input and output widths must match.",
+        examples=["encoder.3.mlp_branch"],
+    )
+    block: Annotated[str, Allowed(_NAME_TEXT)] | None = Field(
+        default=None,
+        description="Label of the block shorthand this layer was expanded from (filled by the "
+        "expansion; you may set it to group your own layers in the plan's layer list).",
+        examples=["encoder"],
+    )
     init: WeightOverride | None = Field(
         default=None,
         description="Explicit initialisation of this layer's weight tensors.",
@@ -354,23 +484,10 @@ class _LayerBase(_Strict):
         examples=[0.01],
     )
 
-    @field_validator("name", mode="after")
+    @field_validator("name", "branch", "block", mode="after")
     @classmethod
-    def _check_name(cls, value: str, info: ValidationInfo) -> str:
-        limits = _limits_from(info)
-        if not value or len(value) > limits.max_name_length:
-            raise field_error(
-                "invalid_value",
-                f"layer names have 1 to {limits.max_name_length} characters; got "
-                f"{len(value)}",
-            )
-        if not _NAME_PATTERN.fullmatch(value):
-            raise field_error(
-                "invalid_value",
-                f"got {describe_input(value)}; allowed: letters, digits, '_', '.', '-', "
-                "starting with a letter, digit or '_'",
-            )
-        return value
+    def _check_name(cls, value: str | None, info: ValidationInfo) -> str | None:
+        return None if value is None else _checked_name(value, info)
 
     @field_validator("activation", mode="after")
     @classmethod
@@ -387,23 +504,7 @@ class _LayerBase(_Strict):
     def _fill_layer_defaults(cls, data: Any) -> Any:
         if not isinstance(data, dict):
             return data
-        data = dict(data)
-        if data.get("activation") is None:
-            default = cls._default_activation(data)
-            if default is None:
-                data.pop("activation", None)
-            else:
-                data["activation"] = default
-        activation = data.get("activation")
-        if (
-            data.get("activation_param") is None
-            and isinstance(activation, str)
-            and activation in activation_names()
-        ):
-            spec = describe_activation(activation).param
-            if spec is not None:
-                data["activation_param"] = spec.default
-        return data
+        return _fill_activation(data, cls._default_activation(data))
 
     @classmethod
     def _default_activation(cls, data: dict[str, Any]) -> str | None:
@@ -423,41 +524,7 @@ class _LayerBase(_Strict):
         return bool(getattr(self, "bias", False))
 
     def _check_activation_fields(self) -> None:
-        if self.activation is None:
-            if self.activation_param is not None:
-                raise field_error(
-                    "not_allowed",
-                    "activation_param needs an activation that takes a parameter "
-                    "(leaky_relu: slope; elu: alpha)",
-                    "activation_param",
-                )
-            return
-        info = describe_activation(self.activation)
-        if info.output_only and self.role != "output":
-            raise field_error(
-                "not_allowed",
-                f"{self.activation} is only allowed on an output layer (role: output)",
-                "activation",
-            )
-        if self.activation_param is not None:
-            if info.param is None:
-                takers = [
-                    f"{n} ({p.name})"
-                    for n in activation_names()
-                    if (p := describe_activation(n).param) is not None
-                ]
-                raise field_error(
-                    "not_allowed",
-                    f"{self.activation} takes no parameter; only {', '.join(takers)} take one",
-                    "activation_param",
-                )
-            if not info.param.contains(self.activation_param):
-                raise field_error(
-                    "invalid_value",
-                    f"{self.activation}'s {info.param.name} must be in "
-                    f"{info.param.range_text()}; got {self.activation_param!r}",
-                    "activation_param",
-                )
+        _check_activation(self.activation, self.activation_param, self.role)
 
     def _check_bias_fields(self) -> None:
         kind = getattr(self, "kind", "")
@@ -738,6 +805,415 @@ LAYER_MODELS: dict[str, type[_LayerBase]] = {
 AnyLayer = DenseLayer | ConvLayer | EmbeddingLayer | RecurrentLayer | AttentionLayer | NormLayer
 
 
+# ---------------------------------------------------------------------------------------------
+# Block shorthands: expanded into basic layers by `parse_request` (seedbed.core.structure)
+
+BlockNorm = Literal["pre", "post"]
+# Names of the layers and branches of one copy of a block: "<block>.<copy>.<part>".
+TRANSFORMER_LAYER_PARTS: tuple[str, ...] = ("attn_norm", "attn", "mlp_norm", "mlp_in", "mlp_out")
+TRANSFORMER_BRANCH_PARTS: tuple[str, ...] = ("attn_branch", "mlp_branch")
+CONV_LAYER_PARTS: tuple[str, ...] = ("conv1", "conv2", "norm1", "norm2")
+CONV_BRANCH_PART = "branch"
+
+
+class _BlockBase(_Strict):
+    name: Annotated[str, Allowed(_NAME_TEXT)] = Field(
+        description="Name of the block; copy i of it is named '<name>.<i>', and its layers and "
+        "branches '<name>.<i>.<part>' (see the kind's description).",
+        examples=["encoder"],
+    )
+    repeat: Size = Field(
+        default=1,
+        description="How many copies of the block follow one another. The expanded layer "
+        "count (repeat times the layers per copy) counts against the request's layer limit.",
+        examples=[48],
+    )
+    activation: str | None = Field(
+        default=None,
+        description="The activation inside each copy (see the kind's description for where).",
+        examples=["gelu"],
+    )
+    activation_param: Finite | None = Field(
+        default=None,
+        description="The activation's parameter (leaky_relu slope, elu alpha); filled with the "
+        "default when omitted.",
+        examples=[0.1],
+    )
+    bias: bool = Field(
+        default=True,
+        description="Whether every layer of the block has bias (norm layers: a shift).",
+        examples=[True],
+    )
+
+    _default_activation: ClassVar[str] = "linear"
+    _part_names: ClassVar[tuple[str, ...]] = ()
+
+    @field_validator("name", mode="after")
+    @classmethod
+    def _check_name(cls, value: str, info: ValidationInfo) -> str:
+        return _checked_name(value, info)
+
+    @field_validator("activation", mode="after")
+    @classmethod
+    def _check_activation_name(cls, value: str | None) -> str | None:
+        if value is not None and value not in activation_names():
+            raise field_error(
+                "invalid_value",
+                f"got {describe_input(value)}; allowed activations: {_activation_allowed()}",
+            )
+        return value
+
+    @model_validator(mode="before")
+    @classmethod
+    def _fill_block_defaults(cls, data: Any) -> Any:
+        if not isinstance(data, dict):
+            return data
+        return _fill_activation(data, cls._default_activation)
+
+    @model_validator(mode="after")
+    def _check_block(self, info: ValidationInfo) -> _BlockBase:
+        _check_activation(self.activation, self.activation_param, "hidden")
+        self._check_kind()
+        limit = _limits_from(info).max_name_length
+        longest = f"{self.name}.{self.repeat - 1}.{max(self._part_names, key=len)}"
+        if len(longest) > limit:
+            raise field_error(
+                "invalid_value",
+                f"the expanded names would be too long: {longest[:40]}... has {len(longest)} "
+                f"characters and names have at most {limit}; shorten the block name to at most "
+                f"{len(self.name) - (len(longest) - limit)} characters",
+                "name",
+            )
+        return self
+
+    def _check_kind(self) -> None:
+        """Kind-specific checks; subclasses override."""
+
+    @property
+    def layers_per_copy(self) -> int:
+        raise NotImplementedError
+
+    @property
+    def layer_count(self) -> int:
+        return self.repeat * self.layers_per_copy
+
+
+class TransformerBlock(_BlockBase):
+    """A transformer block, expanded into five layers per copy and two residual branches.
+
+    Copy i of block "enc": norm "enc.i.attn_norm", attention "enc.i.attn" (role residual_out:
+    its output projection closes the branch), norm "enc.i.mlp_norm", dense "enc.i.mlp_in" (dim
+    -> mlp_dim, followed by the activation) and dense "enc.i.mlp_out" (mlp_dim -> dim, role
+    residual_out), in branches "enc.i.attn_branch" and "enc.i.mlp_branch". norm pre: each norm
+    is the first layer of its branch (x + f(norm(x))). norm post: each norm follows the
+    addition, outside the branch (norm(x + f(x))), in the order attn, attn_norm, mlp_in,
+    mlp_out, mlp_norm. Example: {"name": "enc", "kind": "transformer_block", "dim": 768,
+    "heads": 12, "mlp_dim": 3072, "norm": "pre", "repeat": 12}.
+    """
+
+    model_config = ConfigDict(title="transformer block")
+
+    kind: Literal["transformer_block"] = Field(
+        description="Block shorthand kind.", examples=["transformer_block"]
+    )
+    dim: Size = Field(description="Model width (attention dim, norm dim).", examples=[768])
+    heads: Size = Field(description="Attention heads; divides dim.", examples=[12])
+    mlp_dim: Size = Field(description="Hidden width of the feed-forward part.", examples=[3072])
+    norm: Annotated[BlockNorm, Allowed("pre or post")] = Field(
+        default="pre",
+        description="pre: normalise the input of each branch (x + f(norm(x))); post: normalise "
+        "after each residual addition (norm(x + f(x))).",
+        examples=["pre"],
+    )
+    activation: str | None = Field(
+        default=None,
+        description="Activation after the feed-forward part's first layer (mlp_in); default "
+        "gelu.",
+        examples=["gelu"],
+    )
+
+    _default_activation: ClassVar[str] = "gelu"
+    _part_names: ClassVar[tuple[str, ...]] = TRANSFORMER_LAYER_PARTS + TRANSFORMER_BRANCH_PARTS
+
+    def _check_kind(self) -> None:
+        if self.dim % self.heads:
+            raise field_error(
+                "invalid_value", f"heads must divide dim ({self.dim}); got {self.heads}", "heads"
+            )
+
+    @property
+    def layers_per_copy(self) -> int:
+        return len(TRANSFORMER_LAYER_PARTS)
+
+
+class ResidualConvBlock(_BlockBase):
+    """A residual block of two same-width convolutions, optionally with normalisation.
+
+    Copy i of block "res" is branch "res.i.branch". norm omitted: conv "res.i.conv1" (followed
+    by the activation) and conv "res.i.conv2" (role residual_out). norm post: conv1, norm
+    "res.i.norm1" (followed by the activation), conv2 (role residual_out), norm2. norm pre:
+    norm1 (the activation), conv1, norm2 (the activation), conv2 (role residual_out). The
+    activation after the residual addition (as in the original ResNet) belongs to no layer.
+    Example: {"name": "stage2", "kind": "residual_conv_block", "channels": 128,
+    "kernel": [3, 3], "repeat": 4}.
+    """
+
+    model_config = ConfigDict(title="residual conv block")
+
+    kind: Literal["residual_conv_block"] = Field(
+        description="Block shorthand kind.", examples=["residual_conv_block"]
+    )
+    channels: Size = Field(
+        description="Channels in and out of every conv of the block.", examples=[128]
+    )
+    kernel: Annotated[
+        list[Size],
+        Field(min_length=1, max_length=3),
+        Allowed(f"a list of 1 to 3 positive integers (each 1 to {MAX_SIZE})"),
+    ] = Field(description="Kernel size per spatial dimension.", examples=[[3, 3]])
+    norm: Annotated[BlockNorm, Allowed("pre or post (or omit it for no norm layers)")] | None = (
+        Field(
+            default=None,
+            description="Norm layers in the branch: post (conv, norm, activation), pre "
+            "(norm, activation, conv), or omitted for none (Fixup/SkipInit-style stacks).",
+            examples=["post"],
+        )
+    )
+    activation: str | None = Field(
+        default=None,
+        description="Activation inside the branch (after conv1, or after the norms); default "
+        "relu.",
+        examples=["relu"],
+    )
+
+    _default_activation: ClassVar[str] = "relu"
+    _part_names: ClassVar[tuple[str, ...]] = (*CONV_LAYER_PARTS, CONV_BRANCH_PART)
+
+    @property
+    def layers_per_copy(self) -> int:
+        return 2 if self.norm is None else 4
+
+
+BLOCK_MODELS: dict[str, type[_BlockBase]] = {
+    "transformer_block": TransformerBlock,
+    "residual_conv_block": ResidualConvBlock,
+}
+AnyBlock = TransformerBlock | ResidualConvBlock
+
+LayerOrBlockSpec = Annotated[
+    Union[  # noqa: UP007
+        DenseLayer, ConvLayer, EmbeddingLayer, RecurrentLayer, AttentionLayer, NormLayer,
+        TransformerBlock, ResidualConvBlock,
+    ],
+    Field(discriminator="kind"),
+    Allowed(
+        "a layer object with name, kind (dense, conv, embedding, recurrent, attention, norm, "
+        "or a block shorthand: transformer_block, residual_conv_block) and the kind's fields"
+    ),
+]  # fmt: skip
+
+
+def _expand_blocks(layers: list[Any], info: ValidationInfo) -> list[Any]:
+    """Replace block shorthands by their basic layers (after every item validated)."""
+    if not any(isinstance(item, _BlockBase) for item in layers):
+        return layers
+    from seedbed.core.structure import expand_layers  # structure imports this module
+
+    limits = _limits_from(info)
+    total = sum(item.layer_count if isinstance(item, _BlockBase) else 1 for item in layers)
+    if total > limits.max_layers:
+        raise field_error(
+            "too_large",
+            f"the layers expand to {total} layers; the limit is {limits.max_layers} per "
+            "request, counted after expanding block shorthands",
+        )
+    return expand_layers(layers, info.context)
+
+
+if TYPE_CHECKING:
+    # After validation the list holds basic layers only: blocks are expanded by the validator.
+    LayerList = list[AnyLayer]
+else:
+    LayerList = Annotated[
+        list[LayerOrBlockSpec], Field(min_length=1), AfterValidator(_expand_blocks)
+    ]
+
+
+# ---------------------------------------------------------------------------------------------
+# Depth policies (applied by seedbed.core.policies)
+
+Architecture = Literal["encoder", "decoder", "encoder_decoder"]
+POLICY_NAMES: tuple[str, ...] = (
+    "fixup", "skip_gate", "scaled_residual", "deepnorm", "t_fixup", "width_transfer"
+)  # fmt: skip
+# The base std of GPT-2-style initialisation: common practice, not a derived value.
+SCALED_RESIDUAL_BASE_STD = 0.02
+
+
+class FixupPolicy(_Strict):
+    """Fixup (Zhang et al. 2019): branch layers scaled by L^(-1/(2m-2)), the last layer of
+    every branch and the classifier zero, a scalar multiplier (1) per branch and scalar offsets
+    (0) before every weight layer and activation of a branch. Branches of dense and conv layers
+    only. Example: {"name": "fixup"}."""
+
+    model_config = ConfigDict(title="fixup policy")
+
+    name: Literal["fixup"] = Field(description="Policy name.", examples=["fixup"])
+
+
+class SkipGatePolicy(_Strict):
+    """A scalar gate per branch, initialised 0 (SkipInit, De & Smith 2020; ReZero, Bachlechner
+    et al. 2020): every residual block starts as the identity. Example: {"name": "skip_gate"}."""
+
+    model_config = ConfigDict(title="skip gate policy")
+
+    name: Literal["skip_gate"] = Field(description="Policy name.", examples=["skip_gate"])
+
+
+class ScaledResidualPolicy(_Strict):
+    """Normal weights of std base_std, and base_std/sqrt(N) on the last map of every residual
+    branch, N the number of residual layers (Radford et al. 2019, sec. 2.3). Example:
+    {"name": "scaled_residual", "base_std": 0.02}."""
+
+    model_config = ConfigDict(title="scaled residual policy")
+
+    name: Literal["scaled_residual"] = Field(
+        description="Policy name.", examples=["scaled_residual"]
+    )
+    base_std: Positive = Field(
+        default=SCALED_RESIDUAL_BASE_STD,
+        description="Std of every weight matrix and embedding; default 0.02 (common practice "
+        "in GPT-2-style models, not a derived value).",
+        examples=[0.02],
+    )
+    residual_layers: Size | None = Field(
+        default=None,
+        description="N, the number of residual layers; default: the number of residual "
+        "branches (two per transformer block).",
+        examples=[24],
+    )
+
+
+class _TransformerDepth(_Strict):
+    architecture: Annotated[Architecture, Allowed("encoder, decoder or encoder_decoder")] = Field(
+        description="encoder or decoder (a single stack of N layers), or encoder_decoder.",
+        examples=["encoder"],
+    )
+    encoder_layers: Size | None = Field(
+        default=None,
+        description="N, the encoder's number of layers (blocks); default: its feed-forward "
+        "branches, one per transformer block.",
+        examples=[6],
+    )
+    decoder_layers: Size | None = Field(
+        default=None,
+        description="M, the decoder's number of layers (blocks); default: its feed-forward "
+        "branches.",
+        examples=[6],
+    )
+    decoder_start: Annotated[str, Allowed(_NAME_TEXT)] | None = Field(
+        default=None,
+        description="encoder_decoder only (required there): the name of the decoder's first "
+        "layer; the layers before it are the encoder.",
+        examples=["dec.0.attn_norm"],
+    )
+
+    @field_validator("decoder_start", mode="after")
+    @classmethod
+    def _check_start(cls, value: str | None, info: ValidationInfo) -> str | None:
+        return None if value is None else _checked_name(value, info)
+
+    @model_validator(mode="after")
+    def _check_architecture(self) -> _TransformerDepth:
+        arch = self.architecture
+        if arch == "encoder_decoder":
+            if self.decoder_start is None:
+                raise field_error(
+                    "missing_field",
+                    "encoder_decoder needs decoder_start: the name of the decoder's first layer",
+                    "decoder_start",
+                )
+            return self
+        other = "decoder_layers" if arch == "encoder" else "encoder_layers"
+        for name in (other, "decoder_start"):
+            if getattr(self, name) is not None:
+                own = "encoder_layers" if arch == "encoder" else "decoder_layers"
+                raise field_error(
+                    "not_allowed",
+                    f"{name} is only for other architectures; a single {arch} stack takes "
+                    f"{own}",
+                    name,
+                )
+        return self
+
+
+class DeepNormPolicy(_TransformerDepth):
+    """DeepNorm (Wang et al. 2022) for post-norm transformers: feed-forward, value and output
+    projections Glorot normal with gain beta, query and key gain 1, and the residual multiplier
+    alpha returned for the training script (x_next = norm(alpha*x + f(x))). encoder or
+    decoder with N layers: alpha = (2N)^(1/4), beta = (8N)^(-1/4); encoder_decoder: encoder
+    alpha = 0.81 (N^4 M)^(1/16), beta = 0.87 (N^4 M)^(-1/16), decoder alpha = (3M)^(1/4),
+    beta = (12M)^(-1/4). Example: {"name": "deepnorm", "architecture": "encoder"}."""
+
+    model_config = ConfigDict(title="deepnorm policy")
+
+    name: Literal["deepnorm"] = Field(description="Policy name.", examples=["deepnorm"])
+
+
+class TFixupPolicy(_TransformerDepth):
+    """T-Fixup (Huang et al. 2020) for transformers trained without normalisation or warmup:
+    Glorot uniform projections, value and output projections and feed-forward weights scaled by
+    0.67 N^(-1/4) in the encoder and (9M)^(-1/4) in the decoder, embeddings normal with std
+    dim^(-1/2) scaled by (9M)^(-1/4) [from memory; see docs/depth.md]. Example:
+    {"name": "t_fixup", "architecture": "encoder_decoder", "decoder_start": "dec.0.attn"}."""
+
+    model_config = ConfigDict(title="t_fixup policy")
+
+    name: Literal["t_fixup"] = Field(description="Policy name.", examples=["t_fixup"])
+
+
+class WidthTransferPolicy(_Strict):
+    """Width scaling relative to a base width, in the spirit of Yang et al. 2021 (Tensor
+    Programs V, Table 3 [from memory]): hidden and input weights keep variance 1/fan_in, the
+    output layer's variance is multiplied by base_width/width, and the learning-rate scalings
+    a training script must apply are returned under "multipliers". These are scalings, not
+    exact constants. Example: {"name": "width_transfer", "base_width": 256}."""
+
+    model_config = ConfigDict(title="width transfer policy")
+
+    name: Literal["width_transfer"] = Field(description="Policy name.", examples=["width_transfer"])
+    base_width: Size = Field(
+        description="Width of the model whose hyperparameters were tuned.", examples=[256]
+    )
+    width: Size | None = Field(
+        default=None,
+        description="Width of this model; default: the input width of its output layer.",
+        examples=[1024],
+    )
+
+
+POLICY_MODELS: dict[str, type[_Strict]] = {
+    "fixup": FixupPolicy,
+    "skip_gate": SkipGatePolicy,
+    "scaled_residual": ScaledResidualPolicy,
+    "deepnorm": DeepNormPolicy,
+    "t_fixup": TFixupPolicy,
+    "width_transfer": WidthTransferPolicy,
+}
+AnyPolicy = (
+    FixupPolicy | SkipGatePolicy | ScaledResidualPolicy | DeepNormPolicy | TFixupPolicy
+    | WidthTransferPolicy
+)  # fmt: skip
+DepthPolicy = Annotated[
+    Union[  # noqa: UP007
+        FixupPolicy, SkipGatePolicy, ScaledResidualPolicy, DeepNormPolicy, TFixupPolicy,
+        WidthTransferPolicy,
+    ],
+    Field(discriminator="name"),
+]  # fmt: skip
+_POLICY_TEXT = f"an object with name (one of {', '.join(POLICY_NAMES)}) and its parameters"
+
+
 _EXAMPLE_REQUEST: dict[str, Any] = {
     "seed": 20261201,
     "dtype": "float32",
@@ -752,13 +1228,29 @@ _EXAMPLE_REQUEST: dict[str, Any] = {
          "role": "output", "class_prior": 0.02},
     ],
 }  # fmt: skip
+# A 24-block pre-norm language model in a few lines: 24 * 5 + 3 = 123 layers after expansion.
+_EXAMPLE_BLOCKS: dict[str, Any] = {
+    "seed": "harbour-chat/base",
+    "layers": [
+        {"name": "tokens", "kind": "embedding", "vocab": 32000, "dim": 512},
+        {"name": "body", "kind": "transformer_block", "dim": 512, "heads": 8, "mlp_dim": 2048,
+         "norm": "pre", "repeat": 24},
+        {"name": "final_norm", "kind": "norm", "dim": 512},
+        {"name": "next_token", "kind": "dense", "n_in": 512, "n_out": 32000, "bias": False,
+         "role": "output"},
+    ],
+    "depth_policy": {"name": "scaled_residual"},
+}  # fmt: skip
 
 
 class NetworkRequest(_Strict):
-    """A request for initial weights: seed, dtype, layout and the network's layers."""
+    """A request for initial weights: seed, dtype, layout, the network's layers, and optionally
+    a depth policy. Block shorthands in `layers` are expanded: after validation `layers` holds
+    basic layers only."""
 
     model_config = ConfigDict(
-        title="network request", json_schema_extra={"examples": [_EXAMPLE_REQUEST]}
+        title="network request",
+        json_schema_extra={"examples": [_EXAMPLE_REQUEST, _EXAMPLE_BLOCKS]},
     )
 
     seed: Annotated[
@@ -780,13 +1272,58 @@ class NetworkRequest(_Strict):
         examples=["out_in"],
     )
     layers: Annotated[
-        list[LayerSpec],
-        Field(min_length=1),
+        LayerList,
         Allowed("a list of at least one layer object (the limit is set by the service)"),
     ] = Field(
-        description="The layers, in the order the signal meets them.",
-        examples=[_EXAMPLE_REQUEST["layers"][:2]],
+        description="The layers, in the order the signal meets them. Block shorthands "
+        "(transformer_block, residual_conv_block) expand into named basic layers.",
+        examples=[_EXAMPLE_REQUEST["layers"][:2], _EXAMPLE_BLOCKS["layers"][1:2]],
     )
+    depth_policy: Annotated[DepthPolicy, Allowed(_POLICY_TEXT)] | None = Field(
+        default=None,
+        description="A depth- or width-aware rule applied on top of the recommendations: "
+        f"{', '.join(POLICY_NAMES)}. Omit it for the plain recommendations.",
+        examples=[
+            {"name": "fixup"},
+            {"name": "deepnorm", "architecture": "encoder", "encoder_layers": 6},
+            {"name": "width_transfer", "base_width": 256},
+        ],
+    )
+
+    @field_validator("depth_policy", mode="wrap")
+    @classmethod
+    def _dispatch_policy(
+        cls, value: Any, handler: ValidatorFunctionWrapHandler, info: ValidationInfo
+    ) -> Any:
+        # Chosen by hand rather than by the discriminator so that problems are reported at
+        # depth_policy.<field> (a discriminated union would put the tag into the path).
+        if value is None or not isinstance(value, dict):
+            if value is None or isinstance(value, _Strict):
+                return handler(value)
+            raise field_error("invalid_type", f"got {describe_input(value)}; allowed: "
+                              f"{_POLICY_TEXT}")  # fmt: skip
+        name = value.get("name")
+        model = POLICY_MODELS.get(name) if isinstance(name, str) else None
+        if model is None:
+            code: ProblemCode = "missing_field" if "name" not in value else "invalid_value"
+            got = "no name" if "name" not in value else f"got {describe_input(name)}"
+            raise field_error(code, f"{got}; allowed policy names: {', '.join(POLICY_NAMES)}",
+                              "name")  # fmt: skip
+        try:
+            return model.model_validate(value, context=info.context)
+        except ValidationError as err:
+            problems = problems_from_validation_error(model, err)
+        raise ValidationError.from_exception_data(
+            "depth_policy",
+            [
+                InitErrorDetails(
+                    type=PydanticCustomError(p.code, p.message),
+                    loc=() if p.field == BODY else (p.field,),
+                    input=value,
+                )
+                for p in problems
+            ],
+        )
 
     @field_validator("seed", mode="before")
     @classmethod
@@ -827,12 +1364,21 @@ def _limits_from(info: ValidationInfo) -> Limits:
 def parse_request(data: object, limits: Limits | None = None) -> NetworkRequest:
     """Validate a parsed JSON body into a `NetworkRequest`, or raise `RequestRejected`.
 
-    Order: the raw layer count (before any layer is looked at), the models (types, ranges,
-    per-layer combinations), then what spans layers: unique layer names, unique tensor names,
-    explicit values that must fit the dtype, and the size limits. All problems of the last
-    stage are reported together.
+    Order: the raw layer count and the count after expanding block shorthands (both before
+    any layer is looked at), the models (types, ranges, per-layer combinations; blocks are
+    expanded here), then what spans layers: unique layer names, unique tensor names, residual
+    branches, explicit values that must fit the dtype, the size limits and the depth policy's
+    fit to the network. All problems of the last stage are reported together, at the fields of
+    the request as written (a problem of an expanded layer points at its block).
     """
-    from seedbed.core.tensors import slots_by_layer, tensor_name_problems  # tensors imports spec
+    # These modules import this one.
+    from seedbed.core.policies import policy_problems
+    from seedbed.core.structure import (
+        branch_problems,
+        check_expanded_count,
+        relocate_problems,
+    )
+    from seedbed.core.tensors import slots_by_layer, tensor_name_problems
 
     limits = limits if limits is not None else Limits()
     if not isinstance(data, dict):
@@ -847,6 +1393,7 @@ def parse_request(data: object, limits: Limits | None = None) -> NetworkRequest:
             ]
         )
     check_layer_count(data, limits)
+    check_expanded_count(data, limits)
     try:
         request = NetworkRequest.model_validate(data, context={"limits": limits})
     except ValidationError as err:
@@ -855,10 +1402,14 @@ def parse_request(data: object, limits: Limits | None = None) -> NetworkRequest:
     slots = slots_by_layer(request)
     problems = layer_name_problems(request)
     problems += tensor_name_problems(request, slots)
+    structure = branch_problems(request)
+    problems += structure
     problems += _dtype_range_problems(request)
     problems += size_problems(request, slots, limits)
+    if not structure:
+        problems += policy_problems(request)
     if problems:
-        raise RequestRejected(problems)
+        raise RequestRejected(relocate_problems(problems, data["layers"], request))
     return request
 
 
@@ -932,6 +1483,12 @@ def _dtype_range_problems(request: NetworkRequest) -> list[Problem]:
         if isinstance(layer, RecurrentLayer) and layer.forget_bias is not None:
             v = layer.forget_bias
             check(f"layers[{i}].forget_bias", abs(v), f"{v!r}", top)
+    policy = request.depth_policy
+    if isinstance(policy, ScaledResidualPolicy):
+        path = "depth_policy.base_std"
+        check(path, policy.base_std, f"base_std {policy.base_std!r} (normal draws reach "
+              f"{NORMAL_EXTREME} std)", top / NORMAL_EXTREME)  # fmt: skip
+        check_tiny(path, policy.base_std, "base_std")
     return problems
 
 
