@@ -154,3 +154,33 @@ def test_deficiency_allowance() -> None:
     a[11] = a[0] * 0.5
     res = numerical_rank(a, FLOAT_ROUNDOFF["float64"], 1 << 25, 256, 512)
     assert res.deficiency == 3 > res.allowance
+
+
+def test_chance_twins_estimate_matches_the_birthday_count() -> None:
+    # Rows of 2 values drawn uniformly from 10 levels: two given rows are equal with probability
+    # (1/10)^2, so C(n, 2) / 100 equal pairs are expected (the birthday problem).
+    from seedbed.core.audit.report import _chance_pairs
+
+    rng = np.random.default_rng(21)
+    n = 400
+    rows = rng.integers(0, 10, (n, 2)).astype(np.float32)
+    expected = n * (n - 1) / 2 / 100
+    estimate = _chance_pairs(rows, rows, 1)
+    assert estimate == pytest.approx(expected, rel=0.1)  # frequencies estimated from the data
+    observed = sum(len(g) * (len(g) - 1) // 2 for g in twin_units(rows).groups)
+    assert observed == pytest.approx(expected, rel=0.25)
+
+
+def test_short_low_precision_rows_repeating_by_chance_are_only_a_warning() -> None:
+    import io
+
+    from seedbed.core.audit import audit_upload
+
+    rng = np.random.default_rng(22)
+    w = (rng.standard_normal((3000, 1)) * 0.1).astype(np.float16)
+    buf = io.BytesIO()
+    np.savez(buf, w=w)
+    data = buf.getvalue()
+    report = audit_upload(io.BytesIO(data), len(data))
+    (twin,) = [f for f in report["findings"] if f["code"] == "twin_units"]
+    assert twin["severity"] == "warning" and "expected by chance" in twin["message"]
