@@ -32,7 +32,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from seedbed.core.limits import Limits
-from seedbed.core.problems import Problem, RequestRejected
+from seedbed.core.problems import Problem, RequestRejected, describe_input
 from seedbed.core.spec import (
     BLOCK_MODELS,
     CONV_BRANCH_PART,
@@ -74,6 +74,13 @@ def _raw_count(item: object) -> int:
     return repeat * (2 if item.get("norm") is None else len(CONV_LAYER_PARTS))
 
 
+def _number(n: object) -> str:
+    """A count for a message; huge integers by their magnitude (str() of one may be refused)."""
+    if isinstance(n, int) and not isinstance(n, bool) and n.bit_length() > 80:
+        return f"about 10^{int(n.bit_length() * 0.30103)}"
+    return describe_input(n).removeprefix("the integer ")
+
+
 def check_expanded_count(data: object, limits: Limits) -> None:
     """Refuse a body whose layers, after expanding block shorthands, exceed the layer limit.
 
@@ -88,13 +95,14 @@ def check_expanded_count(data: object, limits: Limits) -> None:
         return
     biggest = max(range(len(counts)), key=counts.__getitem__)
     item = data["layers"][biggest]
-    what = (f"; layers[{biggest}] (a {item['kind']} with repeat {item.get('repeat', 1)}) "
-            f"alone expands to {counts[biggest]}" if counts[biggest] > 1 else "")
+    repeat = _number(item.get("repeat", 1))
+    what = (f"; layers[{biggest}] (a {item['kind']} with repeat {repeat}) alone expands to "
+            f"{_number(counts[biggest])}" if counts[biggest] > 1 else "")
     field = f"layers[{biggest}].repeat" if counts[biggest] > limits.max_layers else "layers"
     raise RequestRejected([Problem(
         field, "too_large",
-        f"the layers expand to {total} layers{what}; the limit is {limits.max_layers} layers "
-        "per request, counted after expanding block shorthands")])  # fmt: skip
+        f"the layers expand to {_number(total)} layers{what}; the limit is {limits.max_layers} "
+        "layers per request, counted after expanding block shorthands")])  # fmt: skip
 
 
 def _activation(block: _BlockBase) -> dict[str, Any]:
@@ -292,7 +300,7 @@ def _width_problems(request: NetworkRequest, b: Branch) -> list[Problem]:
 # ---------------------------------------------------------------------------------------------
 # Pointing problems of expanded layers at what the caller wrote
 
-_LAYER_REF = re.compile(r"layers\[(\d+)\]")
+_LAYER_REF = re.compile(r"layers\[(\d+)\]((?:\.[a-z_]+)*)")
 
 
 def relocate_problems(problems: Sequence[Problem], raw_layers: Sequence[Any],
@@ -300,8 +308,9 @@ def relocate_problems(problems: Sequence[Problem], raw_layers: Sequence[Any],
     """Problems found on the expanded request, with paths into the request as written.
 
     A layer written by the caller keeps its fields under its original index. A layer made by a
-    block points at the block (and at its name when the name is at fault), and the message
-    says which expanded layer is meant. Without blocks nothing changes.
+    block points at the block (and at its name when the name is at fault), the message says
+    which expanded layer is meant, and the same problem on many layers of one block is told
+    once with a count. Without blocks nothing changes.
     """
     origin: list[tuple[int, bool]] = []
     for j, item in enumerate(raw_layers):
@@ -310,28 +319,44 @@ def relocate_problems(problems: Sequence[Problem], raw_layers: Sequence[Any],
     if not any(is_block for _, is_block in origin) or len(origin) != len(request.layers):
         return list(problems)
 
-    def ref(k: int) -> str:
+    def ref(m: re.Match[str]) -> str:
+        k = int(m.group(1))
+        if k >= len(origin):
+            return m.group(0)
         j, is_block = origin[k]
-        return f"layers[{j}] (layer {request.layers[k].name!r})" if is_block else f"layers[{j}]"
+        if is_block:
+            return f"layers[{j}] (its layer {request.layers[k].name!r})"
+        return f"layers[{j}]{m.group(2)}"
 
     out: list[Problem] = []
+    repeats: dict[tuple[str, str], int] = {}
     for p in problems:
-        message = _LAYER_REF.sub(lambda m: ref(int(m.group(1))), p.message)
+        message = _LAYER_REF.sub(ref, p.message)
         head = _LAYER_REF.match(p.field)
         if head is None or int(head.group(1)) >= len(origin):
             out.append(Problem(p.field, p.code, message))
             continue
         k = int(head.group(1))
         j, is_block = origin[k]
-        rest = p.field[head.end():]
-        if is_block:
-            kept = rest if rest in (".name", ".repeat") else ""
-            field = f"layers[{j}]{kept}"
-            message = f"in layer {request.layers[k].name!r}, expanded from layers[{j}]: {message}"
-        else:
-            field = f"layers[{j}]{rest}"
-        out.append(Problem(field, p.code, message))
-    return out
+        rest = p.field[len(f"layers[{k}]"):]
+        if not is_block:
+            out.append(Problem(f"layers[{j}]{rest}", p.code, message))
+            continue
+        field = f"layers[{j}]" + (".name" if rest == ".name" else "")
+        if (field, p.code) in repeats:
+            repeats[field, p.code] += 1
+            continue
+        repeats[field, p.code] = 0
+        out.append(Problem(field, p.code, f"in layer {request.layers[k].name!r}, expanded from "
+                                          f"layers[{j}]: {message}"))  # fmt: skip
+    return [_with_count(p, repeats) for p in out]
+
+
+def _with_count(p: Problem, repeats: dict[tuple[str, str], int]) -> Problem:
+    more = repeats.get((p.field, p.code), 0)
+    if not more:
+        return p
+    return Problem(p.field, p.code, f"{p.message} (and {more} more like it from the same block)")
 
 
 __all__ = [
