@@ -1,0 +1,306 @@
+"""From a diagnose body to runs, verdicts, mean-field figures and the JSON document.
+
+    diagnose(data, limits=None, diagnostic_limits=None, threads=1) -> Diagnosis
+    diagnosis_document(diagnosis) -> dict          the JSON-ready response body
+
+Order of work: the outer body, the inner request (fields prefixed "request."), the network's
+structure (what the simulation supports), every run's plan (an alternative's override problems
+are reported at "alternatives[i].init"), the cost of all runs against the limits (413 before
+any weight is rendered), then the runs one after another.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable
+from dataclasses import dataclass
+from typing import Any
+
+from seedbed.core.diagnostics.body import RECOMMENDED, AlternativeSpec, parse_body
+from seedbed.core.diagnostics.budget import DiagnosticLimits, cost_problems, run_cost
+from seedbed.core.diagnostics.engine import INPUT_SEED, LayerRecord, Simulation, simulate
+from seedbed.core.diagnostics.network import Network, build_network
+from seedbed.core.diagnostics.unit_stats import SATURATION_RULES
+from seedbed.core.diagnostics.verdict import HIGH, LOW, SYMMETRIC_SHARE, Verdict, judge
+from seedbed.core.limits import Limits, size_problems
+from seedbed.core.meanfield import mean_field
+from seedbed.core.plan import plan_request
+from seedbed.core.plan_types import Plan, TensorPlan
+from seedbed.core.problems import BODY, Problem, RequestRejected
+from seedbed.core.references import short_cite
+from seedbed.core.spec import NetworkRequest, parse_request
+from seedbed.core.tensors import slots_by_layer
+
+OVERRIDDEN_KINDS = frozenset({"dense", "conv", "attention", "embedding"})
+MEAN_FIELD_LAYERS_LISTED = 8
+
+
+@dataclass
+class Run:
+    label: str
+    plan: Plan
+    simulation: Simulation
+    verdict: Verdict
+    mean_field: list[dict[str, Any]]
+
+
+@dataclass
+class Diagnosis:
+    network: Network
+    batch: int
+    runs: list[Run]
+    sum_inverse_width: float
+
+
+def _prefixed(problems: Iterable[Problem], prefix: str) -> list[Problem]:
+    return [Problem(prefix if p.field == BODY else f"{prefix}.{p.field}", p.code, p.message)
+            for p in problems]
+
+
+def _parse_inner(data: object, limits: Limits) -> NetworkRequest:
+    try:
+        return parse_request(data, limits)
+    except RequestRejected as exc:
+        raise RequestRejected(_prefixed(exc.problems, "request")) from None
+
+
+def _network(request: NetworkRequest) -> Network:
+    try:
+        return build_network(request)
+    except RequestRejected as exc:
+        raise RequestRejected(_prefixed(exc.problems, "request")) from None
+
+
+def _layer_of(field: str) -> int | None:
+    if field.startswith("layers[") and "]" in field:
+        inside = field[len("layers["):field.index("]")]
+        return int(inside) if inside.isdigit() else None
+    return None
+
+
+def _alternative_plan(request: NetworkRequest, alt: AlternativeSpec, i: int,
+                      limits: Limits) -> Plan:
+    layers = [lay.model_copy(update={"init": alt.init}) if lay.kind in OVERRIDDEN_KINDS else lay
+              for lay in request.layers]
+    modified = request.model_copy(update={"layers": layers})
+    problems = size_problems(modified, slots_by_layer(modified), limits)
+    plan: Plan | None = None
+    if not problems:
+        try:
+            plan = plan_request(modified)
+        except RequestRejected as exc:
+            problems = exc.problems
+    if problems:
+        out = []
+        for p in problems:
+            k = _layer_of(p.field)
+            where = (f"applied to layer {request.layers[k].name!r} (request.layers[{k}])"
+                     if k is not None else "applied to every weight layer")
+            code = p.code if p.code == "too_large" else "invalid_value"
+            out.append(Problem(f"alternatives[{i}].init", code, f"{where}: {p.message}"))
+        raise RequestRejected(out)
+    assert plan is not None
+    return plan
+
+
+def _bias_second_moment(t: TensorPlan | None) -> float:
+    if t is None:
+        return 0.0
+    if t.sampler == "constant":
+        if t.block_values is not None:
+            return sum(v * v for v in t.block_values) / len(t.block_values)
+        return t.scale * t.scale
+    return (t.std or 0.0) ** 2
+
+
+def _weight_variance_times_fan(step_layer: Any, t: TensorPlan) -> float | None:
+    """sigma_w^2 = fan-in times the variance of one weight; None for non-random weights."""
+    fan = math.prod(t.logical_shape[1:])
+    if step_layer.kind == "conv" and step_layer.transposed:
+        fan = fan / math.prod(step_layer.stride or [1])
+    if t.sampler in ("uniform", "normal", "truncated_normal") and t.std is not None:
+        return fan * t.std * t.std
+    if t.sampler == "orthogonal":
+        rows = t.logical_shape[0] // max(t.gate_blocks, 1)
+        cols = math.prod(t.logical_shape[1:])
+        # rows (or columns) of norm `gain`: mean square gain^2 / max(rows, cols)
+        return fan * t.scale * t.scale / max(rows, cols)
+    return None
+
+
+def _mean_field_entries(network: Network, plan: Plan) -> list[dict[str, Any]]:
+    """Mean-field figures per (activation, sigma_w^2, sigma_b^2) among hidden dense/conv
+    layers with random weights (the theory's i.i.d. zero-mean assumption)."""
+    by_name = {t.tensor: t for t in plan.tensors}
+    groups: dict[tuple[str, float | None, float, float], list[str]] = {}
+    for step in network.steps:
+        if step.kind not in ("dense", "conv") or step.role == "output":
+            continue
+        if step.activation == "softmax":
+            continue
+        t = by_name.get(f"{step.name}.weight")
+        if t is None:
+            continue
+        sw2 = _weight_variance_times_fan(step.layer, t)
+        if sw2 is None or not sw2 > 0:
+            continue
+        sb2 = _bias_second_moment(by_name.get(f"{step.name}.bias"))
+        key = (step.activation, step.activation_param, float(f"{sw2:.12g}"),
+               float(f"{sb2:.12g}"))
+        groups.setdefault(key, []).append(step.name)
+    out = []
+    for (act, param, sw2, sb2), names in groups.items():
+        try:
+            figures = mean_field(act, sw2, sb2, param)
+        except ValueError:  # pragma: no cover - activations are validated by the request
+            continue
+        entry = figures.as_dict()
+        entry["layers"] = names[:MEAN_FIELD_LAYERS_LISTED]
+        entry["layer_count"] = len(names)
+        out.append(entry)
+    return out
+
+
+def _limit_problems(batch: int, alternatives: int, dl: DiagnosticLimits) -> list[Problem]:
+    problems = []
+    if batch > dl.max_batch:
+        problems.append(Problem("batch", "too_large",
+                                f"batch {batch} is over the limit of {dl.max_batch} samples"))
+    if alternatives > dl.max_alternatives:
+        problems.append(Problem("alternatives", "too_large",
+                                f"{alternatives} alternatives given; the limit is "
+                                f"{dl.max_alternatives}"))
+    return problems
+
+
+def _sum_inverse_width(network: Network) -> float:
+    return sum(1.0 / s.out_features for s in network.steps
+               if s.on_main_path and s.role != "output")
+
+
+def diagnose(data: object, limits: Limits | None = None,
+             diagnostic_limits: DiagnosticLimits | None = None, *, threads: int = 1,
+             keep_arrays: bool = False) -> Diagnosis:
+    """Validate a diagnose body, refuse it if too costly, and run every alternative."""
+    limits = limits if limits is not None else Limits()
+    dl = diagnostic_limits if diagnostic_limits is not None else DiagnosticLimits()
+    body = parse_body(data)
+    problems = _limit_problems(body.batch, len(body.alternatives), dl)
+    if problems:
+        raise RequestRejected(problems)
+    request = _parse_inner(body.request, limits)
+    network = _network(request)
+    plans = [(RECOMMENDED, plan_request(request))]
+    alt_problems: list[Problem] = []
+    for i, alt in enumerate(body.alternatives):
+        try:
+            plans.append((alt.label, _alternative_plan(request, alt, i, limits)))
+        except RequestRejected as exc:
+            alt_problems += exc.problems
+    if alt_problems:
+        raise RequestRejected(alt_problems)
+    costs = [run_cost(network, plan, body.batch) for _, plan in plans]
+    problems = cost_problems(costs, body.batch, dl)
+    if problems:
+        raise RequestRejected(problems)
+    runs = []
+    for label, plan in plans:
+        sim = simulate(network, plan, body.batch, threads=threads, keep_arrays=keep_arrays)
+        runs.append(Run(label, plan, sim, judge(sim.records), _mean_field_entries(network, plan)))
+    return Diagnosis(network, body.batch, runs, _sum_inverse_width(network))
+
+
+# --- the document ----------------------------------------------------------------------------
+
+def _ratio(value: float | None, ref: float | None) -> float | None:
+    if value is None or ref is None or ref == 0.0:
+        return None
+    return value / ref
+
+
+def _layer_entry(r: LayerRecord, act_ref: float | None, grad_ref: float | None
+                 ) -> dict[str, Any]:
+    entry: dict[str, Any] = {
+        "layer": r.layer,
+        "index": r.index,
+        "kind": r.kind,
+        "activation": r.activation,
+        "branch": r.branch,
+        "main_path": r.main_path,
+        "units": r.units,
+        "activation_std": r.activation_std,
+        "activation_mean": r.activation_mean,
+        "activation_ratio": _ratio(r.activation_std, act_ref) if r.main_path else None,
+        "branch_output_std": r.branch_output_std,
+        "gradient_std": r.gradient_std,
+        "gradient_ratio": _ratio(r.gradient_std, grad_ref) if r.main_path else None,
+        "dead_fraction": r.dead_fraction,
+        "saturated_fraction": r.saturated_fraction,
+        "zero_weights": r.zero_weights,
+        "non_finite": r.non_finite,
+    }
+    assert r.twins is not None
+    entry.update(r.twins.as_dict())
+    return entry
+
+
+def _run_document(run: Run) -> dict[str, Any]:
+    records = run.simulation.records
+    main = [r for r in records if r.main_path]
+    act_ref = main[0].activation_std if main else None
+    grad_ref = main[-1].gradient_std if main else None
+    doc: dict[str, Any] = {"label": run.label}
+    doc.update(run.verdict.as_dict())
+    doc["mean_field"] = run.mean_field
+    doc["layers"] = [_layer_entry(r, act_ref, grad_ref) for r in records]
+    return doc
+
+
+def notice(d: Diagnosis) -> str:
+    return (
+        f"Estimates from one synthetic batch ({d.batch} samples of standard normal inputs, "
+        "fixed seed) pushed through the planned weights at initialisation: they show how the "
+        "signal and the gradients start out, not that training will succeed. At finite width "
+        "the signal's scale drifts from layer to layer like a random walk whose variance grows "
+        f"with the sum of 1/width over the layers ({short_cite('hanin-2018')}); here that sum "
+        f"is {d.sum_inverse_width:.3g}: the larger it is, the further one network's scales can "
+        "wander from the infinite-width picture, and the more these figures vary with the "
+        "seed. Mean-field figures are infinite-width estimates.")
+
+
+def diagnosis_document(d: Diagnosis) -> dict[str, Any]:
+    """The JSON-ready body of a diagnose response (deterministic for a given body)."""
+    return {
+        "notice": notice(d),
+        "simulation": {
+            "batch": d.batch,
+            "grid": list(d.network.input_grid),
+            "input": ("token ids uniform over the vocabulary" if d.network.vocab is not None
+                      else "standard normal values"),
+            "input_seed": INPUT_SEED,
+            "loss": "sum of the final output times a fixed standard normal projection: "
+                    "unit-variance gradients at the output",
+            "conv_padding": "circular (periodic): every position has the full fan-in",
+            "attention": "bidirectional over all positions, no mask",
+        },
+        "finite_width": {
+            "sum_inverse_width": d.sum_inverse_width,
+            "source": short_cite("hanin-2018"),
+        },
+        "definitions": {
+            "activation_std": "std over all values of the layer's output (after its "
+                              "activation; for a branch's last layer, after the residual sum)",
+            "gradient_std": "std of the loss gradient with respect to that output",
+            "band": [LOW, HIGH],
+            "activation_reference": "the first main-path layer's activation std",
+            "gradient_reference": "the gradient std at the network's output",
+            "dead": "rectifier family: pre-activation <= 0 for every value of the unit; "
+                    "tanh/sigmoid: derivative exactly 0 for every value; linear/softmax: never",
+            "saturated": dict(SATURATION_RULES),
+            "symmetric_share": SYMMETRIC_SHARE,
+        },
+        "runs": [_run_document(r) for r in d.runs],
+    }
+
+
+__all__ = ["Diagnosis", "Run", "diagnose", "diagnosis_document", "notice"]
