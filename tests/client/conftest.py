@@ -19,7 +19,6 @@ if str(ROOT / "client") not in sys.path:
     sys.path.insert(0, str(ROOT / "client"))
 
 from e2e.server import RunningServer, free_port, start_server  # noqa: E402
-
 from seedbed_client import Client, RetryPolicy  # noqa: E402
 
 
@@ -125,6 +124,8 @@ class FaultyProxy:
     Rules (the Nth connection uses `rules[N]`, the last rule repeats):
       "forward"      pass the request to the service and its whole answer back
       "cut"          forward, but send the head and only half the body, then close
+      "flip"         forward, with one bit of the body's last byte flipped (in safetensors
+                     that byte belongs to the last tensor's values)
       "unavailable"  answer 503 with Retry-After: 0 without asking the service
     """
 
@@ -178,6 +179,8 @@ class FaultyProxy:
                 conn.sendall(_close_after(answer_head) + answer_body[: len(answer_body) // 2])
                 conn.shutdown(socket.SHUT_RDWR)
                 return
+            if rule == "flip":
+                answer_body = answer_body[:-1] + bytes([answer_body[-1] ^ 0x01])
             conn.sendall(_close_after(answer_head) + answer_body)
 
     def close(self) -> None:

@@ -14,10 +14,10 @@ from pathlib import Path
 import httpx
 import numpy as np
 import pytest
+
 from e2e.networks import greenhouse_controller, harbor_crane_monitor
 from e2e.readback import read_body
 from e2e.server import RunningServer
-
 from seedbed_client import AsyncClient, Client, WeightSet
 
 

@@ -9,10 +9,9 @@ from pathlib import Path
 
 import httpx
 import pytest
+
 from e2e.networks import greenhouse_controller, single_dense
 from e2e.server import RunningServer
-
-from client.conftest import FAST_RETRY, FaultyProxy, dead_url
 from seedbed_client import (
     CacheCorrupted,
     Client,
@@ -24,6 +23,8 @@ from seedbed_client import (
     SpecInvalid,
     UnknownTensor,
 )
+
+from .conftest import FAST_RETRY, FaultyProxy, dead_url
 
 
 def _blobs(cache_dir: Path) -> list[Path]:
@@ -81,9 +82,10 @@ def test_corrupted_cache_entry_is_discarded_and_fetched_again(
     for name in good:
         assert again[name].tobytes() == good[name].tobytes()
     (repaired,) = _blobs(cache_dir)
-    assert repaired.read_bytes() != b"" and make_client(service.base_url).weights(
-        request, format="npz"
-    ).source == "revalidated"
+    assert (
+        repaired.read_bytes() != b""
+        and make_client(service.base_url).weights(request, format="npz").source == "revalidated"
+    )
 
 
 @pytest.mark.parametrize("damage", ["flip", "truncate", "delete-blob"])
