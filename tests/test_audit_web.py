@@ -416,3 +416,16 @@ def test_shifted_integer_and_unread_tensors(client: TestClient) -> None:
     # U(0, 1): mean 0.5 against std 1/sqrt(12) = 0.289 (a uniform distribution's moments).
     assert codes == {("shifted", "mean_offset"): "warning", ("steps", "not_float"): "note"}
     assert entry(report, "steps")["mean"] == 2.0
+
+
+def test_a_zero_output_layer_is_judged_as_one_with_the_request(client: TestClient) -> None:
+    arrays = _read_back(_weights(client, KILN, "npz"), "npz")
+    arrays["setpoint.weight"] = np.zeros_like(arrays["setpoint.weight"])
+    data = npz_bytes(**arrays)
+    described = send_form(client, data, KILN).json()
+    (zero,) = findings(described, "all_zero")[:1]
+    assert (zero["tensor"], zero["severity"]) == ("setpoint.weight", "warning")
+    assert "Fixup" in zero["message"]
+    alone = send_raw(client, data).json()  # without the request it cannot know the role
+    zero = next(f for f in findings(alone, "all_zero") if f["tensor"] == "setpoint.weight")
+    assert zero["severity"] == "error" and "send the request" in zero["message"]

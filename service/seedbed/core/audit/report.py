@@ -45,8 +45,8 @@ def _finite(x: float | None) -> float | None:
     return x if x is not None and math.isfinite(x) else None
 
 
-def _value_findings(name: str, ndim: int, stats: ValueStats,
-                    t: TensorPlan | None) -> list[Finding]:
+def _value_findings(name: str, ndim: int, stats: ValueStats, t: TensorPlan | None,
+                    is_output: bool = False) -> list[Finding]:
     out: list[Finding] = []
     if stats.nonfinite:
         out.append(Finding(name, "error", "non_finite",
@@ -60,13 +60,22 @@ def _value_findings(name: str, ndim: int, stats: ValueStats,
         if planned_constant:
             # Whether it is the planned constant is matching.py's job (not_as_planned).
             out.append(Finding(name, "note", code, f"{what}; the plan asks for a constant here"))
+        elif ndim >= 2 and is_output and stats.all_zero and t is not None:
+            # Output units differ through their targets, so zeros there do not trap them in
+            # symmetry; Fixup (Zhang et al. 2019) zero-initialises the classifier on purpose.
+            out.append(Finding(name, "warning", code,
+                               f"{what} in an output layer: a published choice (Fixup zeroes "
+                               "the classifier), but no gradient reaches earlier layers until "
+                               f"it moves, and the plan recommends {t.method} values"))
         elif ndim >= 2:
             out.append(Finding(name, "error", code,
                                f"{what}: every unit computes the same output at the start, and "
                                "units whose outgoing weights are equal too receive the same "
                                "updates forever (the symmetry random initialisation breaks)"
-                               + ("; no gradient reaches earlier layers through it either"
-                                  if stats.all_zero else "")))
+                               + ("; no gradient reaches earlier layers through it either. (A "
+                                  "zero output layer can be deliberate, as in Fixup: send the "
+                                  "request describing the network to have it judged as one)"
+                                  if stats.all_zero and t is None else "")))
         elif t is not None:
             out.append(Finding(name, "warning", code,
                                f"{what}; the plan recommends {t.method} values here"))
@@ -130,7 +139,8 @@ class _Budget:
 
 
 def _rank_part(name: str, units: np.ndarray, stored: StoredTensor, stats: ValueStats,
-               limits: AuditLimits, budget: _Budget) -> tuple[dict[str, Any] | None, list[Finding]]:
+               limits: AuditLimits, budget: _Budget,
+               has_twins: bool) -> tuple[dict[str, Any] | None, list[Finding]]:
     m, n = units.shape
     if stats.nonfinite or stats.all_constant or m < 2 or n < 2:
         return None, []
@@ -169,10 +179,11 @@ def _rank_part(name: str, units: np.ndarray, stored: StoredTensor, stats: ValueS
                                f"(tolerance {res.tolerance:.3g}): the layer's outputs start "
                                f"confined to {res.rank} directions")]
     if res.deficiency > 0:
+        why = ("the twin units account for some of them" if has_twins else
+               "a few such values occur in near-square matrices, more so in 16-bit dtypes")
         return entry, [Finding(name, "note", "near_degenerate",
                                f"{res.deficiency} singular value(s) of {res.full} are below the "
-                               f"tolerance {res.tolerance:.3g} in {scope}; a few such values "
-                               "occur in near-square matrices, more so in 16-bit dtypes")]
+                               f"tolerance {res.tolerance:.3g} in {scope}; {why}")]
     return entry, []
 
 
@@ -187,7 +198,9 @@ def _empty_entry(stored: StoredTensor) -> dict[str, Any]:
 
 
 def _audit_tensor(stored: StoredTensor, t: TensorPlan | None, layout: str | None,
-                  limits: AuditLimits, budget: _Budget) -> tuple[dict[str, Any], list[Finding]]:
+                  limits: AuditLimits, budget: _Budget,
+                  output_layers: frozenset[str] = frozenset()) -> tuple[dict[str, Any],
+                                                                        list[Finding]]:
     name = stored.name
     entry = _empty_entry(stored)
     findings: list[Finding] = []
@@ -217,7 +230,8 @@ def _audit_tensor(stored: StoredTensor, t: TensorPlan | None, layout: str | None
                                 f"{stored.dtype} values: listed with their statistics, but not "
                                 "checked as weights"))
         return entry, findings
-    findings += _value_findings(name, values.ndim, stats, matched)
+    is_output = matched is not None and matched.layer in output_layers
+    findings += _value_findings(name, values.ndim, stats, matched, is_output)
     if values.ndim >= 2:
         if matched is not None:
             units, blocks, source = logical_units(values, matched), matched.gate_blocks, \
@@ -232,7 +246,8 @@ def _audit_tensor(stored: StoredTensor, t: TensorPlan | None, layout: str | None
         if twins.groups and not stats.all_constant:
             chance = _chance_pairs(values, units, blocks)
             findings.append(_twin_finding(name, twins, chance, source))
-        entry["rank"], found = _rank_part(name, units, stored, stats, limits, budget)
+        entry["rank"], found = _rank_part(name, units, stored, stats, limits, budget,
+                                          bool(twins.groups))
         findings += found
     if matched is not None:
         entry["planned"], found = compare_with_plan(stored, values, stats, matched)
@@ -240,6 +255,12 @@ def _audit_tensor(stored: StoredTensor, t: TensorPlan | None, layout: str | None
     elif t is not None:
         entry["planned"], _ = compare_with_plan(stored, None, None, t)
     return entry, findings
+
+
+def _output_layers(plan: Plan) -> set[str]:
+    layers = plan.canonical_request.get("layers", [])
+    return {str(layer.get("name")) for layer in layers
+            if isinstance(layer, dict) and layer.get("role") == "output"}
 
 
 def audit_upload(fp: IO[bytes], size: int, limits: AuditLimits | None = None,
@@ -254,11 +275,12 @@ def audit_upload(fp: IO[bytes], size: int, limits: AuditLimits | None = None,
     upload = open_upload(fp, size, limits, bf16)
     planned = {t.tensor: t for t in plan.tensors} if plan else {}
     budget = _Budget(limits.rank_budget)
+    output_layers = frozenset(_output_layers(plan)) if plan else frozenset()
     findings = [Finding(None, "note", "ignored_member", note) for note in upload.notes]
     tensors = []
     for stored in upload.tensors:
         entry, found = _audit_tensor(stored, planned.get(stored.name),
-                                     plan.layout if plan else None, limits, budget)
+                                     plan.layout if plan else None, limits, budget, output_layers)
         tensors.append(entry)
         findings += found
     if plan is not None:
