@@ -16,14 +16,13 @@ end-to-end tests) and prints:
     latency percentiles, against GET /healthz (the cheapest round trip the service has) at the
     same concurrency.
 
-Every figure is a median of repeats on this machine at this moment; compare ratios, not
-absolute times, between machines.
+Times in (a) are the best of N repeats (the run least disturbed by other work on the machine);
+compare ratios, not absolute times, between machines.
 """
 
 from __future__ import annotations
 
 import argparse
-import statistics
 import sys
 import threading
 import time
@@ -43,21 +42,22 @@ from e2e.server import RunningServer, start_server  # noqa: E402
 SIDE = 4096
 
 
-def median_seconds(action: Callable[[], object], repeats: int) -> float:
+def best_seconds(action: Callable[[], object], repeats: int) -> float:
     action()  # warm-up: first-touch page faults, imports, connection set-up
     times = []
     for _ in range(repeats):
         started = time.perf_counter()
         action()
         times.append(time.perf_counter() - started)
-    return statistics.median(times)
+    # The fastest run is the one least disturbed by everything else on the machine.
+    return min(times)
 
 
 def numpy_baseline(count: int, repeats: int) -> float:
     def draw() -> np.ndarray:
         return np.random.default_rng().standard_normal(count, dtype=np.float32)
 
-    return median_seconds(draw, repeats)
+    return best_seconds(draw, repeats)
 
 
 def core_render(request: dict[str, Any], repeats: int, threads: int) -> float:
@@ -66,7 +66,7 @@ def core_render(request: dict[str, Any], repeats: int, threads: int) -> float:
 
     plan = build_plan(request)
     tensor = plan.tensors[0]
-    return median_seconds(lambda: render_rows(plan, tensor, threads=threads), repeats)
+    return best_seconds(lambda: render_rows(plan, tensor, threads=threads), repeats)
 
 
 def fetch_seconds(
@@ -84,7 +84,7 @@ def fetch_seconds(
                     received += len(piece)
             size = received
 
-        return median_seconds(fetch, repeats), size
+        return best_seconds(fetch, repeats), size
 
 
 def load(
@@ -152,7 +152,7 @@ def main(argv: list[str] | None = None) -> int:
             f"service: {server.base_url} (pid {server.pid}); numpy {np.__version__}; "
             f"generation threads {args.threads}"
         )
-        print(f"medians of {repeats} repeats after one warm-up\n")
+        print(f"times in (a): best of {repeats} repeats after one warm-up\n")
 
         request = single_dense(SIDE, SIDE, activation="relu")
         with httpx.Client(base_url=server.base_url, timeout=60) as http:
