@@ -9,6 +9,7 @@ Codes (our own vocabulary):
     non_finite        NaN or infinite values
     all_zero          every value is 0
     all_constant      every value is the same non-zero number
+    mean_offset       a matrix whose mean exceeds half its std (units start correlated)
     twin_units        groups of units with identical incoming weights
     rank_deficient    the matrix has fewer independent directions than its shape allows
     near_degenerate   one or a few singular values below the tolerance (see rank.py)
@@ -34,6 +35,12 @@ from typing import Literal
 
 Severity = Literal["error", "warning", "note"]
 SEVERITY_ORDER: dict[str, int] = {"error": 0, "warning": 1, "note": 2}
+FINDING_CODES = frozenset({
+    "non_finite", "all_zero", "all_constant", "mean_offset", "twin_units", "rank_deficient",
+    "near_degenerate", "rank_skipped", "scale_too_large", "scale_too_small", "scale_off",
+    "not_as_planned", "missing_tensor", "not_in_request", "shape_mismatch", "dtype_mismatch",
+    "not_float", "not_analysed", "empty_tensor", "ignored_member",
+})
 
 
 @dataclass(frozen=True)
@@ -42,6 +49,11 @@ class Finding:
     severity: Severity
     code: str
     message: str
+
+    def __post_init__(self) -> None:
+        if self.code not in FINDING_CODES or self.severity not in SEVERITY_ORDER:
+            raise ValueError(f"unknown finding code or severity: {self.code!r}, "
+                             f"{self.severity!r}")
 
     def as_dict(self) -> dict[str, str | None]:
         return {"tensor": self.tensor, "severity": self.severity, "code": self.code,

@@ -77,7 +77,12 @@ def _limits_of(request: Request) -> AuditLimits:
     state = request.app.state
     limits = getattr(state, "audit_limits", None)
     if not isinstance(limits, AuditLimits):
-        limits = audit_limits_from_env()
+        try:
+            limits = audit_limits_from_env()
+        except SettingsError as exc:
+            # Not the caller's fault: say what the operator must fix.
+            raise ApiError.one(500, MAX_AUDIT_ENV, "bad_setting",
+                               f"the service is misconfigured: {exc}") from None
         state.audit_limits = limits
     return limits
 
