@@ -184,3 +184,14 @@ def test_short_low_precision_rows_repeating_by_chance_are_only_a_warning() -> No
     report = audit_upload(io.BytesIO(data), len(data))
     (twin,) = [f for f in report["findings"] if f["code"] == "twin_units"]
     assert twin["severity"] == "warning" and "expected by chance" in twin["message"]
+
+
+def test_wide_rows_are_grouped_the_same_way(monkeypatch: pytest.MonkeyPatch) -> None:
+    from seedbed.core.audit import twins as twins_module
+
+    rng = np.random.default_rng(30)
+    rows = rng.standard_normal((12, 40)).astype(np.float32)
+    rows[[4, 8]] = rows[1]
+    narrow = twin_units(rows).groups
+    monkeypatch.setattr(twins_module, "WIDE_ROW_BYTES", 16)  # take the digest path
+    assert twin_units(rows).groups == narrow == ((1, 4, 8),)

@@ -267,3 +267,42 @@ def test_other_members_are_listed_as_notes_not_read() -> None:
     report = audit_upload(io.BytesIO(data), len(data))
     notes = [f for f in report["findings"] if f["code"] == "ignored_member"]
     assert len(notes) == 1 and "'README.txt'" in notes[0]["message"]
+
+
+def test_negative_npy_sizes_are_refused() -> None:
+    # numpy's header reader accepts any integers as sizes; (-1, -1) with 4 bytes of data would
+    # otherwise pass the size check (count 1) and fail later.
+    text = "{'descr': '<f4', 'fortran_order': False, 'shape': (-1, -1), }"
+    text += " " * (117 - len(text)) + "\n"
+    npy = b"\x93NUMPY\x01\x00" + len(text).to_bytes(2, "little") + text.encode() + bytes(4)
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w") as zf:
+        zf.writestr("w.npy", npy)
+    err = refused(buf.getvalue())
+    assert err.code == "corrupt_file" and "non-negative" in err.message
+
+
+@pytest.mark.parametrize("container", ["npz", "safetensors"])
+def test_damaged_files_are_refused_or_reported_never_crash(container: str) -> None:
+    # Random byte changes and truncations of valid files: every outcome is a report or an
+    # UploadRefused, never another exception (which the service would turn into a 500).
+    import random
+
+    rng = np.random.default_rng(0)
+    arrays = {"a.weight": rng.standard_normal((6, 5)).astype(np.float32),
+              "b": np.arange(4, dtype=np.int16), "c": np.zeros((2, 3), np.float16)}
+    base = npz_bytes(True, **arrays) if container == "npz" else safetensors_numpy.save(arrays)
+    pick = random.Random(7)
+    outcomes = {"report": 0, "refused": 0}
+    for _ in range(400):
+        data = bytearray(base)
+        for _ in range(pick.randint(1, 4)):
+            data[pick.randrange(len(data))] = pick.randrange(256)
+        if pick.random() < 0.2:
+            data = data[: pick.randrange(len(data))]
+        try:
+            audit_upload(io.BytesIO(bytes(data)), len(data))
+            outcomes["report"] += 1
+        except UploadRefused:
+            outcomes["refused"] += 1
+    assert outcomes["refused"] > 0 and sum(outcomes.values()) == 400

@@ -429,3 +429,13 @@ def test_a_zero_output_layer_is_judged_as_one_with_the_request(client: TestClien
     alone = send_raw(client, data).json()  # without the request it cannot know the role
     zero = next(f for f in findings(alone, "all_zero") if f["tensor"] == "setpoint.weight")
     assert zero["severity"] == "error" and "send the request" in zero["message"]
+
+
+def test_tensors_not_compared_still_carry_their_plan_entry(client: TestClient) -> None:
+    arrays = _read_back(_weights(client, KILN, "npz"), "npz")
+    arrays["flue.bias"] = np.zeros(8, np.int32)  # right shape, wrong kind
+    report = send_form(client, npz_bytes(**arrays), KILN).json()
+    t = entry(report, "flue.bias")
+    assert t["planned"]["dtype"] == "float32" and t["planned"]["ratio"] is None
+    codes = {f["code"] for f in findings(report) if f["tensor"] == "flue.bias"}
+    assert codes == {"dtype_mismatch", "not_float"}

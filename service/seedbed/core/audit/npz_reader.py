@@ -133,6 +133,11 @@ def _read_member_header(zf: zipfile.ZipFile, info: zipfile.ZipInfo,
     except _DAMAGE as exc:
         raise UploadRefused("corrupt_file",
                             f"member {name!r} is not a readable NPY array: {exc}") from None
+    if any(d < 0 for d in shape):
+        # numpy's header reader checks only that the sizes are integers.
+        raise UploadRefused("corrupt_file",
+                            f"member {name!r} declares shape {list(shape)}; sizes must be "
+                            "non-negative")
     return _MemberHeader(dtype, tuple(int(d) for d in shape), bool(fortran), offset)
 
 

@@ -210,6 +210,12 @@ def _audit_tensor(stored: StoredTensor, t: TensorPlan | None, layout: str | None
         if mismatch is not None:
             findings.append(mismatch)
             matched = None
+            entry["planned"], _ = compare_with_plan(stored, None, None, t)  # for reference
+    if matched is not None and (stored.load is None or stored.count == 0
+                                or not stored.is_float):
+        # Values that are not compared still get the plan entry and its dtype note.
+        entry["planned"], found = compare_with_plan(stored, None, None, matched)
+        findings += found
     if stored.load is None:
         findings.append(Finding(name, "warning", "not_analysed",
                                 stored.note or f"dtype {stored.dtype} is not analysed"))
@@ -252,8 +258,6 @@ def _audit_tensor(stored: StoredTensor, t: TensorPlan | None, layout: str | None
     if matched is not None:
         entry["planned"], found = compare_with_plan(stored, values, stats, matched)
         findings += found
-    elif t is not None:
-        entry["planned"], _ = compare_with_plan(stored, None, None, t)
     return entry, findings
 
 

@@ -12,9 +12,15 @@ rows in different blocks are not twins.
 
 from __future__ import annotations
 
+import hashlib
 from dataclasses import dataclass
 
 import numpy as np
+
+# Rows wider than this are grouped by SHA-256 digest (then checked byte for byte) instead of
+# being sorted as one opaque numpy value each: numpy caps such values' size, and sorting wide
+# keys compares them over and over.
+WIDE_ROW_BYTES = 1 << 16
 
 
 @dataclass(frozen=True)
@@ -27,10 +33,24 @@ class TwinGroups:
         return sum(len(g) for g in self.groups)
 
 
+def _wide_groups(rows: np.ndarray, offset: int) -> list[tuple[int, ...]]:
+    by_digest: dict[bytes, list[int]] = {}
+    for i in range(rows.shape[0]):
+        by_digest.setdefault(hashlib.sha256(rows[i].tobytes()).digest(), []).append(i)
+    out = []
+    for members in by_digest.values():
+        if len(members) > 1 and all(rows[members[0]].tobytes() == rows[j].tobytes()
+                                    for j in members[1:]):
+            out.append(tuple(i + offset for i in members))
+    return out
+
+
 def _groups_in(rows: np.ndarray, offset: int) -> list[tuple[int, ...]]:
     if rows.shape[0] < 2:
         return []
     width = rows.shape[1] * rows.dtype.itemsize
+    if width > WIDE_ROW_BYTES:
+        return _wide_groups(rows, offset)
     keys = np.ascontiguousarray(rows).view(np.dtype((np.void, width))).reshape(-1)
     _, inverse, counts = np.unique(keys, return_inverse=True, return_counts=True)
     repeated = np.flatnonzero(counts > 1)
