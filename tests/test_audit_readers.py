@@ -22,10 +22,11 @@ import ml_dtypes
 import numpy as np
 import pytest
 
+from conftest import require_oracle
 from seedbed.core.audit import AuditLimits, UploadRefused, audit_upload
 from seedbed.core.audit.upload import open_upload
 
-safetensors_numpy = pytest.importorskip("safetensors.numpy")
+safetensors_numpy = require_oracle("safetensors.numpy")
 
 
 def npz_bytes(compressed: bool = False, **arrays: np.ndarray) -> bytes:
@@ -117,7 +118,7 @@ def test_safetensors_values_equal_the_librarys_own_reading() -> None:
 
 
 def test_safetensors_bf16_is_read_as_bfloat16() -> None:
-    torch = pytest.importorskip("torch")
+    torch = require_oracle("torch")
     from safetensors.torch import save as torch_save
 
     values = torch.linspace(-2, 2, 10, dtype=torch.bfloat16).reshape(2, 5)

@@ -24,12 +24,13 @@ import pytest
 from fastapi import FastAPI
 from fastapi.testclient import TestClient
 
+from conftest import require_oracle
 from seedbed.core.audit import AuditLimits
 from seedbed.web import Settings, create_app
 from seedbed.web.routes import audit as audit_routes
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-safetensors_numpy = pytest.importorskip("safetensors.numpy")
+safetensors_numpy = require_oracle("safetensors.numpy")
 
 # An invented network: a kiln temperature regulator.
 KILN: dict[str, Any] = {
