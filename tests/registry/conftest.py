@@ -13,6 +13,7 @@ from collections.abc import Callable, Iterator
 from pathlib import Path
 
 import pytest
+from sqlalchemy import text
 
 from seedbed.registry import Registry, RegistryConfig, config_from_env, open_registry
 from seedbed.registry.keys import create_key
@@ -20,6 +21,7 @@ from seedbed.registry.keys import create_key
 from .pgcluster import Cluster, ClusterUnavailable, fresh_database, start_cluster
 
 BACKENDS = ("sqlite", "postgresql")
+DATA_TABLES = ("recipe_versions", "recipe_heads", "publish_keys")
 
 
 @pytest.fixture(scope="session")
@@ -49,12 +51,11 @@ def pg_url(pg_admin_url: str) -> Iterator[str]:
         yield url
 
 
-def env_for(backend: str, tmp_path: Path, request: pytest.FixtureRequest) -> dict[str, str]:
-    """SEEDBED_* variables that point a registry (or a server process) at a fresh database."""
-    if backend == "sqlite":
-        return {"SEEDBED_DATA_DIR": str(tmp_path / "data")}
-    url: str = request.getfixturevalue("pg_url")
-    return {"SEEDBED_DATABASE_URL": url}
+@pytest.fixture(scope="session")
+def pg_shared_url(pg_admin_url: str) -> Iterator[str]:
+    """One database for most tests; the `registry` fixture empties its tables before each."""
+    with fresh_database(pg_admin_url) as url:
+        yield url
 
 
 @pytest.fixture(params=BACKENDS)
@@ -64,7 +65,18 @@ def backend(request: pytest.FixtureRequest) -> str:
 
 @pytest.fixture
 def registry_env(backend: str, tmp_path: Path, request: pytest.FixtureRequest) -> dict[str, str]:
-    return env_for(backend, tmp_path, request)
+    """SEEDBED_* variables naming the test's database (a server process can use them too)."""
+    if backend == "sqlite":
+        return {"SEEDBED_DATA_DIR": str(tmp_path / "data")}
+    return {"SEEDBED_DATABASE_URL": request.getfixturevalue("pg_shared_url")}
+
+
+@pytest.fixture
+def empty_env(backend: str, tmp_path: Path, request: pytest.FixtureRequest) -> dict[str, str]:
+    """Like registry_env, but a database nobody has touched (not even migrated)."""
+    if backend == "sqlite":
+        return {"SEEDBED_DATA_DIR": str(tmp_path / "empty")}
+    return {"SEEDBED_DATABASE_URL": request.getfixturevalue("pg_url")}
 
 
 @pytest.fixture
@@ -75,6 +87,9 @@ def registry_config(registry_env: dict[str, str]) -> RegistryConfig:
 @pytest.fixture
 def registry(registry_config: RegistryConfig) -> Iterator[Registry]:
     opened = open_registry(registry_config)
+    if registry_config.backend == "postgresql":
+        with opened.engine.begin() as conn:
+            conn.execute(text(f"TRUNCATE {', '.join(DATA_TABLES)}"))
     yield opened
     opened.close()
 

@@ -8,7 +8,7 @@ from datetime import UTC, datetime
 import pytest
 from sqlalchemy import Column, Integer, MetaData, Table, func, inspect, select, text
 
-from seedbed.registry import RegistryConfig, migrations, open_registry
+from seedbed.registry import RegistryConfig, config_from_env, migrations, open_registry
 from seedbed.registry.engine import open_engine
 from seedbed.registry.keys import token_hash
 from seedbed.registry.prepare import prepare_recipe
@@ -21,6 +21,11 @@ HIVE = {"seed": 5150, "layers": [
     {"name": "verdict", "kind": "dense", "n_in": 8, "n_out": 3, "role": "output"},
 ]}
 TOKEN = "sbk1_0123456789abcdef_" + "A" * 43
+
+
+@pytest.fixture
+def empty_config(empty_env: dict[str, str]) -> RegistryConfig:
+    return config_from_env(empty_env)
 
 
 def _insert_v1_rows(config: RegistryConfig) -> None:
@@ -53,10 +58,10 @@ def _insert_v1_rows(config: RegistryConfig) -> None:
 
 
 def test_upgrade_from_version_1_keeps_and_completes_the_data(
-    registry_config: RegistryConfig,
+    empty_config: RegistryConfig,
 ) -> None:
-    _insert_v1_rows(registry_config)
-    registry = open_registry(registry_config)  # upgrades on open
+    _insert_v1_rows(empty_config)
+    registry = open_registry(empty_config)  # upgrades on open
     try:
         assert migrations.schema_version(registry.engine) == migrations.LATEST == 2
         with registry.engine.connect() as conn:
@@ -78,8 +83,8 @@ def test_upgrade_from_version_1_keeps_and_completes_the_data(
         registry.close()
 
 
-def test_upgraded_schema_matches_the_table_definitions(registry_config: RegistryConfig) -> None:
-    registry = open_registry(registry_config)
+def test_upgraded_schema_matches_the_table_definitions(empty_config: RegistryConfig) -> None:
+    registry = open_registry(empty_config)
     try:
         found = inspect(registry.engine)
         for table in metadata.sorted_tables:
@@ -90,8 +95,8 @@ def test_upgraded_schema_matches_the_table_definitions(registry_config: Registry
         registry.close()
 
 
-def test_a_database_from_a_newer_seedbed_is_refused(registry_config: RegistryConfig) -> None:
-    registry = open_registry(registry_config)
+def test_a_database_from_a_newer_seedbed_is_refused(empty_config: RegistryConfig) -> None:
+    registry = open_registry(empty_config)
     try:
         with registry.engine.begin() as conn:
             conn.execute(schema_steps.insert().values(
@@ -105,9 +110,9 @@ def test_a_database_from_a_newer_seedbed_is_refused(registry_config: RegistryCon
 
 
 def test_a_failing_step_leaves_no_trace(
-    registry_config: RegistryConfig, monkeypatch: pytest.MonkeyPatch
+    empty_config: RegistryConfig, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    engine = open_engine(registry_config)
+    engine = open_engine(empty_config)
     try:
         migrations.upgrade(engine)
 
@@ -128,14 +133,14 @@ def test_a_failing_step_leaves_no_trace(
         engine.dispose()
 
 
-def test_replicas_starting_together_migrate_once(registry_config: RegistryConfig) -> None:
+def test_replicas_starting_together_migrate_once(empty_config: RegistryConfig) -> None:
     errors: list[BaseException] = []
     start = threading.Barrier(4)
 
     def boot() -> None:
         try:
             start.wait()
-            open_registry(registry_config).close()
+            open_registry(empty_config).close()
         except BaseException as exc:
             errors.append(exc)
 
@@ -145,7 +150,7 @@ def test_replicas_starting_together_migrate_once(registry_config: RegistryConfig
     for t in threads:
         t.join()
     assert errors == []
-    engine = open_engine(registry_config)
+    engine = open_engine(empty_config)
     try:
         with engine.connect() as conn:
             versions = conn.execute(select(schema_steps.c.version)

@@ -151,7 +151,7 @@ def test_concurrent_processes_get_distinct_versions(
     env["PYTHONPATH"] = str(ROOT / "service")
     workers = [
         subprocess.Popen([sys.executable, str(Path(__file__).with_name("publish_worker.py")),
-                          "kiln", "10", token, str(go)],
+                          "kiln", "8", token, str(go)],
                          env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
         for _ in range(3)
     ]
@@ -161,5 +161,5 @@ def test_concurrent_processes_get_distinct_versions(
         out, err = w.communicate(timeout=120)
         assert w.returncode == 0, err
         got.extend(json.loads(out))
-    assert sorted(got) == list(range(1, 31))
-    assert [v.version for v in list_versions(registry.engine, "kiln")] == list(range(1, 31))
+    assert sorted(got) == list(range(1, 25))
+    assert [v.version for v in list_versions(registry.engine, "kiln")] == list(range(1, 25))

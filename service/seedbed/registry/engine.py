@@ -12,6 +12,8 @@ SQLite needs two corrections to be a safe shared store for several threads and p
 
 from __future__ import annotations
 
+import sqlite3
+import time
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -27,6 +29,24 @@ SQLITE_BUSY_MS = 30_000
 # A replica must notice an unreachable PostgreSQL quickly (readiness, a request's error).
 PG_CONNECT_TIMEOUT_S = 5
 _WRITE_OPTION = "seedbed_write"
+
+
+def _use_wal(cursor: Any) -> None:
+    """Switch the file to WAL (a persistent property of the file, so usually already done).
+
+    Switching takes an exclusive lock and SQLite does not run its busy handler for it: several
+    processes opening a new file at once would see "database is locked". Retry instead.
+    """
+    deadline = time.monotonic() + SQLITE_BUSY_MS / 1000
+    while True:
+        if str(cursor.execute("PRAGMA journal_mode").fetchone()[0]).lower() == "wal":
+            return
+        try:
+            cursor.execute("PRAGMA journal_mode = WAL")
+        except sqlite3.OperationalError as exc:
+            if "locked" not in str(exc) or time.monotonic() > deadline:
+                raise
+            time.sleep(0.01)
 
 
 def _sqlite_engine(url: str, pool_size: int) -> Engine:
@@ -47,7 +67,7 @@ def _sqlite_engine(url: str, pool_size: int) -> Engine:
         cursor = dbapi_connection.cursor()
         try:
             cursor.execute(f"PRAGMA busy_timeout = {SQLITE_BUSY_MS}")
-            cursor.execute("PRAGMA journal_mode = WAL")
+            _use_wal(cursor)
             cursor.execute("PRAGMA synchronous = FULL")
             cursor.execute("PRAGMA foreign_keys = ON")
         finally:
