@@ -15,6 +15,7 @@ from collections.abc import Mapping
 from pathlib import Path
 
 import httpx
+
 from e2e.server import (
     HOST,
     ROOT,

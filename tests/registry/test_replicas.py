@@ -17,8 +17,8 @@ from typing import Any
 
 import httpx
 import pytest
-from e2e.server import RunningServer
 
+from e2e.server import RunningServer
 from seedbed.registry import config_from_env, open_registry
 from seedbed.registry.keys import create_key
 
