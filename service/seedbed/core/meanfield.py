@@ -181,7 +181,7 @@ def length_map(activation: str, sigma_w2: float, sigma_b2: float, q: float,
 
 
 def _find_root(f: Callable[[float], float], lo: float, hi: float, flo: float, fhi: float,
-               rel: float = 1e-14) -> float:
+               rel: float = 1e-14, tol: float = 1e-300) -> float:
     """A root of f in [lo, hi] (lo < hi) where f(lo) and f(hi) differ in sign: Illinois regula
     falsi, with every fourth step a bisection so the bracket always shrinks."""
     if flo == 0.0:
@@ -190,7 +190,7 @@ def _find_root(f: Callable[[float], float], lo: float, hi: float, flo: float, fh
         return hi
     kept = 0  # +1: lo was kept last time, -1: hi was kept
     for step in range(300):
-        if hi - lo <= rel * max(abs(lo), abs(hi), 1e-300):
+        if hi - lo <= max(rel * max(abs(lo), abs(hi)), tol):
             break
         x = (lo * fhi - hi * flo) / (fhi - flo)
         if step % 4 == 3 or not lo < x < hi:
@@ -326,12 +326,14 @@ def _correlation_fixed_point(act: _Act, sw2: float, sb2: float, q_star: float) -
 
     lo, hi = 0.0, 1.0 - 1e-6
     hlo, hhi = h(lo), h(hi)
+    if abs(hlo) <= 1e-13:  # e.g. an odd activation without bias: c* = 0 exactly
+        return 0.0
     while hlo < 0 and lo > -1.0 + 1e-6:  # anti-correlated fixed points (rare)
         lo = max(-1.0 + 1e-6, lo - 0.5)
         hlo = h(lo)
     if hlo < 0 or hhi > 0:
         return 1.0  # no interior fixed point found: treat c* = 1
-    return _find_root(h, lo, hi, hlo, hhi, rel=1e-10)
+    return _find_root(h, lo, hi, hlo, hhi, rel=1e-10, tol=1e-11)
 
 
 def _depth(rate: float | None) -> float | None:

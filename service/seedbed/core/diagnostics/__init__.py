@@ -18,8 +18,8 @@ from seedbed.core.diagnostics.report import Diagnosis, diagnose, diagnosis_docum
 __all__ = [
     "DEFAULT_BATCH",
     "RECOMMENDED",
-    "DiagnosticLimits",
     "Diagnosis",
+    "DiagnosticLimits",
     "chart_html",
     "chart_svg",
     "diagnose",

@@ -133,8 +133,9 @@ def cost_problems(costs: list[Cost], batch: int, limits: DiagnosticLimits) -> li
         problems.append(Problem(
             "batch", "too_large",
             f"these diagnostics would take about {work:.3g} multiply-adds ({runs} run(s) at "
-            f"batch {batch}); the limit is {limits.max_multiply_adds} ({limits.max_multiply_adds:.3g}"
-            f"); try a batch of at most about {fit}, fewer alternatives or a smaller network"))
+            f"batch {batch}); the limit is {limits.max_multiply_adds} "
+            f"({limits.max_multiply_adds:.3g}); try a batch of at most about {fit}, fewer "
+            "alternatives or a smaller network"))
     if generated > limits.max_generated_values:
         problems.append(Problem(
             "alternatives", "too_large",

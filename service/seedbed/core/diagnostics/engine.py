@@ -14,6 +14,13 @@ Weights: each tensor exactly as served in the request's dtype (seedbed.core.rend
 logical (out_in) order; float16/bfloat16/float32 values are kept as float32 (exact) and every
 computation runs in float64.
 
+What a depth policy adds is applied the way the plan tells the model to apply it: a branch's
+output is multiplied by its 1-element "<branch>.gate" and "<branch>.multiplier" tensors, its
+input by the plan multiplier "residual_alpha" (DeepNorm: alpha * x + branch(x)); Fixup's
+scalar "<layer>.offset" is added to a layer's input and "<layer>.activation_offset" before its
+activation (both 0 at the start); "attention_logit_scale" multiplies an attention layer's
+logit scale. Learning-rate multipliers do not matter at initialisation.
+
 Per layer (`LayerRecord`), for its output y (after its activation; for the last layer of a
 residual branch, the stream after the residual sum, whose own branch output std is given too):
 std and mean over every value, the std of dL/dy, dead and saturated units (see unit_stats),
@@ -22,7 +29,6 @@ and twin units (see twins).
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -35,6 +41,8 @@ from seedbed.core.diagnostics.twins import (
     TwinSummary,
     incoming_rows,
     locked_groups,
+    outgoing_rows,
+    same_rows,
     summarise,
     twin_groups,
 )
@@ -67,6 +75,14 @@ class WeightStore:
 
     def __init__(self, plan: Plan, threads: int = 1) -> None:
         self._plan = plan
+        self._logit: dict[str, float] = {}
+        self._skip: dict[str, float] = {}
+        for entry in plan.multipliers:
+            target = {"attention_logit_scale": self._logit,
+                      "residual_alpha": self._skip}.get(str(entry.get("name")))
+            if target is not None:
+                for name in entry.get("applies_to", ()):
+                    target[str(name)] = float(entry["value"])
         self._by_name: dict[str, TensorPlan] = {t.tensor: t for t in plan.tensors}
         self._values: dict[str, np.ndarray] = {}
         self._threads = threads
@@ -76,6 +92,18 @@ class WeightStore:
 
     def has(self, name: str) -> bool:
         return name in self._by_name
+
+    def logit_scale(self, layer: str) -> float:
+        """The plan's factor on attention layer `layer`'s logit scale (1 when none)."""
+        return self._logit.get(layer, 1.0)
+
+    def skip_scale(self, branch: str) -> float:
+        """The plan's factor on the residual input of `branch` (DeepNorm's alpha; 1 when none)."""
+        return self._skip.get(branch, 1.0)
+
+    def scalar(self, name: str) -> float | None:
+        values = self(name)
+        return None if values is None else float(values.reshape(-1)[0])
 
     def __call__(self, name: str) -> FloatArray | None:
         t = self._by_name.get(name)
@@ -144,9 +172,9 @@ def _multiplier(store: WeightStore, branch: str) -> float:
     """Product of the branch's 1-element gate and multiplier tensors (1 when absent)."""
     m = 1.0
     for part in ("gate", "multiplier"):
-        values = store(f"{branch}.{part}")
-        if values is not None:
-            m *= float(values.reshape(-1)[0])
+        value = store.scalar(f"{branch}.{part}")
+        if value is not None:
+            m *= value
     return m
 
 
@@ -167,7 +195,7 @@ def simulate(network: Network, plan: Plan, batch: int, *, keep_arrays: bool = Fa
     if keep_arrays:
         sim.inputs = x
         sim.weights = store
-    saved: list[tuple[Any, Any, float, list[npt.NDArray[np.int64]]]] = []
+    saved: list[_Saved] = []
     skip: FloatArray | None = None
     with np.errstate(all="ignore"):
         for step in network.steps:
@@ -184,10 +212,26 @@ def simulate(network: Network, plan: Plan, batch: int, *, keep_arrays: bool = Fa
     return sim
 
 
+@dataclass
+class _Saved:
+    """What the backward pass needs from one layer's forward pass."""
+
+    cache: Any
+    slope: Any
+    branch_scale: float  # gate * multiplier on the branch output (branch ends)
+    skip_scale: float  # factor on the branch input in the residual sum (branch ends)
+    groups: list[npt.NDArray[np.int64]]
+
+
 def _forward_step(step: Step, x: Any, skip: FloatArray | None, store: WeightStore
-                  ) -> tuple[FloatArray, tuple[Any, Any, float, list[npt.NDArray[np.int64]]],
-                             LayerRecord]:
+                  ) -> tuple[FloatArray, _Saved, LayerRecord]:
+    offset = store.scalar(f"{step.name}.offset")  # Fixup's scalar before the layer (0 at start)
+    if offset is not None and step.kind != "embedding":
+        x = x + offset
     pre, cache = FORWARD[step.kind](step, x, store)
+    offset = store.scalar(f"{step.name}.activation_offset")  # Fixup, before the activation
+    if offset is not None:
+        pre = pre + offset
     act = activate(step.activation, step.activation_param, pre)
     del pre
     rows = incoming_rows(step, store)
@@ -202,29 +246,45 @@ def _forward_step(step: Step, x: Any, skip: FloatArray | None, store: WeightStor
         dead_fraction=float(np.mean(act.dead)) if act.dead.size else 0.0,
         saturated_fraction=act.saturated, zero_weights=zero,
     )
-    m = 1.0
+    m = alpha = 1.0
     if step.branch_end and step.branch is not None:
         assert skip is not None
         m = _multiplier(store, step.branch)
+        alpha = store.skip_scale(step.branch)
         record.branch_output_std = _finite(_std(own))
-        out = skip + m * own if m != 1.0 else skip + own
+        out = (alpha * skip if alpha != 1.0 else skip) + (m * own if m != 1.0 else own)
     else:
         out = own
     std, mean = _std(out), _mean(out)
     record.activation_std, record.activation_mean = _finite(std), _finite(mean)
     record.non_finite = not (np.isfinite(std) and np.isfinite(mean))
-    return out, (cache, act.slope, m, groups), record
+    return out, _Saved(cache, act.slope, m, alpha, groups), record
 
 
-def _backward(network: Network, saved: list[tuple[Any, Any, float, list[Any]]],
-              sim: Simulation, store: Callable[[str], FloatArray | None],
+def _locked(network: Network, pos: int, groups: list[npt.NDArray[np.int64]],
+            grad: FloatArray, store: WeightStore) -> list[bool]:
+    """Locked twin groups of step `pos` given the gradient of its own output (see twins.py)."""
+    if np.any(grad):
+        return locked_groups(groups, grad)
+    step = network.steps[pos]
+    following = network.steps[pos + 1] if pos + 1 < len(network.steps) else None
+    if step.branch_end or following is None or following.branch_start:
+        return [False] * len(groups)
+    blocks = outgoing_rows(following, store)
+    if blocks is None:
+        return [False] * len(groups)
+    return [same_rows(blocks, g) for g in groups]
+
+
+def _backward(network: Network, saved: list[_Saved], sim: Simulation, store: WeightStore,
               projection: FloatArray, keep_arrays: bool) -> None:
     g: FloatArray = projection
     pending: list[FloatArray] = []
     grads: list[FloatArray] = []
     for pos in range(len(network.steps) - 1, -1, -1):
         step = network.steps[pos]
-        cache, slope, m, groups = saved[pos]
+        entry = saved[pos]
+        m, groups = entry.branch_scale, entry.groups
         record = sim.records[pos]
         std = _std(g)
         record.gradient_std = _finite(std)
@@ -232,14 +292,15 @@ def _backward(network: Network, saved: list[tuple[Any, Any, float, list[Any]]],
         if keep_arrays:
             grads.append(g)
         if step.branch_end:
-            pending.append(g)
+            pending.append(g * entry.skip_scale if entry.skip_scale != 1.0 else g)
             g_own = g * m if m != 1.0 else g
         else:
             g_own = g
-        locked = locked_groups(groups, g_own) if groups else []
+        locked = _locked(network, pos, groups, g_own, store) if groups else []
         record.twins = summarise(step.out_features, groups, locked)
-        d_pre = activation_backward(step.activation, slope, g_own)
-        saved[pos] = (None, None, m, [])  # free the layer's cache as soon as it is used
+        d_pre = activation_backward(step.activation, entry.slope, g_own)
+        cache = entry.cache
+        entry.cache = entry.slope = None  # free the layer's cache as soon as it is used
         if step.kind == "embedding":
             break
         g = BACKWARD[step.kind](step, d_pre, cache, store)

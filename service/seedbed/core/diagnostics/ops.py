@@ -17,7 +17,8 @@ What is simulated, and how (stated because it differs from some frameworks):
   strided conv.
 * attention: bidirectional self-attention over all positions (no mask, no dropout); q, k, v
   projections split into `heads` heads of dim/heads, softmax(q k^T / sqrt(dim/heads)) v
-  (scaling by 1/sqrt(head dim) is common practice), heads concatenated, output projection.
+  (scaling by 1/sqrt(head dim) is common practice; a plan multiplier "attention_logit_scale"
+  for the layer multiplies it), heads concatenated, output projection.
 * norm: layer normalisation over the features at each position, (x - mean)/sqrt(var + 1e-5)
   (population variance; eps 1e-5 is common practice), times scale plus shift.
 * embedding: rows of the table looked up by token id.
@@ -28,7 +29,7 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Callable
-from typing import Any
+from typing import Any, Protocol
 
 import numpy as np
 import numpy.typing as npt
@@ -36,7 +37,16 @@ import numpy.typing as npt
 from seedbed.core.diagnostics.network import Step
 
 FloatArray = npt.NDArray[np.float64]
-WeightLookup = Callable[[str], "FloatArray | None"]  # tensor name -> logical float64 values
+
+
+class WeightLookup(Protocol):
+    """Tensor name -> logical float64 values (None when the plan has no such tensor), and the
+    factor a plan's multipliers put on an attention layer's 1/sqrt(head dim) logit scale."""
+
+    def __call__(self, name: str) -> FloatArray | None: ...
+
+    def logit_scale(self, layer: str) -> float: ...
+
 
 NORM_EPS = 1e-5
 
@@ -101,6 +111,13 @@ def _taps(kernel_shape: tuple[int, ...]) -> list[tuple[tuple[int, ...], tuple[in
     return out
 
 
+def _tap(weight: FloatArray, tap: tuple[int, ...]) -> FloatArray:
+    """The (c_out, c_in/groups) matrix of one kernel position."""
+    index: tuple[Any, ...] = (slice(None), slice(None), *tap)
+    result: FloatArray = weight[index]
+    return result
+
+
 def _correlate(u: FloatArray, weight: FloatArray, groups: int, mirror: bool) -> FloatArray:
     """Stride-1 periodic correlation of u (B, *grid, c_in) with weight (c_out, c_in/g, *k)."""
     axes = tuple(range(1, u.ndim - 1))
@@ -111,7 +128,7 @@ def _correlate(u: FloatArray, weight: FloatArray, groups: int, mirror: bool) -> 
         # roll by -offset reads u[p + offset]; the mirrored kernel reads u[p - offset]
         shift = offset if mirror else tuple(-o for o in offset)
         moved = np.roll(u, shift, axis=axes) if any(shift) else u
-        flat_out += _grouped(_rows(moved), weight[(slice(None), slice(None), *tap)], groups)
+        flat_out += _grouped(_rows(moved), _tap(weight, tap), groups)
     return out
 
 
@@ -121,7 +138,7 @@ def _correlate_back(dy: FloatArray, weight: FloatArray, groups: int, mirror: boo
     du = np.zeros((*dy.shape[:-1], c_in), dtype=np.float64)
     rows = _rows(dy)
     for tap, offset in _taps(tuple(weight.shape[2:])):
-        part = _grouped_back(rows, weight[(slice(None), slice(None), *tap)], groups)
+        part = _grouped_back(rows, _tap(weight, tap), groups)
         part = part.reshape(du.shape)
         shift = tuple(-o for o in offset) if mirror else offset
         du += np.roll(part, shift, axis=axes) if any(shift) else part
@@ -187,18 +204,17 @@ def attention_forward(step: Step, x: FloatArray, w: WeightLookup) -> tuple[Float
         return y.reshape(b, p, h, dh).transpose(0, 2, 1, 3)  # (B, H, P, dh)
 
     q, k, v = heads("query"), heads("key"), heads("value")
-    scale = 1.0 / math.sqrt(dh)
+    scale = w.logit_scale(step.name) / math.sqrt(dh)
     a = _softmax(np.matmul(q, k.transpose(0, 1, 3, 2)) * scale)
     ctx = np.matmul(a, v).transpose(0, 2, 1, 3).reshape(b * p, d)
     out = _project(ctx, w, f"{step.name}.output")
-    return out.reshape(x.shape), (q, k, v, a)
+    return out.reshape(x.shape), (q, k, v, a, scale)
 
 
 def attention_backward(step: Step, dy: FloatArray, cache: Any, w: WeightLookup) -> FloatArray:
-    q, k, v, a = cache
+    q, k, v, a, scale = cache
     b, h, p, dh = q.shape
     d = h * dh
-    scale = 1.0 / math.sqrt(dh)
     dctx = _rows(dy) @ _need(w, f"{step.name}.output.weight")
     dctx = dctx.reshape(b, p, h, dh).transpose(0, 2, 1, 3)
     da = np.matmul(dctx, v.transpose(0, 1, 3, 2))

@@ -10,6 +10,12 @@ the first update separates them. `locked_groups` checks this on the synthetic ba
 group is *locked* when the gradients of its units agree at every sample and position (up to
 1e-9 of the layer's largest gradient, which absorbs summation-order rounding).
 
+When the gradient reaching a layer is exactly zero everywhere (a zero-initialised layer above
+it, as in Fixup), the batch cannot tell; then the twins count as locked only if the next layer
+also has identical incoming columns for them (`outgoing_rows`), so that no update of the layers
+above can ever treat them differently. Twins whose output goes into a residual sum, or also
+along a skip path, are not locked: the sum adds them to different stream units.
+
 Incoming weights per kind (rows in the out_in logical order, as served with layout out_in):
 
     dense       row i of the weight, then bias i
@@ -67,6 +73,40 @@ def incoming_rows(step: Step,
         assert table is not None
         return [table.T]
     return None
+
+
+def outgoing_rows(step: Step,
+                  lookup: Callable[[str], FloatArray | None]) -> list[FloatArray] | None:
+    """One row per *input* feature of `step`: the weights that feature is multiplied by (None
+    for kinds where a feature's influence is not a column of weights)."""
+    name = step.name
+    if step.kind == "dense":
+        weight = lookup(f"{name}.weight")
+        assert weight is not None
+        return [weight.T]
+    if step.kind == "conv":
+        weight = lookup(f"{name}.weight")
+        assert weight is not None
+        g = step.layer.groups
+        c_out, c_in_g = weight.shape[0], weight.shape[1]
+        # input channel gi*c_in_g + a feeds output channels of group gi through weight[., a]
+        per_group = weight.reshape(g, c_out // g, c_in_g, -1).transpose(0, 2, 1, 3)
+        rows = per_group.reshape(g * c_in_g, -1)
+        group = np.repeat(np.arange(g, dtype=np.float64), c_in_g).reshape(-1, 1)
+        return [rows, group]
+    if step.kind == "attention":
+        parts = [lookup(f"{name}.{p}.weight") for p in ("query", "key", "value")]
+        return [p.T for p in parts if p is not None]
+    return None
+
+
+def same_rows(blocks: list[FloatArray], group: IntArray) -> bool:
+    """Are the rows `group` exactly equal in every block?"""
+    for block in blocks:
+        rows = _bits(block[group])
+        if not np.array_equal(rows, np.broadcast_to(rows[:1], rows.shape)):
+            return False
+    return True
 
 
 # Columns sampled for a row's fingerprint; equal rows always share it, and random rows differ
@@ -165,6 +205,8 @@ __all__ = [
     "TwinSummary",
     "incoming_rows",
     "locked_groups",
+    "outgoing_rows",
+    "same_rows",
     "summarise",
     "twin_groups",
 ]
