@@ -17,6 +17,7 @@ import pickle
 import struct
 import zipfile
 from pathlib import Path
+from types import ModuleType
 
 import ml_dtypes
 import numpy as np
@@ -26,7 +27,10 @@ from conftest import require_oracle
 from seedbed.core.audit import AuditLimits, UploadRefused, audit_upload
 from seedbed.core.audit.upload import open_upload
 
-safetensors_numpy = require_oracle("safetensors.numpy")
+
+def st() -> ModuleType:
+    """The safetensors library's numpy API: the reference writer and reader."""
+    return require_oracle("safetensors.numpy")
 
 
 def npz_bytes(compressed: bool = False, **arrays: np.ndarray) -> bytes:
@@ -107,9 +111,9 @@ def test_safetensors_values_equal_the_librarys_own_reading() -> None:
         "flags": np.array([True, False]),
         "empty": np.zeros((0, 3), np.float32),
     }
-    data = safetensors_numpy.save(arrays, metadata={"note": "invented"})
+    data = st().save(arrays, metadata={"note": "invented"})
     upload = open_upload(io.BytesIO(data), len(data), AuditLimits())
-    reference = safetensors_numpy.load(data)
+    reference = st().load(data)
     assert upload.container == "safetensors"
     assert {t.name for t in upload.tensors} == set(arrays)
     for t in upload.tensors:
@@ -165,7 +169,7 @@ def test_bad_safetensors_headers_are_refused_naming_the_problem(
 
 
 def test_safetensors_header_length_past_the_end_and_bad_json() -> None:
-    good = safetensors_numpy.save({"w": np.ones(4, np.float32)})
+    good = st().save({"w": np.ones(4, np.float32)})
     err = refused(struct.pack("<Q", 10**6) + good[8:])
     assert err.code == "truncated_file" and "header length is 1000000" in err.message
     err = refused(struct.pack("<Q", 5) + b'{"w":' + b"\0" * 8)
@@ -292,7 +296,7 @@ def test_damaged_files_are_refused_or_reported_never_crash(container: str) -> No
     rng = np.random.default_rng(0)
     arrays = {"a.weight": rng.standard_normal((6, 5)).astype(np.float32),
               "b": np.arange(4, dtype=np.int16), "c": np.zeros((2, 3), np.float16)}
-    base = npz_bytes(True, **arrays) if container == "npz" else safetensors_numpy.save(arrays)
+    base = npz_bytes(True, **arrays) if container == "npz" else st().save(arrays)
     pick = random.Random(7)
     outcomes = {"report": 0, "refused": 0}
     for _ in range(400):

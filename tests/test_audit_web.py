@@ -16,6 +16,7 @@ import math
 import os
 from collections.abc import Callable
 from pathlib import Path
+from types import ModuleType
 from typing import Any
 
 import anyio
@@ -30,7 +31,11 @@ from seedbed.web import Settings, create_app
 from seedbed.web.routes import audit as audit_routes
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-safetensors_numpy = require_oracle("safetensors.numpy")
+
+
+def st() -> ModuleType:
+    """The safetensors library's numpy API: the reference writer and reader."""
+    return require_oracle("safetensors.numpy")
 
 # An invented network: a kiln temperature regulator.
 KILN: dict[str, Any] = {
@@ -69,7 +74,7 @@ def npz_bytes(**arrays: np.ndarray) -> bytes:
 
 
 def safetensors_bytes(**arrays: np.ndarray) -> bytes:
-    return bytes(safetensors_numpy.save(arrays))
+    return bytes(st().save(arrays))
 
 
 WRITERS: dict[str, Callable[..., bytes]] = {"npz": npz_bytes, "safetensors": safetensors_bytes}
@@ -178,7 +183,7 @@ def _weights(client: TestClient, request: dict[str, Any], fmt: str) -> bytes:
 
 def _read_back(data: bytes, fmt: str) -> dict[str, np.ndarray]:
     if fmt == "safetensors":
-        return dict(safetensors_numpy.load(data))
+        return dict(st().load(data))
     with np.load(io.BytesIO(data), allow_pickle=False) as npz:
         return {k: npz[k] for k in npz.files}
 
