@@ -284,3 +284,24 @@ def test_node_example_exit_codes(
     assert refused.returncode == 3 and "[layers]" in refused.stderr
     assert _run_node(dead_url(), str(request_file)).returncode == 4
     assert _run_node(service.base_url).returncode == 2
+
+
+def test_python_example_runs(service: RunningServer, tmp_path: Path) -> None:
+    environ = {k: v for k, v in os.environ.items() if not k.startswith("SEEDBED_")}
+    environ["PYTHONPATH"] = str(ROOT / "client")
+    environ["SEEDBED_CACHE_DIR"] = str(tmp_path / "cache")
+    done = subprocess.run(
+        [
+            sys.executable,
+            str(ROOT / "client" / "examples" / "frost_alarm.py"),
+            "--server",
+            service.base_url,
+        ],
+        capture_output=True,
+        text=True,
+        env=environ,
+        timeout=120,
+    )
+    assert done.returncode == 0, done.stderr
+    assert "weights from service" in done.stdout
+    assert "sensors.0.weight" in done.stdout and "probability before training" in done.stdout
