@@ -29,6 +29,7 @@ from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.problems import BODY, Problem, RequestRejected
 from seedbed.core.references import short_cite
 from seedbed.core.spec import NetworkRequest, parse_request
+from seedbed.core.structure import relocate_problems
 from seedbed.core.tensors import slots_by_layer
 
 OVERRIDDEN_KINDS = frozenset({"dense", "conv", "attention", "embedding"})
@@ -64,11 +65,15 @@ def _parse_inner(data: object, limits: Limits) -> NetworkRequest:
         raise RequestRejected(_prefixed(exc.problems, "request")) from None
 
 
-def _network(request: NetworkRequest) -> Network:
+def _network(raw: object, request: NetworkRequest) -> Network:
     try:
         return build_network(request)
     except RequestRejected as exc:
-        raise RequestRejected(_prefixed(exc.problems, "request")) from None
+        problems = exc.problems
+        layers = raw.get("layers") if isinstance(raw, dict) else None
+        if isinstance(layers, list):  # block shorthands: point at the layers as written
+            problems = relocate_problems(problems, layers, request)
+        raise RequestRejected(_prefixed(problems, "request")) from None
 
 
 def _layer_of(field: str) -> int | None:
@@ -94,8 +99,9 @@ def _alternative_plan(request: NetworkRequest, alt: AlternativeSpec, i: int,
         out = []
         for p in problems:
             k = _layer_of(p.field)
-            where = (f"applied to layer {request.layers[k].name!r} (request.layers[{k}])"
-                     if k is not None else "applied to every weight layer")
+            where = (f"applied to layer {request.layers[k].name!r}"
+                     if k is not None and k < len(request.layers)
+                     else "applied to every weight layer")
             code = p.code if p.code == "too_large" else "invalid_value"
             out.append(Problem(f"alternatives[{i}].init", code, f"{where}: {p.message}"))
         raise RequestRejected(out)
@@ -189,7 +195,7 @@ def diagnose(data: object, limits: Limits | None = None,
     if problems:
         raise RequestRejected(problems)
     request = _parse_inner(body.request, limits)
-    network = _network(request)
+    network = _network(body.request, request)
     plans = [(RECOMMENDED, plan_request(request))]
     alt_problems: list[Problem] = []
     for i, alt in enumerate(body.alternatives):
