@@ -299,7 +299,7 @@ def test_manifests_validate_against_the_kubernetes_schemas() -> None:
     found = manifests()
     assert set(found) == {"ConfigMap", "Deployment", "Service", "HorizontalPodAutoscaler",
                           "PodDisruptionBudget"}
-    for kind, doc in found.items():
+    for doc in found.values():
         kv.validate(doc, KUBERNETES_VERSION, strict=True)  # raises on any schema violation
     # The validator does catch mistakes: a misspelt field and a wrong type both fail.
     broken = yaml.safe_load(yaml.safe_dump(found["Deployment"]))
@@ -333,7 +333,7 @@ def test_deployment_probes_resources_shutdown_and_shared_database() -> None:
     assert "SEEDBED_DATA_DIR" not in settings and "SEEDBED_DATABASE_URL" not in settings
     assert not any(v.get("persistentVolumeClaim") for v in pod.get("volumes", []))
     # Same user and port as the image.
-    user = [r for w, r in final_stage() if w == "USER"][0].split(":")[0]
+    user = next(r for w, r in final_stage() if w == "USER").split(":")[0]
     assert pod["securityContext"]["runAsNonRoot"] is True
     assert str(pod["securityContext"]["runAsUser"]) == user
     (port,) = container["ports"]
