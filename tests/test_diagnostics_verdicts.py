@@ -18,6 +18,7 @@ Outside references:
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 from typing import Any
@@ -68,7 +69,7 @@ def test_tiny_uniform_vanishes_within_ten_layers(deep_relu: dict[str, Any]) -> N
     assert run["failed_index"] < 10 and run["failed_at"] == f"h{run['failed_index']}"
     # He et al. 2015's derivation: each layer multiplies the std by sqrt(n Var[w] / 2)
     predicted = math.sqrt(WIDTH * BOUND**2 / 3 / 2)
-    for below, above in zip(layers[1:8], layers[2:9], strict=True):
+    for below, above in itertools.pairwise(layers[1:9]):
         assert above["activation_std"] / below["activation_std"] == pytest.approx(predicted,
                                                                                  rel=0.1)
 
