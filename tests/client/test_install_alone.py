@@ -44,13 +44,14 @@ print(json.dumps({"installed": sorted(installed - baseline), "wanted": sorted(wa
 """
 
 
-def _run(*args: str, timeout: float = 300) -> subprocess.CompletedProcess[str]:
+def _run(*args: str, cwd: Path, timeout: float = 300) -> subprocess.CompletedProcess[str]:
+    # Outside the checkout, so nothing in it (an egg-info, the packages) is importable.
     env = {k: v for k, v in os.environ.items() if k not in ("PYTHONPATH", "VIRTUAL_ENV")}
-    return subprocess.run(args, capture_output=True, text=True, env=env, timeout=timeout)
+    return subprocess.run(args, capture_output=True, text=True, env=env, cwd=cwd, timeout=timeout)
 
 
-def _names(python: Path) -> list[str]:
-    done = _run(str(python), "-m", "pip", "list", "--format=json")
+def _names(python: Path, cwd: Path) -> list[str]:
+    done = _run(str(python), "-m", "pip", "list", "--format=json", cwd=cwd)
     assert done.returncode == 0, done.stderr
     return [item["name"] for item in json.loads(done.stdout)]
 
@@ -58,22 +59,24 @@ def _names(python: Path) -> list[str]:
 @pytest.mark.slow
 def test_client_installs_alone_with_only_its_dependencies(tmp_path: Path) -> None:
     venv = tmp_path / "venv"
-    made = _run(sys.executable, "-m", "venv", str(venv))
+    made = _run(sys.executable, "-m", "venv", str(venv), cwd=tmp_path)
     assert made.returncode == 0, made.stderr
     python = venv / ("Scripts/python.exe" if os.name == "nt" else "bin/python")
-    baseline = _names(python)  # pip (and setuptools on older Pythons) come with every venv
+    baseline = _names(
+        python, tmp_path
+    )  # pip (and setuptools on older Pythons) come with every venv
 
-    install = _run(str(python), "-m", "pip", "install", "-q", str(ROOT / "client"))
+    install = _run(str(python), "-m", "pip", "install", "-q", str(ROOT / "client"), cwd=tmp_path)
     assert install.returncode == 0, install.stdout + install.stderr
 
-    closure = _run(str(python), "-c", _CLOSURE_SCRIPT, json.dumps(baseline))
+    closure = _run(str(python), "-c", _CLOSURE_SCRIPT, json.dumps(baseline), cwd=tmp_path)
     assert closure.returncode == 0, closure.stderr
     found = json.loads(closure.stdout)
     assert found["installed"] == found["wanted"]
     assert {"seedbed-client", "httpx", "numpy"} <= set(found["installed"])
     assert not {"seedbed", "torch", "ml-dtypes", "fastapi", "pydantic"} & set(found["installed"])
 
-    helped = _run(str(python), "-m", "seedbed_client", "--help")
+    helped = _run(str(python), "-m", "seedbed_client", "--help", cwd=tmp_path)
     assert helped.returncode == 0 and "verify" in helped.stdout, helped.stderr
     api = _run(
         str(python),
@@ -85,6 +88,7 @@ def test_client_installs_alone_with_only_its_dependencies(tmp_path: Path) -> Non
         "assert Client('http://127.0.0.1:1', cache=False).base_url; "
         "assert (pathlib.Path(s.__file__).parent / 'py.typed').is_file(); "
         "print(s.__file__)",
+        cwd=tmp_path,
     )
     assert api.returncode == 0, api.stderr
     assert str(venv) in api.stdout  # the installed copy, not the checkout
