@@ -19,7 +19,8 @@ from e2e.server import RunningServer
 from seedbed_client import Client, SpecInvalid
 
 torch = require_oracle("torch")
-nn = torch.nn
+from torch import nn  # noqa: E402 - only once the oracle check above has passed
+
 adapter = pytest.importorskip("seedbed_client.torch_adapter")
 
 
