@@ -338,3 +338,16 @@ def test_body_is_not_mutated() -> None:
     body = copy.deepcopy(TIDE_LM)
     parse_request(body)
     assert body == TIDE_LM
+
+
+@pytest.mark.parametrize("kind", [{}, [], None, 3, True])
+def test_any_json_kind_is_refused_cleanly(kind: object) -> None:
+    # Found by the schema fuzz test: an unhashable kind must be a 422, not a crash.
+    err = rejected({"seed": 1, "layers": [block(repeat=2), {**block(name="b"), "kind": kind}]})
+    assert fields(err)[0][0] == "layers[1].kind"
+
+
+@pytest.mark.parametrize("name", [{}, [], None, 3])
+def test_any_json_policy_name_is_refused_cleanly(name: object) -> None:
+    err = rejected({"seed": 1, "layers": [block()], "depth_policy": {"name": name}})
+    assert fields(err) == [("depth_policy.name", "invalid_value")]

@@ -59,12 +59,20 @@ MAP_KINDS: frozenset[str] = frozenset({"dense", "conv", "attention", "recurrent"
 # Counting and expanding block shorthands
 
 
+def _is_block(item: object) -> bool:
+    """A raw layer item that names a block kind (kind may be any JSON value here)."""
+    if not isinstance(item, Mapping):
+        return False
+    kind = item.get("kind")
+    return isinstance(kind, str) and kind in BLOCK_MODELS
+
+
 def _raw_count(item: object) -> int:
     """Layers a raw layer item stands for, from its numbers alone (1 for anything unclear).
 
     Anything malformed counts as one layer here and is reported by validation afterwards.
     """
-    if not isinstance(item, dict) or item.get("kind") not in BLOCK_MODELS:
+    if not isinstance(item, Mapping) or not _is_block(item):
         return 1
     repeat = item.get("repeat", 1)
     if isinstance(repeat, bool) or not isinstance(repeat, int) or repeat < 1:
@@ -314,7 +322,7 @@ def relocate_problems(problems: Sequence[Problem], raw_layers: Sequence[Any],
     """
     origin: list[tuple[int, bool]] = []
     for j, item in enumerate(raw_layers):
-        is_block = isinstance(item, Mapping) and item.get("kind") in BLOCK_MODELS
+        is_block = _is_block(item)
         origin.extend([(j, is_block)] * _raw_count(item))
     if not any(is_block for _, is_block in origin) or len(origin) != len(request.layers):
         return list(problems)
