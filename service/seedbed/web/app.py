@@ -16,7 +16,8 @@ from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
-from seedbed.web.routes import ops, plan, weights
+from seedbed.core.audit import AuditLimits
+from seedbed.web.routes import audit, ops, plan, weights
 from seedbed.web.settings import Settings
 
 DESCRIPTION = (
@@ -57,14 +58,16 @@ def create_app(
         openapi_tags=[
             {"name": "weights", "description": "Plans, weights and the catalog."},
             {"name": "operations", "description": "Liveness, readiness and metrics."},
+            {"name": "audit", "description": "Checks of existing weights files."},
         ],
     )
     app.state.settings = settings
     app.state.metrics = metrics
     app.state.readiness = None
+    app.state.audit_limits = AuditLimits(max_upload_bytes=settings.max_audit_bytes)
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
-    for router in (plan.router, weights.router, ops.router):
+    for router in (plan.router, weights.router, audit.router, ops.router):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):

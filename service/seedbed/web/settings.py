@@ -86,6 +86,8 @@ class Settings:
     generation_threads: int = 1
     # Size of the pieces a response is generated and sent in: the memory a stream holds at once.
     chunk_bytes: int = 4 << 20
+    # Largest weights file POST /v1/audit accepts (read in a spool, never all in memory).
+    max_audit_bytes: int = 256 << 20
     limits: Limits = field(default_factory=Limits)
 
     @classmethod
@@ -116,6 +118,7 @@ _PARSERS: dict[str, Callable[[str, str], Any]] = {
     "max_json_response_bytes": _int_in(1024, 16 * _GIB),
     "generation_threads": _int_in(1, 256),
     "chunk_bytes": _int_in(4096, _GIB),
+    "max_audit_bytes": _int_in(1024, 64 * _GIB),
 }
 
 
