@@ -3,6 +3,10 @@
 from __future__ import annotations
 
 import copy
+import json
+import math
+import re
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -351,3 +355,16 @@ def test_any_json_kind_is_refused_cleanly(kind: object) -> None:
 def test_any_json_policy_name_is_refused_cleanly(name: object) -> None:
     err = rejected({"seed": 1, "layers": [block()], "depth_policy": {"name": name}})
     assert fields(err) == [("depth_policy.name", "invalid_value")]
+
+
+def test_the_example_in_the_depth_guide_is_valid_and_as_described() -> None:
+    text = (Path(__file__).resolve().parents[1] / "docs" / "depth.md").read_text()
+    blocks = re.findall(r"```json\n(.*?)```", text, flags=re.S)
+    assert blocks
+    for raw in blocks:
+        body = json.loads(raw)
+        request = parse_request(body)
+        plan = build_plan(body)
+        assert len(request.layers) == 243  # as the guide says: 1 + 48 x 5 + 2
+        assert len(branches_of(request)) == 96
+        assert plan.tensor("enc.47.mlp_out.weight").std == 0.02 / math.sqrt(96)
