@@ -11,12 +11,12 @@ from fastapi.routing import APIRoute
 from starlette.routing import Route
 
 from seedbed import __version__
+from seedbed.core.audit import AuditLimits
 from seedbed.web.errors import install_error_handlers
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
-from seedbed.core.audit import AuditLimits
 from seedbed.web.routes import audit, ops, plan, weights
 from seedbed.web.settings import Settings
 
