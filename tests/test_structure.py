@@ -368,3 +368,17 @@ def test_the_example_in_the_depth_guide_is_valid_and_as_described() -> None:
         assert len(request.layers) == 243  # as the guide says: 1 + 48 x 5 + 2
         assert len(branches_of(request)) == 96
         assert plan.tensor("enc.47.mlp_out.weight").std == 0.02 / math.sqrt(96)
+
+
+def test_new_models_explain_every_field_and_examples_are_valid() -> None:
+    # The models feed the OpenAPI document: every field needs a description and an example.
+    for model in (spec.TransformerBlock, spec.ResidualConvBlock, *spec.POLICY_MODELS.values(),
+                  spec.NetworkRequest, spec.DenseLayer):
+        for name, info in model.model_fields.items():
+            assert info.description and info.examples, f"{model.__name__}.{name}"
+    for example in NetworkRequest.model_json_schema()["examples"]:
+        build_plan(example)
+    convnet = {"seed": 1, "layers": [conv_block(repeat=4), dense("head", 8, 2, role="output")]}
+    for policy in spec.NetworkRequest.model_fields["depth_policy"].examples or []:
+        body = convnet if policy["name"] == "fixup" else TIDE_LM
+        parse_request({**body, "depth_policy": policy})
