@@ -202,3 +202,16 @@ def test_chart_html_embeds_the_svg_and_the_verdicts(small_document: dict[str, An
     page = chart_html(small_document)
     assert page.startswith("<!DOCTYPE html>") and chart_svg(small_document) in page
     assert "<script" not in page.lower() and "vanishing" in page and "not a promise" in page
+
+
+def test_mean_field_groups_are_capped_with_a_note() -> None:
+    layers = [_dense(f"h{i}", 16, 16, activation="tanh",
+                     bias_init={"method": "constant", "value": 0.01 * (i + 1)})
+              for i in range(10)]
+    run = diagnosis_document(diagnose({"request": {"seed": 1, "layers": layers},
+                                       "batch": 4}))["runs"][0]
+    assert len(run["mean_field"]) == 8
+    assert [e["sigma_b2"] for e in run["mean_field"]] == pytest.approx(
+        [(0.01 * (i + 1)) ** 2 for i in range(8)])
+    (note,) = run["mean_field_notes"]
+    assert "2 more group(s) covering 2 layer(s)" in note

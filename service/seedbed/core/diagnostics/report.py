@@ -34,6 +34,9 @@ from seedbed.core.tensors import slots_by_layer
 
 OVERRIDDEN_KINDS = frozenset({"dense", "conv", "attention", "embedding"})
 MEAN_FIELD_LAYERS_LISTED = 8
+# Each distinct (activation, sigma_w^2, sigma_b^2) costs a root search (up to ~0.5 s for the
+# slowest activations); beyond this many per run the figures are left out and a note says so.
+MEAN_FIELD_GROUPS = 8
 
 
 @dataclass
@@ -43,6 +46,7 @@ class Run:
     simulation: Simulation
     verdict: Verdict
     mean_field: list[dict[str, Any]]
+    mean_field_notes: list[str]
 
 
 @dataclass
@@ -134,7 +138,8 @@ def _weight_variance_times_fan(step_layer: Any, t: TensorPlan) -> float | None:
     return None
 
 
-def _mean_field_entries(network: Network, plan: Plan) -> list[dict[str, Any]]:
+def _mean_field_entries(network: Network, plan: Plan,
+                        notes: list[str]) -> list[dict[str, Any]]:
     """Mean-field figures per (activation, sigma_w^2, sigma_b^2) among hidden dense/conv
     layers with random weights (the theory's i.i.d. zero-mean assumption)."""
     by_name = {t.tensor: t for t in plan.tensors}
@@ -148,19 +153,22 @@ def _mean_field_entries(network: Network, plan: Plan) -> list[dict[str, Any]]:
         if t is None:
             continue
         sw2 = _weight_variance_times_fan(step.layer, t)
-        if sw2 is None or not sw2 > 0:
-            continue
         sb2 = _bias_second_moment(by_name.get(f"{step.name}.bias"))
+        if sw2 is None or not 0 < sw2 < math.inf or not 0 <= sb2 < math.inf:
+            continue
         key = (step.activation, step.activation_param, float(f"{sw2:.12g}"),
                float(f"{sb2:.12g}"))
         groups.setdefault(key, []).append(step.name)
-    out = []
-    for (act, param, sw2, sb2), names in groups.items():
-        try:
-            figures = mean_field(act, sw2, sb2, param)
-        except ValueError:  # pragma: no cover - activations are validated by the request
-            continue
-        entry = figures.as_dict()
+    out: list[dict[str, Any]] = []
+    for n, ((act, param, sw2, sb2), names) in enumerate(groups.items()):
+        if n == MEAN_FIELD_GROUPS:
+            left = sum(len(v) for v in list(groups.values())[n:])
+            notes.append(f"mean-field figures are given for the first {MEAN_FIELD_GROUPS} "
+                         f"distinct (activation, sigma_w^2, sigma_b^2) groups only; "
+                         f"{len(groups) - n} more group(s) covering {left} layer(s) are left "
+                         "out")
+            break
+        entry = mean_field(act, sw2, sb2, param).as_dict()
         entry["layers"] = names[:MEAN_FIELD_LAYERS_LISTED]
         entry["layer_count"] = len(names)
         out.append(entry)
@@ -212,7 +220,9 @@ def diagnose(data: object, limits: Limits | None = None,
     runs = []
     for label, plan in plans:
         sim = simulate(network, plan, body.batch, threads=threads, keep_arrays=keep_arrays)
-        runs.append(Run(label, plan, sim, judge(sim.records), _mean_field_entries(network, plan)))
+        notes: list[str] = []
+        figures = _mean_field_entries(network, plan, notes)
+        runs.append(Run(label, plan, sim, judge(sim.records), figures, notes))
     return Diagnosis(network, body.batch, runs, _sum_inverse_width(network))
 
 
@@ -258,6 +268,7 @@ def _run_document(run: Run) -> dict[str, Any]:
     doc: dict[str, Any] = {"label": run.label}
     doc.update(run.verdict.as_dict())
     doc["mean_field"] = run.mean_field
+    doc["mean_field_notes"] = run.mean_field_notes
     doc["layers"] = [_layer_entry(r, act_ref, grad_ref) for r in records]
     return doc
 
