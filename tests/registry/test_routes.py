@@ -344,3 +344,26 @@ def test_unreachable_database_is_a_503(tmp_path: Any) -> None:
                         json={"name": "x", "request": BIRDSONG})
         assert r.status_code == 503
     assert registry.ping() is not None and "unreachable" in (registry.ping() or "")
+
+
+def test_readiness_helper_reports_the_database(registry: Registry, tmp_path: Any) -> None:
+    import asyncio
+
+    from seedbed.registry.config import RegistryConfig
+    from seedbed.registry.engine import open_engine
+
+    healthy = FastAPI()
+    healthy.state.registry = registry
+    assert asyncio.run(recipes.registry_problem(healthy)) is None
+    down = FastAPI()
+    config = RegistryConfig("postgresql+psycopg://u@127.0.0.1:1/none", "postgresql")
+    down.state.registry = Registry(config, open_engine(config))
+    reason = asyncio.run(recipes.registry_problem(down))
+    assert reason is not None and "unreachable" in reason
+    # Without an installed registry it is opened from the environment on demand.
+    lazy = FastAPI()
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv("SEEDBED_DATABASE_URL", "mysql://nowhere/x")
+        reason = asyncio.run(recipes.registry_problem(lazy))
+    assert reason is not None and "SEEDBED_DATABASE_URL" in reason
+    recipes.close_registry(lazy)

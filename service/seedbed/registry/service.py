@@ -9,7 +9,7 @@ from sqlalchemy import Engine, text
 from sqlalchemy.exc import SQLAlchemyError
 
 from seedbed.registry import migrations
-from seedbed.registry.config import RegistryConfig, config_from_env
+from seedbed.registry.config import RegistryConfig, RegistryConfigError, config_from_env
 from seedbed.registry.engine import open_engine
 
 
@@ -67,6 +67,19 @@ class LazyRegistry:
             if self._registry is None:
                 self._registry = open_registry(self._config)
             return self._registry
+
+    def problem(self) -> str | None:
+        """For readiness probes: None when the registry can be opened and its database answers,
+        else the reason. Never raises."""
+        try:
+            registry = self.get()
+        except (RegistryConfigError, migrations.SchemaTooNewError) as exc:
+            return f"the registry is not configured correctly: {exc}"
+        except SQLAlchemyError as exc:
+            inner = getattr(exc, "orig", None) or exc
+            return (f"the registry database cannot be opened: {type(inner).__name__}: "
+                    f"{str(inner).strip()[:300]}")
+        return registry.ping()
 
     def close(self) -> None:
         with self._lock:

@@ -20,10 +20,11 @@ revoked key is refused by every replica from the next request on.
 from __future__ import annotations
 
 import json
+import threading
 from collections.abc import Callable, Iterator
 from typing import Any, Literal, TypeVar
 
-from fastapi import APIRouter, Path, Query, Request, Response
+from fastapi import APIRouter, FastAPI, Path, Query, Request, Response
 from fastapi.responses import StreamingResponse
 from sqlalchemy.exc import SQLAlchemyError
 from starlette.concurrency import run_in_threadpool
@@ -132,14 +133,39 @@ def _unavailable(message: str) -> ApiError:
     return ApiError.one(503, "(registry)", "registry_unavailable", message, {"Retry-After": "5"})
 
 
+_HOLDER_LOCK = threading.Lock()
+
+
+def _on_demand(state: Any) -> LazyRegistry:
+    with _HOLDER_LOCK:
+        lazy: LazyRegistry | None = getattr(state, "registry_on_demand", None)
+        if lazy is None:
+            lazy = state.registry_on_demand = LazyRegistry()
+        return lazy
+
+
+async def registry_problem(app: FastAPI) -> str | None:
+    """For /readyz: None when the registry's database answers, else the reason. Never raises;
+    opens the registry (creating or upgrading its schema) if no request has yet."""
+    installed = getattr(app.state, "registry", None)
+    if isinstance(installed, Registry):
+        return await run_in_threadpool(installed.ping)
+    return await run_in_threadpool(_on_demand(app.state).problem)
+
+
+def close_registry(app: FastAPI) -> None:
+    """For the app's shutdown: release the database connections this app opened."""
+    lazy: LazyRegistry | None = getattr(app.state, "registry_on_demand", None)
+    if lazy is not None:
+        lazy.close()
+
+
 def _registry(request: Request) -> Registry:
     state = request.app.state
     installed = getattr(state, "registry", None)
     if isinstance(installed, Registry):
         return installed
-    lazy = getattr(state, "registry_on_demand", None)
-    if lazy is None:
-        lazy = state.registry_on_demand = LazyRegistry()
+    lazy = _on_demand(state)
     try:
         registry: Registry = lazy.get()
     except (RegistryConfigError, SchemaTooNewError) as exc:
@@ -279,6 +305,10 @@ async def publish_recipe(request: Request) -> Response:
 
 # --- reading ----------------------------------------------------------------------------------
 
+# Checked by hand (_checked_name) for an error that states the rule; the schema shows it too.
+_NAME = Path(description=f"The recipe's name: {NAME_PATTERN_TEXT}.",
+             json_schema_extra={"pattern": f"^{NAME_PATTERN_TEXT}$"})
+
 
 @router.get(
     "/v1/recipes",
@@ -319,7 +349,7 @@ async def list_recipe_names(
 )
 @router.head("/v1/recipes/{name}", operation_id="listRecipeVersionsHead",
              summary="Version list headers only.")
-async def recipe_versions(request: Request, name: str) -> Response:
+async def recipe_versions(request: Request, name: str = _NAME) -> Response:
     registry = _registry(request)
     _checked_name(name)
     await _check_reader(request, registry)
@@ -355,7 +385,9 @@ _VERSION = Path(description="The version number (1, 2, 3 ...).", ge=1, le=2**31 
 )
 @router.head("/v1/recipes/{name}/{version}", operation_id="describeRecipeVersionHead",
              summary="Stored version headers only.")
-async def recipe_version(request: Request, name: str, version: int = _VERSION) -> Response:
+async def recipe_version(
+    request: Request, name: str = _NAME, version: int = _VERSION
+) -> Response:
     registry = _registry(request)
     record = await _stored(request, registry, name, version)
     doc = {
@@ -418,7 +450,7 @@ def _replanned(record: RecipeVersion, settings_limits: Any) -> Plan:
              summary="Weights headers only.", response_class=Response)
 async def recipe_weights(
     request: Request,
-    name: str,
+    name: str = _NAME,
     version: int = _VERSION,
     format: WeightsFormat = Query(  # noqa: B008 - FastAPI's parameter declaration style
         "json", description="Container: json, npz or safetensors (as for POST /v1/weights)."
