@@ -34,6 +34,22 @@ _METHODS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("constant", "every element equals a value; on hidden weights it keeps units symmetric", ()),
 )
 
+# Depth/width policies a request may name in `depth_policy` (seedbed.core.policies).
+_POLICIES: tuple[tuple[str, str, tuple[str, ...]], ...] = (
+    ("fixup", "branch layers scaled by L^(-1/(2m-2)); last layer of each branch and the "
+     "classifier zero; scalar multipliers 1 and offsets 0", ("zhang-2019",)),
+    ("skip_gate", "a scalar gate per residual branch, initialised 0", ("de-2020",
+                                                                       "bachlechner-2020")),
+    ("scaled_residual", "base std (0.02, common practice) and base/sqrt(N) on each residual "
+     "branch's last map, N residual layers", ("radford-2019",)),
+    ("deepnorm", "residual multiplier alpha for the training script, gain beta on feed-forward, "
+     "value and output projections, gain 1 on query and key", ("wang-2022",)),
+    ("t_fixup", "transformer scaling without normalisation or warm-up [from memory]",
+     ("huang-2020",)),
+    ("width_transfer", "scalings relative to a base width, with the multipliers a training "
+     "script applies [from memory]", ("yang-2021",)),
+)
+
 
 @lru_cache(maxsize=1)
 def catalog() -> dict[str, Any]:
@@ -52,6 +68,10 @@ def catalog() -> dict[str, Any]:
         "methods": [
             {"name": name, "formula": formula, "references": [cite(k) for k in keys]}
             for name, formula, keys in _METHODS
+        ],
+        "depth_policies": [
+            {"name": name, "summary": summary, "references": [cite(k) for k in keys]}
+            for name, summary, keys in _POLICIES
         ],
         "distributions": [
             {"name": "uniform", "description": "U(-b, b), std b/sqrt(3)"},

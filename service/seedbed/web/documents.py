@@ -20,6 +20,11 @@ def response_document(plan: Plan, selection: dict[str, Any] | None) -> dict[str,
         "layout": plan.layout,
         "warnings": list(plan.warnings),
     }
+    if plan.policy is not None:
+        # What a depth/width policy decided, and the multipliers the training script must apply:
+        # weights alone do not reproduce the policy's start without them.
+        doc["depth_policy"] = plan.policy
+        doc["multipliers"] = list(plan.multipliers)
     if selection is not None:
         doc["selection"] = selection
     return doc
