@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import json
 import os
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -66,7 +67,12 @@ def test_client_installs_alone_with_only_its_dependencies(tmp_path: Path) -> Non
         python, tmp_path
     )  # pip (and setuptools on older Pythons) come with every venv
 
-    install = _run(str(python), "-m", "pip", "install", "-q", str(ROOT / "client"), cwd=tmp_path)
+    # Installed from a copy: pip builds in the source tree, and the checkout should stay clean.
+    source = tmp_path / "client-source"
+    shutil.copytree(
+        ROOT / "client", source, ignore=shutil.ignore_patterns("build", "*.egg-info", "__pycache__")
+    )
+    install = _run(str(python), "-m", "pip", "install", "-q", str(source), cwd=tmp_path)
     assert install.returncode == 0, install.stdout + install.stderr
 
     closure = _run(str(python), "-c", _CLOSURE_SCRIPT, json.dumps(baseline), cwd=tmp_path)
