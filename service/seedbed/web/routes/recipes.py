@@ -160,14 +160,15 @@ def close_registry(app: FastAPI) -> None:
         lazy.close()
 
 
-def _registry(request: Request) -> Registry:
+async def _registry(request: Request) -> Registry:
     state = request.app.state
     installed = getattr(state, "registry", None)
     if isinstance(installed, Registry):
         return installed
     lazy = _on_demand(state)
     try:
-        registry: Registry = lazy.get()
+        # Opening may connect, create the file and migrate: never on the event loop.
+        registry: Registry = await run_in_threadpool(lazy.get)
     except (RegistryConfigError, SchemaTooNewError) as exc:
         raise _unavailable(f"the registry is not configured correctly: {exc}") from None
     except SQLAlchemyError as exc:
@@ -278,7 +279,7 @@ def _summary_doc(s: VersionSummary) -> dict[str, Any]:
 )
 async def publish_recipe(request: Request) -> Response:
     settings = settings_of(request)
-    registry = _registry(request)
+    registry = await _registry(request)
     try:
         token = bearer_token(request.headers.get("authorization"))
         # Checked before the body is even read: strangers cost us no validation or hashing.
@@ -325,7 +326,7 @@ async def list_recipe_names(
     after: str | None = Query(None, description="Continue after this name.", max_length=100),
     limit: int = Query(100, ge=1, le=MAX_PAGE, description="Names per page."),
 ) -> Response:
-    registry = _registry(request)
+    registry = await _registry(request)
     await _check_reader(request, registry)
     rows = await _db(list_recipes, registry.engine, after, limit)
     doc = {
@@ -350,7 +351,7 @@ async def list_recipe_names(
 @router.head("/v1/recipes/{name}", operation_id="listRecipeVersionsHead",
              summary="Version list headers only.")
 async def recipe_versions(request: Request, name: str = _NAME) -> Response:
-    registry = _registry(request)
+    registry = await _registry(request)
     _checked_name(name)
     await _check_reader(request, registry)
     try:
@@ -388,7 +389,7 @@ _VERSION = Path(description="The version number (1, 2, 3 ...).", ge=1, le=2**31 
 async def recipe_version(
     request: Request, name: str = _NAME, version: int = _VERSION
 ) -> Response:
-    registry = _registry(request)
+    registry = await _registry(request)
     record = await _stored(request, registry, name, version)
     doc = {
         **_summary_doc(record.summary),
@@ -457,7 +458,7 @@ async def recipe_weights(
     ),
 ) -> Response:
     settings = settings_of(request)
-    registry = _registry(request)
+    registry = await _registry(request)
     record = await _stored(request, registry, name, version)
     plan = await run_in_threadpool(_replanned, record, settings.limits)
     etag = strong_etag(
