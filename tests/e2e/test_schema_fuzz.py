@@ -12,7 +12,6 @@ with 413 in milliseconds instead of streaming gigabytes; the code paths are the 
 
 from __future__ import annotations
 
-import copy
 import json
 import re
 from collections.abc import Callable
@@ -28,7 +27,7 @@ from .server import ROOT, RunningServer
 
 DOCUMENT = ROOT / "openapi" / "openapi.json"
 FUZZ_SEED = 20261202
-EXAMPLES_PER_OPERATION = 40
+EXAMPLES_PER_OPERATION = 30
 
 
 def _config(mode: str) -> SchemathesisConfig:
@@ -47,14 +46,29 @@ def _config(mode: str) -> SchemathesisConfig:
     )
 
 
+def _sendable_document() -> dict[str, Any]:
+    """The committed document, less request bodies schemathesis has no serializer for.
+
+    schemathesis sends binary strings as application/octet-stream but not as application/zip,
+    and would skip those cases with a warning. Registering a serializer for it is global state
+    that would leak into other fuzz tests of the session, so the zip alternative of an upload
+    is left out here; the same operation is still fuzzed with its other media types."""
+    doc: dict[str, Any] = json.loads(DOCUMENT.read_text(encoding="utf-8"))
+    for operations in doc["paths"].values():
+        for operation in operations.values():
+            content = operation.get("requestBody", {}).get("content", {})
+            if "application/zip" in content and len(content) > 1:
+                del content["application/zip"]
+    return doc
+
+
 def _whole_network_document() -> dict[str, Any]:
     """The committed document with POST /v1/weights's block selection (tensor, rows) left out.
 
     Generated tensor names almost never name a tensor of the generated network, so with the
     selection in play nearly every weights request ends as 422 unknown_tensor and the streaming
     path is barely reached; without it, schema-conforming requests are served whole."""
-    doc: dict[str, Any] = json.loads(DOCUMENT.read_text(encoding="utf-8"))
-    doc = copy.deepcopy(doc)
+    doc = _sendable_document()
     weights = {"paths": {"/v1/weights": doc["paths"]["/v1/weights"]}}
     op = weights["paths"]["/v1/weights"]["post"]
     op["parameters"] = [p for p in op["parameters"] if p["name"] not in ("tensor", "rows")]
@@ -62,7 +76,7 @@ def _whole_network_document() -> dict[str, Any]:
 
 
 # Every operation, schema-conforming and schema-breaking requests alike.
-schema = schemathesis.openapi.from_path(DOCUMENT, config=_config("all"))
+schema = schemathesis.openapi.from_dict(_sendable_document(), config=_config("all"))
 # Whole-network weights, schema-conforming requests only: these must mostly succeed.
 whole_weights = schemathesis.openapi.from_dict(
     _whole_network_document(), config=_config("positive")
