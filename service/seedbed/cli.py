@@ -3,6 +3,7 @@
 seedbed serve [--host H] [--port P] [--workers N] [--log-level L]
 seedbed plan FILE            print the plan for a request file (offline, no server)
 seedbed settings             print the effective settings and where each comes from
+seedbed fetch | verify | show  client commands (see docs/client.md)
 """
 
 from __future__ import annotations
@@ -15,6 +16,7 @@ import sys
 from collections.abc import Sequence
 
 from seedbed import __version__
+from seedbed_client import cli as client_cli
 
 
 def _positive(text: str) -> int:
@@ -67,6 +69,9 @@ def build_parser() -> argparse.ArgumentParser:
     plan.add_argument("file", help="path of the request JSON, or - for standard input")
 
     commands.add_parser("settings", help="print the effective settings")
+    # Client subcommands (fetch, verify, show) live with the client so that a client-only
+    # install (`python -m seedbed_client`) offers exactly the same commands.
+    client_cli.register(commands)
     return parser
 
 
@@ -159,7 +164,10 @@ def _settings(args: argparse.Namespace) -> int:
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     handlers = {"serve": _serve, "plan": _plan, "settings": _settings}
-    return handlers[args.command](args)
+    handler = handlers.get(args.command)
+    if handler is None:
+        return client_cli.run(args)
+    return handler(args)
 
 
 if __name__ == "__main__":
