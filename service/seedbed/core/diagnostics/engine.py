@@ -90,9 +90,6 @@ class WeightStore:
         # in the forward pass and for twin detection, one conversion serves both
         self._recent: dict[str, FloatArray] = {}
 
-    def has(self, name: str) -> bool:
-        return name in self._by_name
-
     def logit_scale(self, layer: str) -> float:
         """The plan's factor on attention layer `layer`'s logit scale (1 when none)."""
         return self._logit.get(layer, 1.0)
@@ -126,7 +123,6 @@ class WeightStore:
                 self._recent.pop(next(iter(self._recent)))
             self._recent[name] = wide
         return wide
-
 
 
 @dataclass
