@@ -24,6 +24,13 @@ WIDTH = 920
 PANEL_HEIGHT = 250
 LEFT, RIGHT, TOP, GAP = 70, 250, 40, 70
 MAX_DECADES = 40  # a panel spans at most this many decades; lower values sit on its edge
+CAPTION = (
+    "x: layer number along the main path (layers outside residual branches, and each "
+    "branch's sum).",
+    "Hollow circles: zero, not finite or below the axis. A cross marks where a verdict points.",
+    "Estimates at initialisation from one synthetic batch, not a promise that training will "
+    "succeed.",
+)
 
 
 def _f(x: float) -> str:
@@ -102,7 +109,7 @@ def _panel(runs: list[dict[str, Any]], key: str, title: str, top: float) -> list
 def chart_svg(document: dict[str, Any]) -> str:
     """Self-contained SVG of a diagnosis document (see module doc)."""
     runs: list[dict[str, Any]] = document["runs"]
-    height = TOP + 2 * PANEL_HEIGHT + GAP + 70
+    height = TOP + 2 * PANEL_HEIGHT + GAP + 36 + 15 * len(CAPTION)
     parts = [
         '<svg xmlns="http://www.w3.org/2000/svg" version="1.1" '
         f'width="{WIDTH}" height="{height}" viewBox="0 0 {WIDTH} {height}" '
@@ -128,13 +135,10 @@ def chart_svg(document: dict[str, Any]) -> str:
         where = f" at {run['failed_at']}" if run.get("failed_at") else ""
         parts.append(f'<text x="{legend_x + 30}" y="{y + 18}" font-size="11" fill="#555555">'
                      f"{escape(str(run['verdict']) + where)[:60]}</text>")
-    bottom = TOP + 2 * PANEL_HEIGHT + GAP + 40
-    parts.append(f'<text x="{LEFT}" y="{bottom}" font-size="11" fill="#555555">Layer number '
-                 "along the main path (layers outside residual branches, and each branch's sum)"
-                 ". Hollow circles: zero, not finite or below the axis.</text>")
-    parts.append(f'<text x="{LEFT}" y="{bottom + 16}" font-size="11" fill="#555555">'
-                 "Estimates at initialisation from one synthetic batch, not a promise that "
-                 "training will succeed. A cross marks where a verdict points.</text>")
+    bottom = TOP + 2 * PANEL_HEIGHT + GAP + 36
+    for i, line in enumerate(CAPTION):
+        parts.append(f'<text x="{LEFT}" y="{bottom + 15 * i}" font-size="11" fill="#555555">'
+                     f"{escape(line)}</text>")
     parts.append("</svg>")
     return "\n".join(parts) + "\n"
 
