@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import argparse
 import sys
+import tempfile
 import threading
 import time
 from collections.abc import Callable
@@ -146,7 +147,12 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     repeats, requests = (2, 100) if args.quick else (args.repeats, args.requests)
 
-    server = start_server({"SEEDBED_GENERATION_THREADS": str(args.threads)})
+    with tempfile.TemporaryDirectory(prefix="seedbed-bench-") as scratch:
+        return run(args, repeats, requests, Path(scratch))
+
+
+def run(args: argparse.Namespace, repeats: int, requests: int, scratch: Path) -> int:
+    server = start_server({"SEEDBED_GENERATION_THREADS": str(args.threads)}, log_dir=scratch)
     try:
         print(
             f"service: {server.base_url} (pid {server.pid}); numpy {np.__version__}; "

@@ -154,7 +154,7 @@ def start_server(
         with open(log_path, "wb") as log:
             process = subprocess.Popen(
                 command,
-                cwd=ROOT,
+                cwd=directory,  # anything the service writes by default lands in the temp dir
                 env=child_environment(env),
                 stdin=subprocess.DEVNULL,
                 stdout=log,
