@@ -94,6 +94,36 @@ class HealthProber:
             self._stop.wait(0.25)
 
 
+class SafetensorsDataHasher:
+    """Keeps a safetensors stream's header and hashes everything after it as it passes.
+
+    Layout (the safetensors format description): an unsigned 64-bit little-endian header
+    length N, N bytes of JSON header, then the tensors' raw bytes. With one tensor in the file
+    the data section is exactly that tensor's bytes, whose sha256 the manifest states."""
+
+    def __init__(self) -> None:
+        self.head = bytearray()
+        self.head_size: int | None = None
+        self.digest = hashlib.sha256()
+
+    def feed(self, piece: bytes) -> None:
+        if self.head_size is not None and len(self.head) >= self.head_size:
+            self.digest.update(piece)
+            return
+        self.head += piece
+        if self.head_size is None and len(self.head) >= 8:
+            self.head_size = 8 + struct.unpack("<Q", self.head[:8])[0]
+        if self.head_size is not None and len(self.head) >= self.head_size:
+            self.digest.update(self.head[self.head_size :])
+            del self.head[self.head_size :]
+
+    def metadata(self) -> dict[str, str]:
+        assert self.head_size is not None, "the stream ended inside the header"
+        header = json.loads(bytes(self.head[8 : self.head_size]))
+        meta: dict[str, str] = header["__metadata__"]
+        return meta
+
+
 def _cpu_seconds(pid: int) -> float:
     with open(f"/proc/{pid}/stat", encoding="ascii") as fh:
         fields = fh.read().rsplit(")", 1)[1].split()
@@ -146,8 +176,7 @@ def _stream(server: RunningServer, fmt: str, on_progress: Callable[[int], None])
 def test_one_gib_streams_in_bounded_memory(lone_service: RunningServer, fmt: str) -> None:
     baseline = _idle_rss(lone_service)
     cpu_before = _cpu_seconds(lone_service.pid)
-    digest = hashlib.sha256()
-    header = bytearray()
+    data_section = SafetensorsDataHasher()
     with RssSampler(lone_service) as rss, HealthProber(lone_service.base_url) as health:
 
         def progress(received: int) -> None:
@@ -156,17 +185,7 @@ def test_one_gib_streams_in_bounded_memory(lone_service: RunningServer, fmt: str
 
         for piece in _stream(lone_service, fmt, progress):
             if fmt == "safetensors":
-                # Hash the single tensor's data section as it passes, to check it against the
-                # manifest digest in the header (safetensors layout: u64 length, JSON, data).
-                if len(header) < 8 or len(header) < 8 + struct.unpack("<Q", header[:8])[0]:
-                    header += piece
-                    if len(header) >= 8:
-                        size = 8 + struct.unpack("<Q", header[:8])[0]
-                        if len(header) >= size:
-                            digest.update(header[size:])
-                            del header[size:]
-                else:
-                    digest.update(piece)
+                data_section.feed(piece)
         probes_during_download = len(health.latencies)
     rise = rss.peak - baseline
     assert rss.samples > 10
@@ -184,10 +203,8 @@ def test_one_gib_streams_in_bounded_memory(lone_service: RunningServer, fmt: str
         f"/healthz took {slowest:.2f} s during a 1 GiB download ({health.latencies})"
     )
     if fmt == "safetensors":
-        size = struct.unpack("<Q", header[:8])[0]
-        meta = json.loads(bytes(header[8 : 8 + size]))["__metadata__"]
-        manifest = json.loads(meta["seedbed.manifest"])
-        assert digest.hexdigest() == manifest["tensors"][0]["sha256"]
+        manifest = json.loads(data_section.metadata()["seedbed.manifest"])
+        assert data_section.digest.hexdigest() == manifest["tensors"][0]["sha256"]
 
 
 @pytest.mark.parametrize(
