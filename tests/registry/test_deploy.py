@@ -139,6 +139,7 @@ def test_dockerignore_sends_only_what_the_build_copies() -> None:
                 assert not _ignored(patterns, source), source
     for private in (".git/config", ".venv/bin/python", "deploy/secrets/database_url",
                     "tests/conftest.py", "service/seedbed/__pycache__/cli.cpython-311.pyc",
+                    "client/examples/fetch.py", "client/pyproject.toml",
                     "data/seedbed.sqlite3"):
         assert _ignored(patterns, private), private
 
