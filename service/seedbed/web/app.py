@@ -17,7 +17,7 @@ from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
-from seedbed.web.routes import audit, ops, plan, weights
+from seedbed.web.routes import audit, diagnose, ops, plan, weights
 from seedbed.web.settings import Settings
 
 DESCRIPTION = (
@@ -58,6 +58,8 @@ def create_app(
         openapi_tags=[
             {"name": "weights", "description": "Plans, weights and the catalog."},
             {"name": "operations", "description": "Liveness, readiness and metrics."},
+            {"name": "diagnostics", "description": "Signal propagation through depth, "
+             "estimated on a synthetic batch."},
             {"name": "audit", "description": "Checks of existing weights files."},
         ],
     )
@@ -67,7 +69,7 @@ def create_app(
     app.state.audit_limits = AuditLimits(max_upload_bytes=settings.max_audit_bytes)
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
-    for router in (plan.router, weights.router, audit.router, ops.router):
+    for router in (plan.router, weights.router, diagnose.router, audit.router, ops.router):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):
