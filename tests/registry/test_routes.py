@@ -367,3 +367,9 @@ def test_readiness_helper_reports_the_database(registry: Registry, tmp_path: Any
         reason = asyncio.run(recipes.registry_problem(lazy))
     assert reason is not None and "SEEDBED_DATABASE_URL" in reason
     recipes.close_registry(lazy)
+    blocked = tmp_path / "not-a-directory"
+    blocked.write_text("a file where the data directory should be")
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setenv("SEEDBED_DATA_DIR", str(blocked / "sub"))
+        reason = asyncio.run(recipes.registry_problem(FastAPI()))
+    assert reason is not None and "data directory" in reason

@@ -79,6 +79,8 @@ class LazyRegistry:
             inner = getattr(exc, "orig", None) or exc
             return (f"the registry database cannot be opened: {type(inner).__name__}: "
                     f"{str(inner).strip()[:300]}")
+        except OSError as exc:  # the data directory cannot be created or written
+            return f"the registry's data directory cannot be used: {exc}"
         return registry.ping()
 
     def close(self) -> None:

@@ -173,6 +173,8 @@ async def _registry(request: Request) -> Registry:
         raise _unavailable(f"the registry is not configured correctly: {exc}") from None
     except SQLAlchemyError as exc:
         raise _unavailable(f"the registry database cannot be opened: {_db_reason(exc)}") from None
+    except OSError as exc:
+        raise _unavailable(f"the registry's data directory cannot be used: {exc}") from None
     return registry
 
 
