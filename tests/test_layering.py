@@ -1,4 +1,5 @@
-"""The core must stay importable without any web framework (DESIGN.md: one direction of dependency)."""
+"""The core must stay importable without any web framework (DESIGN.md: dependencies point one
+way, from the web layer to the core)."""
 
 import ast
 from pathlib import Path
@@ -23,7 +24,9 @@ def test_core_has_no_web_imports() -> None:
     assert files, "the core package must exist"
     offenders = {
         str(f.relative_to(CORE)): sorted(
-            m for m in _imported_modules(f) if m.split(".")[0] in WEB_MODULES or m.startswith("seedbed.web")
+            m
+            for m in _imported_modules(f)
+            if m.split(".")[0] in WEB_MODULES or m.startswith("seedbed.web")
         )
         for f in files
     }
