@@ -5,6 +5,7 @@ from __future__ import annotations
 import importlib
 import os
 import sys
+import tempfile
 from pathlib import Path
 from types import ModuleType
 
@@ -12,6 +13,10 @@ import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "service"))
+
+# In-process apps open the recipe registry at start-up: keep its SQLite file out of the
+# user's data directory. Tests that need their own database set SEEDBED_DATA_DIR themselves.
+os.environ.setdefault("SEEDBED_DATA_DIR", tempfile.mkdtemp(prefix="seedbed-test-data-"))
 
 
 def require_oracle(module: str) -> ModuleType:

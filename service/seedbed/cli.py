@@ -3,6 +3,7 @@
 seedbed serve [--host H] [--port P] [--workers N] [--log-level L]
 seedbed plan FILE            print the plan for a request file (offline, no server)
 seedbed settings             print the effective settings and where each comes from
+seedbed keys create NAME | list | revoke NAME   publishing keys for team recipes
 seedbed fetch | verify | show  client commands (see docs/client.md)
 """
 
@@ -15,7 +16,7 @@ import os
 import sys
 from collections.abc import Sequence
 
-from seedbed import __version__
+from seedbed import __version__, keys_cli
 from seedbed_client import cli as client_cli
 
 
@@ -72,6 +73,7 @@ def build_parser() -> argparse.ArgumentParser:
     # Client subcommands (fetch, verify, show) live with the client so that a client-only
     # install (`python -m seedbed_client`) offers exactly the same commands.
     client_cli.register(commands)
+    keys_cli.register(commands)
     return parser
 
 
@@ -158,12 +160,24 @@ def _settings(args: argparse.Namespace) -> int:
             obj = getattr(obj, part)
         origin = "environment" if var in os.environ else "default"
         print(f"{var}={shown(obj)}  ({origin}; default {default})")
+    # The registry's settings are read by the registry itself (seedbed.registry.config).
+    from seedbed.registry.config import RegistryConfigError, config_from_env
+
+    try:
+        registry = config_from_env()
+    except RegistryConfigError as exc:
+        print(f"seedbed: {exc}", file=sys.stderr)
+        return 2
+    print(f"registry database: {registry.describe()} ({registry.backend}; "
+          "SEEDBED_DATABASE_URL, default an SQLite file under SEEDBED_DATA_DIR)")
+    print(f"registry reads need a key: {'on' if registry.read_requires_key else 'off'} "
+          "(SEEDBED_READ_REQUIRES_KEY)")
     return 0
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
-    handlers = {"serve": _serve, "plan": _plan, "settings": _settings}
+    handlers = {"serve": _serve, "plan": _plan, "settings": _settings, "keys": keys_cli.run}
     handler = handlers.get(args.command)
     if handler is None:
         return client_cli.run(args)

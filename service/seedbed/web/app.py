@@ -17,7 +17,7 @@ from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
-from seedbed.web.routes import audit, diagnose, ops, plan, weights
+from seedbed.web.routes import audit, diagnose, ops, plan, recipes, weights
 from seedbed.web.settings import Settings
 
 DESCRIPTION = (
@@ -47,7 +47,13 @@ def create_app(
                 reference_digests, reference_algorithm, threads=settings.generation_threads
             )
         )
-        yield
+        # Opens (creating or upgrading) the recipe database now rather than on the first
+        # request; a failure is not fatal here: /readyz reports it until the database answers.
+        await recipes.registry_problem(app)
+        try:
+            yield
+        finally:
+            recipes.close_registry(app)
 
     app = FastAPI(
         title="seedbed",
@@ -61,6 +67,8 @@ def create_app(
             {"name": "diagnostics", "description": "Signal propagation through depth, "
              "estimated on a synthetic batch."},
             {"name": "audit", "description": "Checks of existing weights files."},
+            {"name": "recipes", "description": "Team recipes: named, immutable versions of a "
+             "request, and their weights."},
         ],
     )
     app.state.settings = settings
@@ -69,7 +77,8 @@ def create_app(
     app.state.audit_limits = AuditLimits(max_upload_bytes=settings.max_audit_bytes)
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
-    for router in (plan.router, weights.router, diagnose.router, audit.router, ops.router):
+    for router in (plan.router, weights.router, diagnose.router, audit.router, recipes.router,
+                   ops.router):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):

@@ -7,6 +7,7 @@ from fastapi.responses import JSONResponse
 
 from seedbed.web import metrics as metrics_mod
 from seedbed.web.readiness import NOT_CHECKED, Readiness
+from seedbed.web.routes.recipes import registry_problem
 
 router = APIRouter(tags=["operations"])
 
@@ -46,6 +47,7 @@ async def healthz() -> JSONResponse:
                         "tensors_checked": 7,
                         "mismatches": [],
                         "seconds": 0.01,
+                        "registry": "ok",
                     }
                 }
             }
@@ -56,8 +58,16 @@ async def healthz() -> JSONResponse:
 @router.head("/readyz", operation_id="probeReadinessHead", summary="Readiness headers only.")
 async def readyz(request: Request) -> JSONResponse:
     state: Readiness = getattr(request.app.state, "readiness", None) or NOT_CHECKED
+    body = state.body()
+    # A replica whose recipe database does not answer must not take traffic either.
+    problem = await registry_problem(request.app)
+    body["registry"] = problem or "ok"
+    ready = state.ready and problem is None
+    if state.ready and problem is not None:
+        body["status"] = "not_ready"
+        body["reason"] = problem
     return JSONResponse(
-        state.body(), status_code=200 if state.ready else 503, headers={"Cache-Control": "no-store"}
+        body, status_code=200 if ready else 503, headers={"Cache-Control": "no-store"}
     )
 
 
