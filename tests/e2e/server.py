@@ -6,6 +6,7 @@ both measure the same thing: `python -m seedbed.cli serve` under uvicorn, on a l
 The child gets the repository's service/ directory on PYTHONPATH, so it runs from a plain
 checkout as well as after `pip install -e .`. Inherited SEEDBED_* variables are dropped (a
 developer's own settings must not change what the tests see); callers pass the ones they want.
+Each server keeps its data (the recipe registry's SQLite file) in its own temporary directory.
 Output goes to a log file, never to a pipe: a pipe nobody reads fills up and stalls the server.
 """
 
@@ -45,11 +46,14 @@ def free_port() -> int:
         return int(probe.getsockname()[1])
 
 
-def child_environment(overrides: Mapping[str, str] | None) -> dict[str, str]:
+def child_environment(overrides: Mapping[str, str] | None, data_dir: Path) -> dict[str, str]:
     env = {k: v for k, v in os.environ.items() if not k.startswith("SEEDBED_")}
     paths = [str(SERVICE_DIR), *filter(None, env.get("PYTHONPATH", "").split(os.pathsep))]
     env["PYTHONPATH"] = os.pathsep.join(paths)
     env["PYTHONUNBUFFERED"] = "1"
+    # The recipe registry's embedded SQLite file would otherwise live in the user's home
+    # directory, shared with their real data and between test runs.
+    env["SEEDBED_DATA_DIR"] = str(data_dir)
     env.update(overrides or {})
     return env
 
@@ -155,7 +159,7 @@ def start_server(
             process = subprocess.Popen(
                 command,
                 cwd=directory,  # anything the service writes by default lands in the temp dir
-                env=child_environment(env),
+                env=child_environment(env, directory),
                 stdin=subprocess.DEVNULL,
                 stdout=log,
                 stderr=subprocess.STDOUT,
