@@ -66,6 +66,9 @@ class RunningServer:
     process: subprocess.Popen[bytes]
     log_path: Path
     command: list[str] = field(default_factory=list)
+    # The child's full environment: run the `seedbed` CLI with it to act on the same data
+    # (e.g. `seedbed keys create` against the server's registry).
+    environment: dict[str, str] = field(default_factory=dict)
 
     @property
     def base_url(self) -> str:
@@ -155,16 +158,19 @@ def start_server(
             str(port),
         ]
         log_path = directory / f"server-{port}.log"
+        environment = child_environment(env, directory)
         with open(log_path, "wb") as log:
             process = subprocess.Popen(
                 command,
                 cwd=directory,  # anything the service writes by default lands in the temp dir
-                env=child_environment(env, directory),
+                env=environment,
                 stdin=subprocess.DEVNULL,
                 stdout=log,
                 stderr=subprocess.STDOUT,
             )
-        server = RunningServer(port=port, process=process, log_path=log_path, command=command)
+        server = RunningServer(
+            port=port, process=process, log_path=log_path, command=command, environment=environment
+        )
         try:
             _wait_until_healthy(server, timeout)
             return server
