@@ -28,7 +28,6 @@ from fastapi.testclient import TestClient
 from conftest import require_oracle
 from seedbed.core.audit import AuditLimits
 from seedbed.web import Settings, create_app
-from seedbed.web.routes import audit as audit_routes
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
@@ -55,8 +54,6 @@ KILN: dict[str, Any] = {
 
 def audit_app(limits: AuditLimits | None = None) -> FastAPI:
     app = create_app(Settings())
-    if not any(getattr(r, "path", None) == "/v1/audit" for r in app.routes):
-        app.include_router(audit_routes.router)  # until the app factory includes it
     if limits is not None:
         app.state.audit_limits = limits
     return app

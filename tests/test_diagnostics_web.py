@@ -16,7 +16,6 @@ from fastapi.testclient import TestClient
 
 from seedbed.core.diagnostics import DiagnosticLimits
 from seedbed.web import Settings, create_app
-from seedbed.web.routes import diagnose as diagnose_routes
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
@@ -34,8 +33,6 @@ HIVE: dict[str, Any] = {
 
 def diagnose_app(limits: DiagnosticLimits | None = None) -> FastAPI:
     app = create_app(Settings())
-    if not any(getattr(r, "path", None) == "/v1/diagnose" for r in app.routes):
-        app.include_router(diagnose_routes.router)  # until the app factory includes it
     if limits is not None:
         app.state.diagnostic_limits = limits
     return app

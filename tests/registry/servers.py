@@ -1,13 +1,11 @@
 """Real service processes with the registry, for the replica and crash tests.
 
-Uses `python -m seedbed.cli serve` once the app factory includes the recipes router, and
-tests/registry/launcher.py (the same app plus the router, under uvicorn) until then. Process
-handling (environment, logs, stopping) is the end-to-end suite's (tests/e2e/server.py).
+Each is the real `python -m seedbed.cli serve`. Process handling (environment, logs,
+stopping) is the end-to-end suite's (tests/e2e/server.py).
 """
 
 from __future__ import annotations
 
-import functools
 import subprocess
 import sys
 import time
@@ -26,20 +24,9 @@ from e2e.server import (
     free_port,
 )
 
-LAUNCHER = Path(__file__).with_name("launcher.py")
-
-
-@functools.cache
-def factory_has_recipes() -> bool:
-    from seedbed.web import Settings, create_app
-
-    return any(getattr(r, "path", None) == "/v1/recipes" for r in create_app(Settings()).routes)
-
 
 def _command(port: int) -> list[str]:
-    if factory_has_recipes():
-        return [sys.executable, "-m", "seedbed.cli", "serve", "--host", HOST, "--port", str(port)]
-    return [sys.executable, str(LAUNCHER), "--host", HOST, "--port", str(port)]
+    return [sys.executable, "-m", "seedbed.cli", "serve", "--host", HOST, "--port", str(port)]
 
 
 def start_registry_server(env: Mapping[str, str], log_dir: Path) -> RunningServer:
@@ -49,7 +36,7 @@ def start_registry_server(env: Mapping[str, str], log_dir: Path) -> RunningServe
     command = _command(port)
     log_path = log_dir / f"server-{port}.log"
     with open(log_path, "wb") as log:
-        process = subprocess.Popen(command, cwd=ROOT, env=child_environment(env),
+        process = subprocess.Popen(command, cwd=ROOT, env=child_environment(env, log_dir),
                                    stdin=subprocess.DEVNULL, stdout=log,
                                    stderr=subprocess.STDOUT)
     server = RunningServer(port=port, process=process, log_path=log_path, command=command)

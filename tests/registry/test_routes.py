@@ -47,8 +47,6 @@ BIRDSONG: dict[str, Any] = {
 
 def app_with(registry: Registry, settings: Settings | None = None) -> FastAPI:
     app = create_app(settings or Settings())
-    if not any(getattr(r, "path", None) == "/v1/recipes" for r in app.routes):
-        app.include_router(recipes.router)
     app.state.registry = registry
     return app
 
@@ -57,8 +55,6 @@ def app_with(registry: Registry, settings: Settings | None = None) -> FastAPI:
 def shared_client() -> Iterator[TestClient]:
     # One app per module: building one runs the start-up self-check (most of a second).
     with TestClient(create_app(Settings())) as c:
-        if not any(getattr(r, "path", None) == "/v1/recipes" for r in c.app.routes):  # type: ignore[attr-defined]
-            c.app.include_router(recipes.router)  # type: ignore[attr-defined]
         yield c
 
 
