@@ -174,3 +174,21 @@ def test_norm_scale_override_with_explicit_std() -> None:
     t = p.tensor("n.scale")
     assert (t.sampler, t.std) == ("normal", 0.1)
     assert p.tensor("n.shift").value == 0.0
+
+
+def test_tanh_rationale_places_the_scale_against_the_edge_of_chaos() -> None:
+    # Poole et al. 2016: sigma_w^2 = fan_in * std^2; chi_1 = sigma_w^2 E[phi'(sqrt(q*) z)^2],
+    # recomputed here with scipy quadrature at the q* the rationale states.
+    from scipy import optimize
+
+    t = plan_of(dense("h", 256, 256, activation="tanh")).tensor("h.weight")
+    sigma_w2 = 256 * t.std**2
+    assert f"sigma_w^2 = {sigma_w2:.4g}" in t.rationale
+
+    def length(q: float) -> float:
+        return sigma_w2 * second_moment(lambda z: math.tanh(math.sqrt(q) * z))
+
+    q_star = optimize.brentq(lambda q: length(q) - q, 0.1, 10.0)
+    chi_1 = sigma_w2 * second_moment(lambda z: 1 / math.cosh(math.sqrt(q_star) * z) ** 2)
+    assert f"chi_1 = {chi_1:.4g}" in t.rationale
+    assert "edge of chaos" in t.rationale and "Poole et al. 2016" in t.rationale

@@ -31,6 +31,7 @@ from typing import Any
 
 from seedbed.core import fans as fan_rules
 from seedbed.core.activations import describe_activation, gain_for
+from seedbed.core.meanfield import mean_field, rationale_sentence
 from seedbed.core.references import cite, short_cite
 from seedbed.core.scales import (
     Realised,
@@ -181,6 +182,14 @@ def recommend_weight(layer: Any, slot: TensorSlot, recurrent_identity: bool = Fa
     scale = glorot_scale(float(fans.fan_in), float(fans.fan_out), gain)
     why = (f"Followed by {act}: Glorot uniform, balancing forward and backward variance, times "
            f"the activation's gain: {how}.")
+    if info.saturating:
+        # For saturating units the mean-field figures say where this scale sits relative to
+        # the edge of chaos, which the gain alone does not show. Rounded to 4 digits in the
+        # text; they never touch the values.
+        sigma_w2 = float(fans.fan_in) * scale.std * scale.std
+        figures = mean_field(act, sigma_w2, 0.0, layer.activation_param)
+        why += " " + rationale_sentence(figures)
+        grefs = (*grefs, cite("poole-2016"), cite("schoenholz-2017"))
     return _random_choice(scale, realise(scale, "uniform"), fans, why, grefs, warn)
 
 
