@@ -1,19 +1,66 @@
 """From a plan (and an optional block selection) to an encoded response body.
 
 This is the seam between the core, which produces a tensor's bytes on demand, and the format
-writers, which arrange them in a container; nothing here holds a whole tensor.
+writers, which arrange them in a container. Nothing here holds a whole tensor, with one bounded
+exception: safetensors needs every digest in its header, so its body walks the tensors twice
+(a hashing pass, then the data). Tensors that fit a per-response budget
+(`HOLD_BUDGET_BYTES`) keep the bytes of the first walk for the second instead of being
+generated again; larger ones are generated twice, so memory stays bounded.
 """
 
 from __future__ import annotations
 
 import math
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from dataclasses import dataclass
 
 from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.render import block_shape, iter_tensor_bytes
 from seedbed.formats import EncodedBody, OutgoingTensor, encode_body, json_size
 from seedbed.web.documents import block_entry, response_document
+
+# Bytes a safetensors response may hold between its hashing pass and its data pass. One 4096 x
+# 4096 float32 tensor fits; a 1 GiB response still raises memory by less than the 128 MiB the
+# service promises.
+HOLD_BUDGET_BYTES = 64 << 20
+
+
+class _HoldBudget:
+    def __init__(self, total: int) -> None:
+        self.left = total
+
+    def take(self, nbytes: int) -> bool:
+        if nbytes > self.left:
+            return False
+        self.left -= nbytes
+        return True
+
+
+def _held_once(produce: Callable[[], Iterator[bytes]], nbytes: int,
+               budget: _HoldBudget) -> Callable[[], Iterator[bytes]]:
+    """chunks() for a tensor walked twice: the first walk keeps its pieces (if the budget
+    allows) and the second replays and releases them; any further walk generates anew."""
+    held: list[bytes] | None = None
+    walks = 0
+
+    def chunks() -> Iterator[bytes]:
+        nonlocal held, walks
+        walks += 1
+        if walks == 1 and budget.take(nbytes):
+            kept: list[bytes] = []
+            for piece in produce():
+                kept.append(piece)
+                yield piece
+            held = kept
+            return
+        if held is not None:
+            replay, held = held, None
+            budget.left += nbytes
+            yield from replay
+            return
+        yield from produce()
+
+    return chunks
 
 
 @dataclass(frozen=True)
@@ -37,10 +84,11 @@ class Selection:
 
 
 def outgoing_tensors(
-    plan: Plan, selection: Selection | None, chunk_bytes: int, threads: int
+    plan: Plan, selection: Selection | None, chunk_bytes: int, threads: int,
+    hold: _HoldBudget | None = None,
 ) -> list[OutgoingTensor]:
     def producer(t: TensorPlan, start: int, stop: int | None) -> OutgoingTensor:
-        def chunks() -> Iterator[bytes]:
+        def generate() -> Iterator[bytes]:
             return iter_tensor_bytes(plan, t, start, stop, chunk_bytes=chunk_bytes, threads=threads)
 
         if stop is None:
@@ -48,11 +96,13 @@ def outgoing_tensors(
         else:
             shape = tuple(block_shape(t, start, stop))
             entry = block_entry(t, shape, start, stop)
+        nbytes = math.prod(shape) * t.itemsize
+        chunks = generate if hold is None else _held_once(generate, nbytes, hold)
         return OutgoingTensor(
             name=t.tensor,
             dtype=t.dtype,
             shape=shape,
-            nbytes=math.prod(shape) * t.itemsize,
+            nbytes=nbytes,
             entry=entry,
             chunks=chunks,
         )
@@ -72,7 +122,8 @@ def json_size_of(plan: Plan, selection: Selection | None) -> int:
 def encode_weights(
     plan: Plan, selection: Selection | None, fmt: str, chunk_bytes: int, threads: int
 ) -> EncodedBody:
-    tensors = outgoing_tensors(plan, selection, chunk_bytes, threads)
+    hold = _HoldBudget(HOLD_BUDGET_BYTES) if fmt == "safetensors" else None
+    tensors = outgoing_tensors(plan, selection, chunk_bytes, threads, hold)
     doc = response_document(plan, None if selection is None else selection.describe())
     # Without digests, safetensors runs its hashing pass lazily, at the body's first step
     # (in the threadpool, after the headers went out).
