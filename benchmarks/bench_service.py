@@ -12,9 +12,12 @@ end-to-end tests) and prints:
     numpy: counter-based, platform-independent draws, a SHA-256 per tensor, and for safetensors
     a hashing pass before the first byte (the digests sit in the header). The in-process core
     render time is printed too, so the gap can be split between generation and HTTP.
-(b) POST /v1/plan requests per second for a 12-layer network at concurrency 1 and 8, with
+(b) POST /v1/plan requests per second for a 12-layer network at concurrency 1, 8 and 32, with
     latency percentiles, against GET /healthz (the cheapest round trip the service has) at the
-    same concurrency.
+    same concurrency (aim: plan >= half of healthz).
+(c) the server's peak resident memory while it streams a 1 GiB safetensors response (one
+    16384 x 16384 float32 layer, consumed and discarded by the client), against its idle
+    resident memory measured just before (aim: a rise of at most 128 MiB).
 
 Times in (a) are the best of N repeats (the run least disturbed by other work on the machine);
 compare ratios, not absolute times, between machines.
@@ -126,6 +129,41 @@ def load(
     return total / elapsed, sorted(latencies)
 
 
+def stream_memory(server: RunningServer) -> None:
+    """(c): sample the server's VmRSS every 20 ms while a 1 GiB body streams to a discarding
+    client; print idle, peak and the rise."""
+    side = 16384
+    request = single_dense(side, side, activation="relu")
+    idle = server.rss_bytes()
+    peak = idle
+    done = threading.Event()
+
+    def sample() -> None:
+        nonlocal peak
+        while not done.is_set():
+            peak = max(peak, server.rss_bytes())
+            time.sleep(0.02)
+
+    sampler = threading.Thread(target=sample, daemon=True)
+    sampler.start()
+    received = 0
+    began = time.perf_counter()
+    with httpx.Client(base_url=server.base_url, timeout=600) as http, http.stream(
+        "POST", "/v1/weights", params={"format": "safetensors"}, json=request
+    ) as response:
+        response.raise_for_status()
+        for piece in response.iter_bytes():
+            received += len(piece)
+    seconds = time.perf_counter() - began
+    done.set()
+    sampler.join()
+    mib = 2**20
+    print(f"(c) 1 GiB safetensors stream ({received / mib:.0f} MiB in {seconds:.1f} s)")
+    print(f"    server RSS idle {idle / mib:.1f} MiB, peak {peak / mib:.1f} MiB, "
+          f"rise {(peak - idle) / mib:.1f} MiB = {(peak - idle) / (128 * mib):.2f} x the "
+          "128 MiB budget")
+
+
 def percentile(sorted_values: list[float], q: float) -> float:
     # Nearest-rank percentile: the smallest value with at least q% of the sample at or below.
     rank = max(1, int(np.ceil(q / 100 * len(sorted_values))))
@@ -181,7 +219,7 @@ def run(args: argparse.Namespace, repeats: int, requests: int, scratch: Path) ->
         print(f"(b) POST /v1/plan, {len(network['layers'])}-layer network, {requests} requests")
         header = f"    {'route':<14}{'conc.':>6}{'req/s':>10}{'p50 ms':>9}{'p90 ms':>9}"
         print(header + f"{'p99 ms':>9}{'max ms':>9}{'x healthz':>11}")
-        for concurrency in (1, 8):
+        for concurrency in (1, 8, 32):
             floor, _ = load(server, "GET", "/healthz", None, concurrency, requests)
             rps, lat = load(server, "POST", "/v1/plan", network, concurrency, requests)
             for route, rate, values in (("/healthz", floor, None), ("/v1/plan", rps, lat)):
@@ -190,6 +228,8 @@ def run(args: argparse.Namespace, repeats: int, requests: int, scratch: Path) ->
                     continue
                 cells = "".join(f"{percentile(values, q) * 1000:>9.2f}" for q in (50, 90, 99, 100))
                 print(f"    {route:<14}{concurrency:>6}{rate:>10.1f}{cells}{rate / floor:>11.2f}")
+        print("    target: /v1/plan >= 0.5 x /healthz\n")
+        stream_memory(server)
     finally:
         server.stop()
     return 0
