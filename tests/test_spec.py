@@ -563,3 +563,12 @@ def test_canonical_form_is_a_fixed_point(body: dict[str, Any]) -> None:
     again = parse_request(json.loads(json.dumps(canon)))
     assert canonical_request(again) == canon
     assert again == first
+
+
+@pytest.mark.parametrize(("kind", "said"), [({}, "an object"), ([1], "a list of 1 items"),
+                                            (5, "the integer 5"), ("dens", "the string 'dens'")])
+def test_bad_kind_is_described_as_sent(kind: object, said: str) -> None:
+    with pytest.raises(RequestRejected) as err:
+        parse_request({"seed": 1, "layers": [{"name": "a", "kind": kind}]})
+    (problem,) = err.value.problems
+    assert problem.field == "layers[0].kind" and f"got {said};" in problem.message

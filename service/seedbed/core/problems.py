@@ -280,9 +280,10 @@ def _translate(root: type[BaseModel], error: Any) -> Problem:
         path = _join(where.path, "kind")
         if kind == "union_tag_not_found":
             return Problem(path, "missing_field", f"every layer needs a kind; allowed: {tags}")
-        return Problem(
-            path, "invalid_value", f"got {describe_input(ctx.get('tag'))}; allowed kinds: {tags}"
-        )
+        # pydantic reports the tag as a string even when it was an object or a list: describe
+        # the value as sent.
+        sent = value.get("kind") if isinstance(value, dict) else ctx.get("tag")
+        return Problem(path, "invalid_value", f"got {describe_input(sent)}; allowed kinds: {tags}")
 
     where = locate(root, loc)
     path = where.path
