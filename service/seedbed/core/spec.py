@@ -347,6 +347,15 @@ def _activation_allowed() -> str:
     return ", ".join(activation_names())
 
 
+def _checked_activation(value: str | None) -> str | None:
+    if value is not None and value not in activation_names():
+        raise field_error(
+            "invalid_value",
+            f"got {describe_input(value)}; allowed activations: {_activation_allowed()}",
+        )
+    return value
+
+
 _NAME_TEXT = (
     "1 to 128 characters of letters, digits, '_', '.', '-', starting with a letter, digit or '_'"
 )
@@ -492,12 +501,7 @@ class _LayerBase(_Strict):
     @field_validator("activation", mode="after")
     @classmethod
     def _check_activation(cls, value: str | None) -> str | None:
-        if value is not None and value not in activation_names():
-            raise field_error(
-                "invalid_value",
-                f"got {describe_input(value)}; allowed activations: {_activation_allowed()}",
-            )
-        return value
+        return _checked_activation(value)
 
     @model_validator(mode="before")
     @classmethod
@@ -856,12 +860,7 @@ class _BlockBase(_Strict):
     @field_validator("activation", mode="after")
     @classmethod
     def _check_activation_name(cls, value: str | None) -> str | None:
-        if value is not None and value not in activation_names():
-            raise field_error(
-                "invalid_value",
-                f"got {describe_input(value)}; allowed activations: {_activation_allowed()}",
-            )
-        return value
+        return _checked_activation(value)
 
     @model_validator(mode="before")
     @classmethod
