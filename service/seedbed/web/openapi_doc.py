@@ -104,16 +104,46 @@ def request_body(summary: str) -> dict[str, Any]:
     }
 
 
-def error_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
-    text = {
-        400: "Malformed JSON, NaN/Infinity, duplicate keys or an empty body.",
-        404: "No such endpoint.",
-        405: "Method not allowed on this path.",
-        413: "Too large: the body, the request's element counts, or a JSON response.",
-        415: "Content-Type is not application/json.",
-        422: "The request or a query parameter is not valid; every problem is listed.",
-    }
-    return {s: {"model": ErrorDoc, "description": text[s]} for s in statuses}
+ERROR_TEXT: dict[int, str] = {
+    400: "Malformed JSON, NaN/Infinity, duplicate keys or an empty body.",
+    401: "Missing, malformed, unknown or revoked key.",
+    404: "No such endpoint.",
+    405: "Method not allowed on this path; the Allow header lists the methods that are.",
+    409: "This server's generator differs from the one the recipe was published under.",
+    413: "Too large: the body, the request's element counts, or a JSON response.",
+    415: "Content-Type is not application/json.",
+    422: "The request or a query parameter is not valid; every problem is listed.",
+    503: "The registry database cannot be reached (Retry-After says when to try again).",
+}
+
+
+def error_responses(*statuses: int, **described: str) -> dict[int | str, dict[str, Any]]:
+    """Responses in the common error shape; `described` replaces the usual text of a status,
+    keyed `s404` and so on (for what a 404 means on a given path)."""
+    out: dict[int | str, dict[str, Any]] = {}
+    for s in statuses:
+        out[s] = {"model": ErrorDoc, "description": described.get(f"s{s}", ERROR_TEXT[s])}
+    return out
+
+
+# Reusable responses for any path: an unknown path answers 404 and a known path asked with
+# another method 405, both in the common shape (seedbed.web.errors). Operations that can
+# answer 404 themselves (an unknown recipe) list it among their own responses.
+SHARED_ERRORS: dict[str, dict[str, Any]] = {
+    "NotFound": {
+        "description": "No such endpoint, in the common error shape (field `(path)`, code "
+                       "`not_found`).",
+        "content": {"application/json": {"schema": {"$ref": "#/components/schemas/ErrorDoc"}}},
+    },
+    "MethodNotAllowed": {
+        "description": "The path exists but not with this method, in the common error shape "
+                       "(field `(method)`, code `method_not_allowed`); the Allow header lists "
+                       "the methods the path answers.",
+        "headers": {"Allow": {"schema": {"type": "string"},
+                              "description": "The methods this path answers."}},
+        "content": {"application/json": {"schema": {"$ref": "#/components/schemas/ErrorDoc"}}},
+    },
+}
 
 
 def _request_schema() -> tuple[dict[str, Any], dict[str, Any]]:
@@ -142,6 +172,7 @@ def install_openapi(app: FastAPI) -> None:
             components.update(defs)
             components[REQUEST_SCHEMA_NAME] = schema
             doc["components"]["schemas"] = dict(sorted(components.items()))
+            doc["components"]["responses"] = SHARED_ERRORS
             app.openapi_schema = doc
         return app.openapi_schema
 

@@ -31,6 +31,7 @@ from seedbed.core.diagnostics import (
 from seedbed.web.body import read_json_body
 from seedbed.web.openapi_doc import REQUEST_SCHEMA_NAME, error_responses
 from seedbed.web.plan_loader import settings_of
+from seedbed.web.response_models import DiagnosisDocument
 
 router = APIRouter(tags=["diagnostics"])
 
@@ -117,8 +118,10 @@ def _document(data: Any, request_limits: Any, limits: DiagnosticLimits,
     response_class=Response,
     responses={
         200: {
+            "model": DiagnosisDocument,
             "description": "The diagnosis (JSON), or its chart.",
-            "content": {"application/json": {"schema": {"type": "object"}},
+            "content": {"application/json": {
+                            "schema": {"$ref": "#/components/schemas/DiagnosisDocument"}},
                         SVG_MEDIA_TYPE: {"schema": {"type": "string"}},
                         "text/html": {"schema": {"type": "string"}}},
         },

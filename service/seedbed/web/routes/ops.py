@@ -7,6 +7,7 @@ from fastapi.responses import JSONResponse
 
 from seedbed.web import metrics as metrics_mod
 from seedbed.web.readiness import NOT_CHECKED, Readiness
+from seedbed.web.response_models import Liveness, NotReadyReport, ReadyReport
 from seedbed.web.routes.recipes import registry_problem
 
 router = APIRouter(tags=["operations"])
@@ -18,7 +19,8 @@ router = APIRouter(tags=["operations"])
     summary="Is the process alive?",
     description="Answers at once without touching the core; stays responsive while weights "
     "stream, because generation runs off the event loop.",
-    responses={200: {"content": {"application/json": {"example": {"status": "alive"}}}}},
+    responses={200: {"model": Liveness, "description": "Alive.",
+                     "content": {"application/json": {"example": {"status": "alive"}}}}},
 )
 @router.head(
     "/healthz",
@@ -38,6 +40,8 @@ async def healthz() -> JSONResponse:
     "their SHA-256 matched the values baked into the service; 503 with the reason otherwise.",
     responses={
         200: {
+            "model": ReadyReport,
+            "description": "Ready: the probe tensors match and the registry answers.",
             "content": {
                 "application/json": {
                     "example": {
@@ -52,7 +56,7 @@ async def healthz() -> JSONResponse:
                 }
             }
         },
-        503: {"description": "Not ready; `reason` says why."},
+        503: {"model": NotReadyReport, "description": "Not ready; `reason` says why."},
     },
 )
 @router.head("/readyz", operation_id="probeReadinessHead", summary="Readiness headers only.")

@@ -12,6 +12,7 @@ from seedbed.core.plan import plan_document
 from seedbed.web.etag import body_etag, none_match, strong_etag
 from seedbed.web.openapi_doc import error_responses, request_body
 from seedbed.web.plan_loader import load_plan
+from seedbed.web.response_models import CatalogDocument, PlanDocument
 
 router = APIRouter(tags=["weights"])
 
@@ -24,7 +25,7 @@ router = APIRouter(tags=["weights"])
     "distribution, fans, gain, std, bound, rationale and references. Cheap: nothing is "
     "generated. Carries an ETag; If-None-Match with it answers 304.",
     responses={
-        200: {"description": "The plan."},
+        200: {"model": PlanDocument, "description": "The plan."},
         304: {"description": "Unchanged."},
         **error_responses(400, 413, 415, 422),
     },
@@ -45,7 +46,8 @@ async def draft_plan(request: Request) -> Response:
     operation_id="describeCatalog",
     summary="Methods, distributions and activations the service knows",
     description="Each entry carries its gain and the published source it comes from.",
-    responses={200: {"description": "The catalog."}, 304: {"description": "Unchanged."}},
+    responses={200: {"model": CatalogDocument, "description": "The catalog."},
+               304: {"description": "Unchanged."}},
 )
 @router.head("/v1/catalog", operation_id="describeCatalogHead", summary="Catalog headers only.")
 async def describe_catalog(request: Request) -> Response:

@@ -61,6 +61,13 @@ from seedbed.web.etag import body_etag, none_match, strong_etag
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.openapi_doc import REQUEST_SCHEMA_NAME, error_responses
 from seedbed.web.plan_loader import settings_of
+from seedbed.web.response_models import (
+    PublishedRecipe,
+    RecipePage,
+    RecipeVersionList,
+    StoredRecipe,
+    WeightsDocument,
+)
 
 router = APIRouter(tags=["recipes"])
 
@@ -115,12 +122,10 @@ _PUBLISH_BODY = {
     }
 }
 ResponsesDoc = dict[int | str, dict[str, Any]]
-_AUTH_DOC: ResponsesDoc = {401: {"description": "Missing, malformed, unknown or revoked key."}}
-_UNAVAILABLE_DOC: ResponsesDoc = {
-    503: {"description": "The registry database cannot be reached."}
-}
+_AUTH_DOC: ResponsesDoc = error_responses(401)
+_UNAVAILABLE_DOC: ResponsesDoc = error_responses(503)
 _WEIGHTS_MEDIA = {
-    "application/json": {"schema": {"type": "object"}},
+    "application/json": {"schema": {"$ref": "#/components/schemas/WeightsDocument"}},
     "application/zip": {"schema": {"type": "string", "format": "binary"}},
     "application/octet-stream": {"schema": {"type": "string", "format": "binary"}},
 }
@@ -272,7 +277,8 @@ def _summary_doc(s: VersionSummary) -> dict[str, Any]:
     ),
     status_code=201,
     responses={
-        201: {"description": "Published; `Location` is the new version's URL."},
+        201: {"model": PublishedRecipe,
+              "description": "Published; `Location` is the new version's URL."},
         **_AUTH_DOC,
         **error_responses(400, 413, 415, 422),
         **_UNAVAILABLE_DOC,
@@ -319,10 +325,11 @@ _NAME = Path(description=f"The recipe's name: {NAME_PATTERN_TEXT}.",
     summary="Recipe names with their latest version",
     description="In name order, `limit` at a time; pass the previous page's `next_after` as "
     "`after` for the next page (null on the last page).",
-    responses={200: {"description": "One page of names."}, **_AUTH_DOC, **_UNAVAILABLE_DOC,
-               **error_responses(422)},
+    responses={200: {"model": RecipePage, "description": "One page of names."}, **_AUTH_DOC,
+               **_UNAVAILABLE_DOC, **error_responses(422)},
 )
-@router.head("/v1/recipes", operation_id="listRecipesHead", summary="List headers only.")
+@router.head("/v1/recipes", operation_id="listRecipesHead", summary="List headers only.",
+             responses=error_responses(422))
 async def list_recipe_names(
     request: Request,
     after: str | None = Query(None, description="Continue after this name.", max_length=100),
@@ -346,12 +353,12 @@ async def list_recipe_names(
     "/v1/recipes/{name}",
     operation_id="listRecipeVersions",
     summary="The versions of one recipe",
-    responses={200: {"description": "Every version, oldest first."}, **_AUTH_DOC,
-               404: {"description": "No recipe has this name."}, **_UNAVAILABLE_DOC,
-               **error_responses(422)},
+    responses={200: {"model": RecipeVersionList, "description": "Every version, oldest first."},
+               **_AUTH_DOC, **error_responses(404, s404="No recipe has this name."),
+               **_UNAVAILABLE_DOC, **error_responses(422)},
 )
 @router.head("/v1/recipes/{name}", operation_id="listRecipeVersionsHead",
-             summary="Version list headers only.")
+             summary="Version list headers only.", responses=error_responses(422))
 async def recipe_versions(request: Request, name: str = _NAME) -> Response:
     registry = await _registry(request)
     _checked_name(name)
@@ -382,12 +389,13 @@ _VERSION = Path(description="The version number (1, 2, 3 ...).", ge=1, le=2**31 
     operation_id="describeRecipeVersion",
     summary="One stored version: request, plan, fingerprints, publisher and time",
     description="Never changes once published: strong ETag, cacheable for a year.",
-    responses={200: {"description": "The stored version."}, 304: {"description": "Unchanged."},
-               **_AUTH_DOC, 404: {"description": "No such name or version."},
+    responses={200: {"model": StoredRecipe, "description": "The stored version."},
+               304: {"description": "Unchanged."}, **_AUTH_DOC,
+               **error_responses(404, s404="No such name or version."),
                **_UNAVAILABLE_DOC, **error_responses(422)},
 )
 @router.head("/v1/recipes/{name}/{version}", operation_id="describeRecipeVersionHead",
-             summary="Stored version headers only.")
+             summary="Stored version headers only.", responses=error_responses(422))
 async def recipe_version(
     request: Request, name: str = _NAME, version: int = _VERSION
 ) -> Response:
@@ -440,17 +448,18 @@ def _replanned(record: RecipeVersion, settings_limits: Any) -> Plan:
     ),
     response_class=Response,
     responses={
-        200: {"description": "The weights.", "content": _WEIGHTS_MEDIA},
+        200: {"model": WeightsDocument, "description": "The weights.", "content": _WEIGHTS_MEDIA},
         304: {"description": "Unchanged: the caller's ETag matches."},
         **_AUTH_DOC,
-        404: {"description": "No such name or version."},
-        409: {"description": "This server's generator differs from the recipe's."},
+        **error_responses(404, s404="No such name or version."),
+        **error_responses(409),
         **error_responses(413, 422),
         **_UNAVAILABLE_DOC,
     },
 )
 @router.head("/v1/recipes/{name}/{version}/weights", operation_id="fetchRecipeWeightsHead",
-             summary="Weights headers only.", response_class=Response)
+             summary="Weights headers only.", response_class=Response,
+             responses=error_responses(422))
 async def recipe_weights(
     request: Request,
     name: str = _NAME,

@@ -17,13 +17,14 @@ from seedbed.web.etag import none_match, strong_etag
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.openapi_doc import error_responses, request_body
 from seedbed.web.plan_loader import load_plan, settings_of
+from seedbed.web.response_models import WeightsDocument
 
 router = APIRouter(tags=["weights"])
 
 WeightsFormat = Literal["json", "npz", "safetensors"]
 
 _MEDIA_DOC = {
-    "application/json": {"schema": {"type": "object"}},
+    "application/json": {"schema": {"$ref": "#/components/schemas/WeightsDocument"}},
     "application/zip": {"schema": {"type": "string", "format": "binary"}},
     "application/octet-stream": {"schema": {"type": "string", "format": "binary"}},
 }
@@ -67,7 +68,7 @@ def _select(plan: Plan, tensor: str | None, rows: str | None) -> Selection | Non
     ),
     response_class=Response,
     responses={
-        200: {"description": "The weights.", "content": _MEDIA_DOC},
+        200: {"model": WeightsDocument, "description": "The weights.", "content": _MEDIA_DOC},
         304: {"description": "Unchanged: the caller's ETag matches."},
         **error_responses(400, 413, 415, 422),
     },
