@@ -75,6 +75,7 @@ def create_app(
     app.state.metrics = metrics
     app.state.readiness = None
     app.state.audit_limits = AuditLimits(max_upload_bytes=settings.max_audit_bytes)
+    app.state.diagnostic_limits = settings.diagnostics
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
     for router in (plan.router, weights.router, diagnose.router, audit.router, recipes.router,

@@ -13,9 +13,11 @@ from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
+from seedbed.core.diagnostics import DiagnosticLimits
 from seedbed.core.limits import Limits
 
 PREFIX = "SEEDBED_"
+DIAGNOSE_PREFIX = PREFIX + "DIAGNOSE_"
 LOG_LEVELS = ("critical", "error", "warning", "info", "debug")
 
 T = TypeVar("T")
@@ -89,6 +91,8 @@ class Settings:
     # Largest weights file POST /v1/audit accepts (read in a spool, never all in memory).
     max_audit_bytes: int = 256 << 20
     limits: Limits = field(default_factory=Limits)
+    # POST /v1/diagnose budgets, read as SEEDBED_DIAGNOSE_<FIELD> (e.g. SEEDBED_DIAGNOSE_MAX_BATCH).
+    diagnostics: DiagnosticLimits = field(default_factory=DiagnosticLimits)
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None) -> Settings:
@@ -105,6 +109,13 @@ class Settings:
                 limit_values[f.name] = _int_in(1, _MAX_INT)(var, env[var])
         if limit_values:
             values["limits"] = Limits(**limit_values)
+        budget_values: dict[str, int] = {}
+        for f in dataclasses.fields(DiagnosticLimits):
+            var = DIAGNOSE_PREFIX + f.name.upper()
+            if var in env:
+                budget_values[f.name] = _int_in(1, _MAX_INT)(var, env[var])
+        if budget_values:
+            values["diagnostics"] = DiagnosticLimits(**budget_values)
         return cls(**values)
 
 
@@ -136,5 +147,10 @@ def settings_table() -> list[tuple[str, str, str]]:
     rows += [
         (PREFIX + f.name.upper(), shown(getattr(defaults.limits, f.name)), f"limits.{f.name}")
         for f in dataclasses.fields(Limits)
+    ]
+    rows += [
+        (DIAGNOSE_PREFIX + f.name.upper(), shown(getattr(defaults.diagnostics, f.name)),
+         f"diagnostics.{f.name}")
+        for f in dataclasses.fields(DiagnosticLimits)
     ]
     return rows
