@@ -21,7 +21,6 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-import time
 from collections.abc import Callable
 from pathlib import Path
 
@@ -29,20 +28,13 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "service"))
 
+from timing import best_of
+
 from seedbed.core.diagnostics import diagnose
 from seedbed.core.plan import build_plan
 from seedbed.core.render import render_rows
 
 WIDTH, DEPTH = 1024, 50
-
-
-def best_of(repeats: int, fn: Callable[[], object]) -> float:
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return min(times)
 
 
 def main() -> None:

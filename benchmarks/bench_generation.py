@@ -13,7 +13,6 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-import time
 from collections.abc import Callable
 from pathlib import Path
 
@@ -21,19 +20,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "service"))
 
+from timing import best_of
+
 from seedbed.core.rng import derive_key, fill_standard, round_to_dtype
 
 SHAPE = (4096, 4096)
 COUNT = SHAPE[0] * SHAPE[1]
-
-
-def best_of(repeats: int, fn: Callable[[], object]) -> float:
-    times = []
-    for _ in range(repeats):
-        t0 = time.perf_counter()
-        fn()
-        times.append(time.perf_counter() - t0)
-    return min(times)
 
 
 def main() -> None:
