@@ -261,3 +261,40 @@ def test_service_errors_name_the_module(base_url: str, tmp_path: Path) -> None:
     caught = c
     assert caught.value.field == "layers[1].activation"
     assert "layers[1] is module b (layer b)" in caught.value.__notes__
+
+
+def test_cli_writes_the_state_named_file(base_url: str, tmp_path: Path) -> None:
+    import os
+    import subprocess
+    import sys
+
+    tests_dir = Path(__file__).resolve().parents[1]
+    (tmp_path / "gauge_factory.py").write_text(
+        "from support.torch_models import GaugeModel\n\n\ndef build():\n    return GaugeModel()\n"
+    )
+    env = dict(os.environ)
+    env["PYTHONPATH"] = os.pathsep.join([str(tmp_path), str(tests_dir), env.get("PYTHONPATH", "")])
+    env["SEEDBED_CACHE_DIR"] = str(tmp_path / "cache")
+    out = tmp_path / "gauge.safetensors"
+    done = subprocess.run(
+        [sys.executable, "-m", "seedbed_client", "torch-weights", "gauge_factory:build",
+         "--seed", "gauge/3", "-o", str(out), "--server", base_url],
+        env=env, capture_output=True, text=True, timeout=300, check=False,
+    )  # fmt: skip
+    assert done.returncode == 0, done.stderr
+    assert "graph read from: forward hooks" in done.stdout
+    model = tm.GaugeModel()
+    model.load_state_dict(safetensors_torch.load_file(str(out)), strict=True)
+    served = _served_plain(base_url, tm.gauge_request())
+    assert model.a.weight.detach().numpy().tobytes() == served["a.weight"].tobytes()
+    bad = subprocess.run(
+        [sys.executable, "-m", "seedbed_client", "torch-weights", "gauge_factory",
+         "--seed", "1", "-o", str(out), "--server", base_url],
+        env=env, capture_output=True, text=True, timeout=300, check=False,
+    )  # fmt: skip
+    assert bad.returncode == 2 and "MODULE:FACTORY" in bad.stderr
+
+
+def _served_plain(base_url: str, request: dict[str, Any]) -> dict[str, np.ndarray]:
+    with httpx.Client(base_url=base_url, timeout=60) as http:
+        return _served(http, request)
