@@ -298,3 +298,60 @@ def test_cli_writes_the_state_named_file(base_url: str, tmp_path: Path) -> None:
 def _served_plain(base_url: str, request: dict[str, Any]) -> dict[str, np.ndarray]:
     with httpx.Client(base_url=base_url, timeout=60) as http:
         return _served(http, request)
+
+
+def test_fused_projection_parts_equal_the_unfused_tensors(
+    client: httpx.Client, base_url: str, tmp_path: Path
+) -> None:
+    # torch.nn.MultiheadAttention reference: in_proj_weight stacks the query, key and value
+    # projections along the output axis. Each third must be the service's own tensor.
+    model = tm.SensorEncoder()
+    with Client(base_url, cache_dir=tmp_path / "cache") as sb:
+        report = seed_module(model, sb, seed="sensor-tokens/1")
+    served = _served(client, report.request)
+    attn = model.enc[1].self_attn
+    weight = attn.in_proj_weight.detach().numpy()
+    bias = attn.in_proj_bias.detach().numpy()
+    for k, part in enumerate(("query", "key", "value")):
+        assert (
+            weight[16 * k : 16 * (k + 1)].tobytes()
+            == served[f"enc.1.self_attn.{part}.weight"].tobytes()
+        )
+        assert (
+            bias[16 * k : 16 * (k + 1)].tobytes()
+            == served[f"enc.1.self_attn.{part}.bias"].tobytes()
+        )
+    assert (
+        attn.out_proj.weight.detach().numpy().tobytes()
+        == served["enc.1.self_attn.output.weight"].tobytes()
+    )
+    assert (
+        model.enc[1].norm2.weight.detach().numpy().tobytes()
+        == served["enc.1.norm2.scale"].tobytes()
+    )
+
+
+def test_policy_tensors_and_multipliers_are_reported(base_url: str, tmp_path: Path) -> None:
+    with Client(base_url, cache_dir=tmp_path / "cache") as sb:
+        gated = seed_module(tm.GaugeModel(), sb, seed=1, depth_policy={"name": "skip_gate"})
+        wide = seed_module(
+            tm.GaugeModel(), sb, seed=1, depth_policy={"name": "width_transfer", "base_width": 12}
+        )
+    assert gated.unused_tensors == ["c.skip.gate"]
+    assert any("c.skip.gate" in n for n in gated.notes)
+    assert {m["name"] for m in wide.multipliers} >= {"learning_rate_scale"}
+
+
+def test_calibrated_file_equals_the_calibrated_module(
+    client: httpx.Client, base_url: str, tmp_path: Path
+) -> None:
+    model = tm.GaugeModel()
+    with Client(base_url, cache_dir=tmp_path / "cache") as sb:
+        report = seed_module(model, sb, seed="gauge/3")
+    calibrate_module(model, report, _sample("gauge"))
+    path = tmp_path / "calibrated.safetensors"
+    write_state_file(model, report, _served(client, report.request), path)
+    loaded = safetensors_torch.load_file(str(path))
+    for key, value in model.state_dict().items():
+        assert torch.equal(loaded[key], value), key
+    assert "calibrated: batch sha256" in report.table()
