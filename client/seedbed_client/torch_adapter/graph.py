@@ -42,13 +42,17 @@ _PASS_CALLS = frozenset(
         "type_as", "getitem", "max_pool1d", "max_pool2d", "max_pool3d", "avg_pool1d",
         "avg_pool2d", "avg_pool3d", "adaptive_avg_pool1d", "adaptive_avg_pool2d",
         "adaptive_avg_pool3d", "adaptive_max_pool1d", "adaptive_max_pool2d",
-        "adaptive_max_pool3d", "mean", "chunk_view", "expand", "expand_as", "detach",
+        "adaptive_max_pool3d", "mean", "expand", "expand_as", "detach", "split", "chunk",
+        "unbind", "tensor_split",
     }
 )  # fmt: skip
 # Calls that only read metadata: no data edge (a position index built from x.size(1) is not
 # a path from x).
 _META_CALLS = frozenset({"size", "dim", "numel", "shape", "get", "device", "dtype", "ndim"})
 _ADD_CALLS = frozenset({"add", "radd", "iadd"})
+# Calls that consume a projection as attention's query, key or value: no elementwise
+# nonlinearity acts on it, so the projection is linear (as the service plans attention).
+_ATTENTION_CALLS = frozenset({"scaled_dot_product_attention"})
 _MUL_CALLS = frozenset({"mul", "rmul", "imul", "multiply", "matmul", "bmm", "einsum", "div"})
 
 
@@ -233,9 +237,8 @@ def read_by_hooks(module: nn.Module, sample: Any) -> Flow:
     for leaf in leaves:
         qualname = names[id(leaf)]
 
-        def before(m: nn.Module, args: Any, kwargs: Any, q: str = qualname) -> None:
+        def before(m: nn.Module, args: Any, kwargs: Any) -> None:
             recorder.inside += 1
-            m._seedbed_reads = (args, kwargs)  # type: ignore[assignment]
 
         def after(m: nn.Module, args: Any, kwargs: Any, output: Any, q: str = qualname) -> None:
             recorder.inside -= 1
@@ -256,8 +259,6 @@ def read_by_hooks(module: nn.Module, sample: Any) -> Flow:
     finally:
         for h in handles:
             h.remove()
-        for leaf in leaves:
-            leaf.__dict__.pop("_seedbed_reads", None)
         module.train(was_training)
     return Flow(recorder.ops, "forward hooks")
 
@@ -333,6 +334,8 @@ def following(flow: Flow, op_index: int, modules: Mapping[str, nn.Module],
                 stack.extend(flow.users[u.index])
             elif u.target in _ADD_CALLS:
                 found.add(("add", u.index))
+            elif u.target in _ATTENTION_CALLS:
+                found.add(("attention", u.target))
             elif u.target in _MUL_CALLS and len(u.inputs) >= 2:
                 found.add(("mul", u.target))
             elif u.target in _MUL_CALLS:
@@ -364,6 +367,8 @@ def following(flow: Flow, op_index: int, modules: Mapping[str, nn.Module],
         )
     if "add" in kinds:
         reasons.append("a residual add")
+    if "attention" in kinds:
+        reasons.append("scaled dot-product attention")
     if "output" in kinds:
         reasons.append("the network output")
     return Following(("linear", None), "feeds " + " and ".join(reasons), "",

@@ -202,3 +202,33 @@ def test_table_shows_every_layer_with_its_sources() -> None:
     ]
     assert lines[3].split()[:4] == ["b", "dense", "relu", "forward"]
     assert "graph read from: forward hooks" in lines
+
+
+class FusedAttentionBlock(nn.Module):
+    """Hand-written attention with one fused projection split into q, k, v (a common way to
+    write GPT-style blocks), torch's scaled_dot_product_attention, and a residual add."""
+
+    def __init__(self, dim: int = 16, heads: int = 2) -> None:
+        super().__init__()
+        self.heads = heads
+        self.norm = nn.LayerNorm(dim)
+        self.qkv = nn.Linear(dim, 3 * dim)
+        self.out = nn.Linear(dim, dim)
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        b, t, d = x.shape
+        q, k, v = self.qkv(self.norm(x)).split(d, dim=2)
+        q, k, v = (z.view(b, t, self.heads, d // self.heads).transpose(1, 2) for z in (q, k, v))
+        y = F.scaled_dot_product_attention(q, k, v, is_causal=True)
+        return x + self.out(y.transpose(1, 2).contiguous().view(b, t, d))
+
+
+@pytest.mark.parametrize("graph", ["trace", "hooks"])
+def test_fused_projection_into_attention_is_linear_and_in_the_branch(graph: str) -> None:
+    report = describe_module(
+        FusedAttentionBlock(), seed=1, graph=graph, example_input=torch.randn(2, 5, 16)
+    )
+    layers = {layer["name"]: layer for layer in report.request["layers"]}
+    assert layers["qkv"]["activation"] == "linear"
+    assert {layers[n]["branch"] for n in ("norm", "qkv", "out")} == {"out.skip"}
+    assert layers["out"]["role"] == "residual_out"
