@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from seedbed import cli
-from seedbed.core.limits import Limits
+from seedbed.core.request.limits import Limits
 from seedbed.web.settings import Settings, SettingsError, settings_table
 
 

@@ -116,7 +116,7 @@ def _serve(args: argparse.Namespace) -> int:
 
 def _plan(args: argparse.Namespace) -> int:
     from seedbed.core.plan import build_plan, plan_document
-    from seedbed.core.problems import RequestRejected
+    from seedbed.core.request.problems import RequestRejected
 
     try:
         if args.file == "-":

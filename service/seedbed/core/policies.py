@@ -28,8 +28,8 @@ taken with mpmath in a private context at 113 bits and rounded once to float64 (
 integer arithmetic, the same on every machine); elsewhere only + - * / and sqrt are used.
 
 API:
-    policy_problems(request) -> [Problem]     the policy's fit to the network (parse_request)
-    apply_policy(request, choices) -> PolicyOutcome
+    policy_problems(parsed) -> [Problem]      the policy's fit to the network (run by parse)
+    apply_policy(parsed, choices) -> PolicyOutcome
 """
 
 from __future__ import annotations
@@ -42,24 +42,24 @@ from typing import Any
 
 import mpmath
 
-from seedbed.core.problems import Problem, RequestRejected
 from seedbed.core.recommend import Choice
 from seedbed.core.references import cite, short_cite
-from seedbed.core.scales import distribution_for_std, glorot_scale, realise
-from seedbed.core.spec import (
+from seedbed.core.request.branches import MAP_KINDS, Branch, input_width
+from seedbed.core.request.layers import AnyLayer, EmbeddingLayer
+from seedbed.core.request.network import NetworkRequest
+from seedbed.core.request.parsed import ParsedRequest
+from seedbed.core.request.policy_models import (
     SCALED_RESIDUAL_BASE_STD,
-    AnyLayer,
     DeepNormPolicy,
-    EmbeddingLayer,
     FixupPolicy,
-    NetworkRequest,
     ScaledResidualPolicy,
     SkipGatePolicy,
     TFixupPolicy,
+    TransformerDepth,
     WidthTransferPolicy,
-    _TransformerDepth,
 )
-from seedbed.core.structure import MAP_KINDS, Branch, branches_of, input_width
+from seedbed.core.request.problems import Problem, RequestRejected
+from seedbed.core.scales import distribution_for_std, glorot_scale, realise
 from seedbed.core.tensors import TensorSlot
 
 Entry = tuple[TensorSlot, Choice]
@@ -472,7 +472,7 @@ class _Stacks:
     start: int  # index of the decoder's first layer (len(layers) for an encoder only)
 
 
-def _stacks(net: _Net, policy: _TransformerDepth) -> tuple[_Stacks | None, list[Problem]]:
+def _stacks(net: _Net, policy: TransformerDepth) -> tuple[_Stacks | None, list[Problem]]:
     label = "deepnorm" if isinstance(policy, DeepNormPolicy) else "t_fixup"
     layers = net.request.layers
     arch = policy.architecture
@@ -824,23 +824,24 @@ def _problems(net: _Net) -> list[Problem]:
         return _need_branches(net, "skip_gate")
     if isinstance(policy, ScaledResidualPolicy):
         return _scaled_residual_problems(net, policy)
-    if isinstance(policy, _TransformerDepth):
+    if isinstance(policy, TransformerDepth):
         return _stacks(net, policy)[1]
     if isinstance(policy, WidthTransferPolicy):
         return _width(net, policy)[1]
     return []
 
 
-def policy_problems(request: NetworkRequest) -> list[Problem]:
+def policy_problems(parsed: ParsedRequest) -> list[Problem]:
     """Why the request's depth policy cannot apply to its network (empty when it can)."""
-    if request.depth_policy is None:
+    if parsed.request.depth_policy is None:
         return []
-    return _problems(_Net(request, [], branches_of(request)))
+    return _problems(_Net(parsed.request, [], list(parsed.branches)))
 
 
-def apply_policy(request: NetworkRequest, choices: Sequence[Sequence[Entry]]) -> PolicyOutcome:
+def apply_policy(parsed: ParsedRequest, choices: Sequence[Sequence[Entry]]) -> PolicyOutcome:
     """The plan's choices (one list per layer) after the request's depth policy."""
-    net = _Net(request, [list(c) for c in choices], branches_of(request))
+    request = parsed.request
+    net = _Net(request, [list(c) for c in choices], list(parsed.branches))
     out = PolicyOutcome(choices=net.choices)
     policy = request.depth_policy
     if policy is None:

@@ -23,7 +23,7 @@ from collections.abc import Iterator
 import numpy as np
 
 from seedbed.core.plan_types import Plan, TensorPlan
-from seedbed.core.problems import Problem, RequestRejected
+from seedbed.core.request.problems import Problem, RequestRejected
 from seedbed.core.rng import derive_key, fill_standard, round_to_dtype, standard_runs
 
 # Runs shorter than this are cheaper to draw as part of whole contiguous batches.

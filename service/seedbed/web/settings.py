@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
 from seedbed.core.diagnostics import DiagnosticLimits
-from seedbed.core.limits import Limits
+from seedbed.core.request.limits import Limits
 
 PREFIX = "SEEDBED_"
 DIAGNOSE_PREFIX = PREFIX + "DIAGNOSE_"

@@ -24,18 +24,12 @@ from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.concurrency import run_in_threadpool
 
-from seedbed.core.audit import (
-    AuditLimits,
-    FormError,
-    FormPartsParser,
-    PartInfo,
-    UploadRefused,
-    audit_upload,
-    boundary_of,
-)
+from seedbed.core.audit import AuditLimits, UploadRefused
 from seedbed.core.plan import build_plan
 from seedbed.core.plan_types import Plan
-from seedbed.core.problems import RequestRejected
+from seedbed.core.request.problems import RequestRejected
+from seedbed.formats.multipart_in import FormError, FormPartsParser, PartInfo, boundary_of
+from seedbed.formats.upload_in import audit_upload
 from seedbed.web.errors import ApiError, Fault
 from seedbed.web.openapi_doc import EXAMPLES, REQUEST_SCHEMA_NAME, error_responses
 from seedbed.web.plan_loader import settings_of
