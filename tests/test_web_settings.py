@@ -9,7 +9,7 @@ import pytest
 
 from seedbed import cli
 from seedbed.core.request.limits import Limits
-from seedbed.web.settings import Settings, SettingsError, settings_table
+from seedbed.settings import Settings, SettingsError, settings_table
 
 
 def test_defaults() -> None:

@@ -7,8 +7,8 @@ from starlette.requests import Request
 
 from seedbed.core.plan import build_plan
 from seedbed.core.plan_types import Plan
+from seedbed.settings import Settings
 from seedbed.web.body import read_json_body
-from seedbed.web.settings import Settings
 
 
 def settings_of(request: Request) -> Settings:

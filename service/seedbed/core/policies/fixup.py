@@ -39,8 +39,8 @@ def _fixup_problems(net: _Net) -> list[Problem]:
                 _policy_field("name"),
                 "not_allowed",
                 f"fixup scales branches of dense and conv layers; {len(foreign)} branch layer(s) "
-                f"are of other kinds, the first {layer.kind} layer {layer.name!r} at layers[{k}] in "
-                f"branch {layer.branch!r}; for transformer branches use t_fixup or deepnorm",
+                f"are of other kinds, the first {layer.kind} layer {layer.name!r} at layers[{k}] "
+                f"in branch {layer.branch!r}; for transformer branches use t_fixup or deepnorm",
             )
         )
     empty = [b for b in net.branches if b.last_map is None]
