@@ -23,7 +23,6 @@ from collections.abc import Iterator
 import numpy as np
 
 from seedbed.core.plan_types import Plan, TensorPlan
-from seedbed.core.request.problems import Problem, RequestRejected
 from seedbed.core.rng import derive_key, fill_standard, round_to_dtype, standard_runs
 
 # Runs shorter than this are cheaper to draw as part of whole contiguous batches.
@@ -40,22 +39,6 @@ def _prod(shape: tuple[int, ...]) -> int:
 def block_shape(t: TensorPlan, start: int, stop: int) -> tuple[int, ...]:
     """Served shape of rows [start, stop) of `t`."""
     return (stop - start, *t.shape[1:])
-
-
-def parse_rows(text: str, t: TensorPlan) -> tuple[int, int]:
-    """Parse 'START:STOP' for the served first axis of `t` (STOP exclusive, both required)."""
-    rows = t.shape[0]
-    allowed = (f"START:STOP with 0 <= START < STOP <= {rows} "
-               f"(rows of {t.tensor}, shape {list(t.shape)})")
-    parts = text.split(":")
-    if len(parts) != 2 or not all(p.isdigit() and len(p) <= 19 for p in parts):
-        problem = Problem("rows", "invalid_value", f"rows must be {allowed}; got {text!r}")
-        raise RequestRejected([problem])
-    start, stop = int(parts[0]), int(parts[1])
-    if not 0 <= start < stop <= rows:
-        problem = Problem("rows", "out_of_range", f"rows must be {allowed}; got {text!r}")
-        raise RequestRejected([problem])
-    return start, stop
 
 
 def _check_block(t: TensorPlan, start: int, stop: int | None) -> int:

@@ -29,10 +29,10 @@ from seedbed.core.plan_types import Plan
 from seedbed.core.request.problems import RequestRejected
 from seedbed.formats.multipart_in import FormError, FormPartsParser, PartInfo, boundary_of
 from seedbed.formats.upload_in import audit_upload
-from seedbed.settings import Settings, SettingsError
+from seedbed.settings import Settings
+from seedbed.web.dependencies import audit_limits_of, settings_of
 from seedbed.web.errors import ApiError, Fault
 from seedbed.web.openapi_doc import EXAMPLES, REQUEST_SCHEMA_NAME, error_responses
-from seedbed.web.plan_loader import settings_of
 
 router = APIRouter(tags=["audit"])
 
@@ -50,21 +50,6 @@ def audit_limits_from_env(environ: Mapping[str, str] | None = None) -> AuditLimi
     """AuditLimits with max_upload_bytes from SEEDBED_MAX_AUDIT_BYTES (default 256 MiB), read
     by the service settings like every other variable."""
     return AuditLimits(max_upload_bytes=Settings.from_env(environ).max_audit_bytes)
-
-
-def _limits_of(request: Request) -> AuditLimits:
-    # Read once per app; tests (and later the settings) may place their own on app.state.
-    state = request.app.state
-    limits = getattr(state, "audit_limits", None)
-    if not isinstance(limits, AuditLimits):
-        try:
-            limits = audit_limits_from_env()
-        except SettingsError as exc:
-            # Not the caller's fault: say what the operator must fix.
-            raise ApiError.one(500, MAX_AUDIT_ENV, "bad_setting",
-                               f"the service is misconfigured: {exc}") from None
-        state.audit_limits = limits
-    return limits
 
 
 def _too_large(field: str, seen: str, limit: int, what: str) -> ApiError:
@@ -347,7 +332,7 @@ _REQUEST_BODY = {
     openapi_extra=_REQUEST_BODY,
 )
 async def audit_weights(request: Request) -> JSONResponse:
-    limits = _limits_of(request)
+    limits = audit_limits_of(request)
     raw_type = request.headers.get("content-type")
     media = (raw_type or "").split(";", 1)[0].strip().lower()
     raw_request: bytes | None = None
