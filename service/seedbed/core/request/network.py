@@ -26,8 +26,8 @@ from seedbed.core.request.problems import (
     problems_from_validation_error,
 )
 from seedbed.core.request.vocabulary import DType, Layout
-from seedbed.core.rng.keys import SEED_INT_MAX
-from seedbed.core.rng.keys import SEED_STR_MAX_CHARS as SEED_STR_MAX
+from seedbed_client.generator.keys import SEED_INT_MAX
+from seedbed_client.generator.keys import SEED_STR_MAX_CHARS as SEED_STR_MAX
 
 _EXAMPLE_REQUEST: dict[str, Any] = {
     "seed": 20261201,
