@@ -263,13 +263,31 @@ def read_by_hooks(module: nn.Module, sample: Any) -> Flow:
     return Flow(recorder.ops, "forward hooks")
 
 
-def build_sample_input(module: nn.Module) -> tuple[Any, str] | None:
-    """A small sample input built from the first parameterised module's declared shape, and a
-    sentence saying how; None when the first module does not declare one."""
+def build_sample_input(
+    module: nn.Module, shape: tuple[int, ...] | None = None
+) -> tuple[Any, str] | None:
+    """A small sample input, and a sentence saying how it was built: of the caller's declared
+    `shape` (token ids when the first parameterised module is an embedding, else standard
+    normal values), or from the first parameterised module's declared size; None when neither
+    says enough."""
     gen = torch.Generator().manual_seed(0)
     dtype = next((p.dtype for p in module.parameters()), torch.float32)
+    if shape is not None:
+        first = next(
+            (
+                m
+                for m in module.modules()
+                if is_leaf_module(m) and next(m.parameters(), None) is not None
+            ),
+            None,
+        )
+        if isinstance(first, nn.Embedding):
+            ids = torch.randint(0, first.num_embeddings, shape, generator=gen)
+            return ids, f"token ids of the declared shape {tuple(shape)}"
+        x = torch.randn(shape, generator=gen, dtype=dtype)
+        return x, f"a standard normal batch of the declared shape {tuple(shape)}"
     for qualname, m in module.named_modules():
-        shape: tuple[int, ...] | None = None
+        shape = None
         if isinstance(m, nn.Embedding):
             ids = torch.randint(0, m.num_embeddings, (2, 8), generator=gen)
             return ids, f"token ids (2, 8) below {qualname}'s vocabulary of {m.num_embeddings}"

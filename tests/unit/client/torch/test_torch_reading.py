@@ -232,3 +232,15 @@ def test_fused_projection_into_attention_is_linear_and_in_the_branch(graph: str)
     assert layers["qkv"]["activation"] == "linear"
     assert {layers[n]["branch"] for n in ("norm", "qkv", "out")} == {"out.skip"}
     assert layers["out"]["role"] == "residual_out"
+
+
+def test_declared_input_shape_builds_the_sample_for_the_forward_pass() -> None:
+    # The sample built from the embedding's size has 8 positions; this decoder's mask needs 16.
+    with pytest.raises(SpecInvalid, match="forward pass"):
+        describe_module(tm.TimetableDecoder(blocks=1), seed=1, graph="hooks")
+    report = describe_module(
+        tm.TimetableDecoder(blocks=1), seed=1, graph="hooks", input_shape=(2, 16)
+    )
+    assert report.graph_source == "forward hooks"
+    assert any("declared shape (2, 16)" in n for n in report.notes)
+    assert report.request["layers"] == tm.decoder_request(blocks=1)["layers"]
