@@ -244,3 +244,24 @@ def test_declared_input_shape_builds_the_sample_for_the_forward_pass() -> None:
     assert report.graph_source == "forward hooks"
     assert any("declared shape (2, 16)" in n for n in report.notes)
     assert report.request["layers"] == tm.decoder_request(blocks=1)["layers"]
+
+
+class TiedWithBias(nn.Module):
+    def __init__(self) -> None:
+        super().__init__()
+        self.emb = nn.Embedding(20, 6)
+        self.head = nn.Linear(6, 20)
+        self.head.weight = self.emb.weight
+
+    def forward(self, ids: torch.Tensor) -> torch.Tensor:
+        return self.head(self.emb(ids))
+
+
+def test_tied_head_with_a_bias_gets_a_zero_bias_and_a_note() -> None:
+    report = describe_module(TiedWithBias(), seed=1)
+    assert [layer["name"] for layer in report.request["layers"]] == ["emb"]
+    zero = [c for c in report.copies if c.parameter == "head.bias"]
+    assert len(zero) == 1 and zero[0].zero
+    assert any(
+        "head: weight tied to emb.weight" in n and "bias set to zero" in n for n in report.notes
+    )
