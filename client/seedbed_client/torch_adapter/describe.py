@@ -254,6 +254,10 @@ def describe_module(
         elif p.fixed_activation is not None:
             act, f.activation_from = p.fixed_activation, FROM_MODULE
             f.why.append(p.fixed_reason)
+        elif p.needs_activation and p.module == "":
+            # The module is one layer: its output is the network's output.
+            act, f.activation_from = ("linear", None), FROM_MODULE
+            f.why.append("the module is a single layer; its output is the network's output")
         elif p.needs_activation:
             reason = ""
             if flow is not None:
