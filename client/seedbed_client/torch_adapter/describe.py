@@ -389,6 +389,16 @@ def _assign_branches(flow: g.Flow, parts: list[Part], facts: list[LayerFacts],
             skip_layers = sorted(
                 {parts[k].layer["name"] for c in add.skip for k in by_call.get(c, [])}
             )
+            feeds = (
+                [parts[k].layer["name"] for k in by_call.get(add.source, [])]
+                if add.source is not None
+                else []
+            )
+            reads_text = (
+                f"; {skip_layers[0]} reads the block's input, the output of {feeds[-1]}"
+                if feeds and skip_layers
+                else ""
+            )
             notes.append(
                 f"residual add with a projection on the skip path ({', '.join(skip_layers)}): "
                 f"seedbed branches add an identity skip, so {parts[members[0]].layer['name']} .. "
@@ -398,6 +408,7 @@ def _assign_branches(flow: g.Flow, parts: list[Part], facts: list[LayerFacts],
                     if last is not None
                     else ""
                 )
+                + reads_text
             )
             if last is not None and parts[last].layer.get("role", "hidden") == "hidden":
                 parts[last].layer["role"], facts[last].role_from = "residual_out", source

@@ -405,6 +405,9 @@ class ResidualAdd:
     op: int
     branch: tuple[int, ...]
     skip: tuple[int, ...]
+    # The latest layer call whose output feeds both paths (None: the network input or no
+    # layer): what a projection skip reads.
+    source: int | None = None
 
 
 def residual_adds(flow: Flow, layer_modules: frozenset[str]) -> tuple[list[ResidualAdd], list[str]]:
@@ -449,7 +452,8 @@ def residual_adds(flow: Flow, layer_modules: frozenset[str]) -> tuple[list[Resid
                 adds.append(ResidualAdd(op.index, members, ()))
             continue
         branch, skip = (side_a, side_b) if len(side_a) >= len(side_b) else (side_b, side_a)
-        adds.append(ResidualAdd(op.index, branch, skip))
+        upstream = [c for c in layer_calls if c == origin or flow.is_ancestor(c, origin)]
+        adds.append(ResidualAdd(op.index, branch, skip, max(upstream) if upstream else None))
     return adds, notes
 
 

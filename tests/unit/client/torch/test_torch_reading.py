@@ -265,3 +265,15 @@ def test_tied_head_with_a_bias_gets_a_zero_bias_and_a_note() -> None:
     assert any(
         "head: weight tied to emb.weight" in n and "bias set to zero" in n for n in report.notes
     )
+
+
+def test_projection_skip_is_reported_with_what_it_reads() -> None:
+    report = describe_module(tm.KilnNet(), seed=1)
+    (note,) = [n for n in report.notes if "projection on the skip path" in n]
+    assert "(stage.1.down.0, stage.1.down.1)" in note
+    assert "stage.1.down.0 reads the block's input, the output of stage.0.bn3" in note
+    layers = {layer["name"]: layer for layer in report.request["layers"]}
+    assert (
+        "branch" not in layers["stage.1.conv1"]
+        and layers["stage.1.conv3"]["role"] == "residual_out"
+    )
