@@ -246,6 +246,27 @@ class OnnxReviewDoc(BaseModel):
     )
 
 
+class OnnxTensorDoc(BindingDoc):
+    tensor: str = Field(description="The initializer's name.")
+    dtype: str
+    sha256: str = Field(description="Of the raw little-endian C-order bytes.")
+    data: str | None = Field(None, description="json format: the bytes in base64.")
+    planned: list[dict[str, Any]] = Field(description="The plan entries of `sources`.")
+
+
+class OnnxWeightsDoc(BaseModel):
+    algorithm: str
+    numpy: str
+    seed: int | str
+    dtype: str
+    layout: str
+    warnings: list[str]
+    onnx: dict[str, Any] = Field(
+        description="The inferred request, kept initializers and formula constants."
+    )
+    tensors: list[OnnxTensorDoc]
+
+
 _BINARY = {"schema": {"type": "string", "format": "binary"}}
 _UPLOAD = {
     "requestBody": {
@@ -266,7 +287,13 @@ _UPLOAD = {
                             "description": "The ONNX model file.",
                         }
                     },
-                }
+                },
+                "examples": {
+                    "orchard_counter": {
+                        "summary": "An exported fruit-counting CNN (any .onnx file)",
+                        "value": {MODEL_PART: "(binary ONNX file: orchard_counter.onnx)"},
+                    }
+                },
             },
         },
     }
@@ -351,9 +378,10 @@ def _encode(imported: ImportedModel, fmt: str) -> EncodedBody:
     response_class=Response,
     responses={
         200: {
+            "model": OnnxWeightsDoc,
             "description": "The weights.",
             "content": {
-                "application/json": _BINARY,
+                "application/json": {"schema": {"$ref": "#/components/schemas/OnnxWeightsDoc"}},
                 "application/zip": _BINARY,
                 "application/octet-stream": _BINARY,
             },
