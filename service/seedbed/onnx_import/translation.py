@@ -704,14 +704,13 @@ class _Reader:
         elif node.op_type == "Gelu" and _text(_attr(node, "approximate", "none")) != "none":
             layer.activation_from += " (tanh approximation, planned as exact GELU)"
         elif node.op_type == "HardSigmoid":
-            alpha, beta = float(_attr(node, "alpha", 0.2)), float(_attr(node, "beta", 0.5))
-            if abs(alpha - 0.2) > 1e-6 or abs(beta - 0.5) > 1e-6:
-                raise self.refuse(
-                    j,
-                    "unsupported_attribute",
-                    f"alpha {alpha} and beta {beta} "
-                    "differ from the defaults (0.2, 0.5) whose gain seedbed knows",
-                )
+            # HardSigmoid (opset 6): max(0, min(1, alpha * x + beta)); seedbed's hard_sigmoid
+            # is centred (beta 1/2) with the slope as its parameter.
+            beta = float(_attr(node, "beta", 0.5))
+            if abs(beta - 0.5) > 1e-6:
+                raise self.refuse(j, "unsupported_attribute", f"beta is {beta}; only the "
+                                  "centred ramp (beta 0.5) has a gain seedbed knows")
+            layer.activation_param = _float32_text(_attr(node, "alpha", 0.2))
         elif node.op_type == "Selu":
             # Selu (opset 6) defaults are float32 roundings of Klambauer et al. (2017)'s closed
             # forms; other values change the fixed point the LeCun rule relies on.

@@ -308,7 +308,7 @@ def test_normalisations(http: TestClient) -> None:
         ("Selu", {}, "selu", None),
         ("Softplus", {}, "softplus", None),
         ("Gelu", {}, "gelu", None),
-        ("HardSigmoid", {}, "hard_sigmoid", None),
+        ("HardSigmoid", {}, "hard_sigmoid", 0.2),
         ("HardSwish", {}, "hard_swish", None),
     ],
 )
