@@ -15,7 +15,7 @@ import numpy as np
 
 from seedbed.core.plan_types import Plan
 from seedbed.core.render import render_rows, to_little_endian_bytes
-from seedbed.core.rng import round_to_dtype
+from seedbed_client.generator import round_to_dtype
 from seedbed.core.spec import GATES
 from seedbed.onnx_import.translation import CELLS, Binding
 from seedbed_client.framework_layouts import reorder_gate_blocks, transposed_conv_kernel
