@@ -15,18 +15,18 @@ import numpy as np
 
 from seedbed.core.plan_types import Plan
 from seedbed.core.render import render_rows, to_little_endian_bytes
+from seedbed.onnx_import.translation import Binding
+from seedbed_client.framework_layouts import (
+    FRAMEWORK_GATE_ORDERS,
+    SEEDBED_GATE_ORDERS,
+    regate,
+    transposed_conv_to_in_first,
+    two_bias_split,
+)
 from seedbed_client.generator import round_to_dtype
-from seedbed.core.spec import GATES
-from seedbed.onnx_import.translation import CELLS, Binding
-from seedbed_client.framework_layouts import reorder_gate_blocks, transposed_conv_kernel
 
 _CELL_OF_GATES: dict[tuple[str, ...], str] = {
-    gates: CELLS[op]
-    for op, gates in (
-        ("LSTM", ("input", "output", "forget", "cell")),
-        ("GRU", ("update", "reset", "candidate")),
-        ("RNN", ("candidate",)),
-    )
+    gates: cell for cell, gates in FRAMEWORK_GATE_ORDERS["onnx"].items()
 }
 
 
@@ -45,18 +45,17 @@ def binding_array(
     if conversion == "transposed":
         return np.ascontiguousarray(get(binding.sources[0]).T).reshape(shape)
     if conversion == "transposed_conv":
-        return transposed_conv_kernel(get(binding.sources[0]), binding.groups).reshape(shape)
+        return transposed_conv_to_in_first(get(binding.sources[0]), binding.groups).reshape(shape)
     cell = _CELL_OF_GATES[binding.gates]
-    ours = GATES[cell]
-    parts = [reorder_gate_blocks(get(name), ours, binding.gates) for name in binding.sources]
+    ours = SEEDBED_GATE_ORDERS[cell]
+    parts = [regate(get(name), ours, binding.gates) for name in binding.sources]
     if conversion == "recurrent_weights":
         return np.stack(parts).reshape(shape)
     if conversion == "recurrent_bias":
         # The graph adds an input bias and a recurrence bias; seedbed plans one bias per gate
         # unit (the LSTM forget gate's 1 among them), so it goes in the input half whole and
         # the recurrence half is zero: their sum is the planned bias.
-        zeros = np.zeros_like(parts[0])
-        return np.stack([np.concatenate([p, zeros]) for p in parts]).reshape(shape)
+        return np.stack([np.concatenate(two_bias_split(p)) for p in parts]).reshape(shape)
     raise ValueError(f"unknown conversion {conversion!r}")
 
 

@@ -29,6 +29,7 @@ from onnx import numpy_helper
 
 from seedbed.onnx_import.loading import LoadedModel
 from seedbed.onnx_import.refusals import ModelRefused
+from seedbed_client.framework_layouts import FRAMEWORK_GATE_ORDERS
 
 # ONNX element types seedbed can fill, and the request dtype each one becomes.
 FLOAT_TYPES: dict[int, str] = {
@@ -97,14 +98,12 @@ ARITHMETIC: frozenset[str] = frozenset(
         "Abs",
     }
 )
-RECURRENT_GATES: dict[str, tuple[str, ...]] = {
-    # ONNX operator specification, LSTM (opset 7..22): W is [iofc], B is [Wb, Rb].
-    "LSTM": ("input", "output", "forget", "cell"),
-    # GRU (opset 7..22): W is [zrh] = update, reset, hidden (the candidate).
-    "GRU": ("update", "reset", "candidate"),
-    "RNN": ("candidate",),
-}
 CELLS = {"LSTM": "lstm", "GRU": "gru", "RNN": "simple"}
+# ONNX operator specification, LSTM (opset 7..22): W is [iofc], B is [Wb, Rb]; GRU: W is [zrh]
+# = update, reset, hidden (the candidate). The shared table holds them in seedbed's gate names.
+RECURRENT_GATES: dict[str, tuple[str, ...]] = {
+    op: tuple(FRAMEWORK_GATE_ORDERS["onnx"][cell]) for op, cell in CELLS.items()
+}
 _RNN_ACTIVATIONS = {"Tanh": "tanh", "Relu": "relu", "Sigmoid": "sigmoid"}
 _NAME_OK = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.\-]*")
 
