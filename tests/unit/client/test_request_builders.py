@@ -26,10 +26,11 @@ from seedbed_client.layers import (
 
 def _service_accepts(request: dict[str, Any]) -> bool:
     from seedbed.core.request.parse import parse
+    from seedbed.core.request.problems import RequestRejected
 
     try:
         parse(request)
-    except Exception:  # the service's refusal, whatever its class is called after refactors
+    except RequestRejected:
         return False
     return True
 
