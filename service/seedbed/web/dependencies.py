@@ -14,7 +14,7 @@ from seedbed.core.diagnostics import DiagnosticLimits
 from seedbed.core.plan import build_plan
 from seedbed.core.plan_types import Plan
 from seedbed.settings import Settings
-from seedbed.web.body import read_json_body
+from seedbed.web.json_body import read_json_body
 from seedbed.web.metrics import ServiceMetrics
 
 

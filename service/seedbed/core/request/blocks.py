@@ -240,9 +240,8 @@ BLOCK_MODELS: dict[str, type[BlockBase]] = {
     "transformer_block": TransformerBlock,
     "residual_conv_block": ResidualConvBlock,
 }
-AnyBlock = TransformerBlock | ResidualConvBlock
 
-LayerOrBlockSpec = Annotated[
+LayerOrBlockItem = Annotated[
     Union[  # noqa: UP007
         DenseLayer, ConvLayer, EmbeddingLayer, RecurrentLayer, AttentionLayer, NormLayer,
         TransformerBlock, ResidualConvBlock,
@@ -277,7 +276,7 @@ if TYPE_CHECKING:
     LayerList = list[AnyLayer]
 else:
     LayerList = Annotated[
-        list[LayerOrBlockSpec], Field(min_length=1), AfterValidator(_expand_blocks)
+        list[LayerOrBlockItem], Field(min_length=1), AfterValidator(_expand_blocks)
     ]
 
 

@@ -166,11 +166,8 @@ POLICY_MODELS: dict[str, type[StrictModel]] = {
     "t_fixup": TFixupPolicy,
     "width_transfer": WidthTransferPolicy,
 }
-AnyPolicy = (
-    FixupPolicy | SkipGatePolicy | ScaledResidualPolicy | DeepNormPolicy | TFixupPolicy
-    | WidthTransferPolicy
-)  # fmt: skip
-DepthPolicy = Annotated[
+# The `depth_policy` field's models: depth-aware rules and width transfer alike.
+PolicyField = Annotated[
     Union[  # noqa: UP007
         FixupPolicy, SkipGatePolicy, ScaledResidualPolicy, DeepNormPolicy, TFixupPolicy,
         WidthTransferPolicy,

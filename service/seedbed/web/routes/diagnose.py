@@ -28,8 +28,8 @@ from seedbed.core.diagnostics import (
     diagnose,
     diagnosis_document,
 )
-from seedbed.web.body import read_json_body
 from seedbed.web.dependencies import diagnostic_limits_of, settings_of
+from seedbed.web.json_body import read_json_body
 from seedbed.web.openapi_doc import REQUEST_SCHEMA_NAME, error_responses
 from seedbed.web.response_models import DiagnosisDocument
 
