@@ -770,10 +770,31 @@ class NetworkSpec:
                 first[layer.name] = i
         out.extend(self._branch_problems(first))
         if self.depth_policy is not None:
-            out.extend(self.depth_policy.problems())
+            policy_problems = self.depth_policy.problems()
+            out.extend(policy_problems)
+            if not policy_problems:
+                out.extend(self._decoder_start_problems(first))
         if not out:
             out.extend(limit_problems(self._dict(), limits))
         return out
+
+    def _decoder_start_problems(self, names: Mapping[str, int]) -> Iterator[Problem]:
+        start = self.depth_policy.decoder_start if self.depth_policy is not None else None
+        if start is None:
+            return
+        where = "depth_policy.decoder_start"
+        if start not in names:
+            yield Problem(where, "invalid_value", f"{start!r} names no layer of the request")
+            return
+        i = names[start]
+        branch = getattr(self.layers[i], "branch", None)
+        if branch is not None and i > 0 and getattr(self.layers[i - 1], "branch", None) == branch:
+            yield Problem(
+                where,
+                "invalid_value",
+                f"decoder_start {start!r} falls inside branch {branch!r}; allowed: a layer "
+                "outside any branch or the first layer of one",
+            )
 
     def _branch_problems(self, names: Mapping[str, int]) -> Iterator[Problem]:
         # The structural rules of docs/depth.md the client can check without widths.

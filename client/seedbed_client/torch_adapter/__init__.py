@@ -41,6 +41,7 @@ __all__ = [
     "apply_weights",
     "calibrate_module",
     "describe_module",
+    "fetch_for",
     "parameter_values",
     "seed_module",
     "write_state_file",

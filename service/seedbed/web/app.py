@@ -12,13 +12,13 @@ from starlette.routing import Route
 
 from seedbed import __version__
 from seedbed.core.audit import AuditLimits
+from seedbed.settings import Settings
 from seedbed.web.errors import install_error_handlers
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
 from seedbed.web.routes import audit, diagnose, onnx_models, ops, plan, recipes, weights
-from seedbed.web.settings import Settings
 
 DESCRIPTION = (
     "Seeded, reproducible, explained initial weights for neural networks. Describe a network's "
