@@ -285,8 +285,30 @@ class JaxprFacts:
                 out = self.eqns[readers[0]].outvars[0]
         return out, spanned
 
+    def _tanh_gelu_end(self, var: Any) -> int | None:
+        """x * 0.5 * (1 + tanh(sqrt(2/pi) (x + 0.044715 x^3))) (jax.nn.gelu's default)."""
+        readers = self.readers.get(var, [])
+        pows = [j for j in readers if self.eqns[j].primitive.name == "integer_pow"
+                and self.eqns[j].params.get("y") == 3]
+        if not pows:
+            return None
+        v, seen_tanh = self.eqns[pows[0]].outvars[0], False
+        for _ in range(8):
+            nxt = self.readers.get(v, [])
+            if len(nxt) != 1:
+                return None
+            eqn = self.eqns[nxt[0]]
+            seen_tanh = seen_tanh or eqn.primitive.name == "tanh"
+            if seen_tanh and eqn.primitive.name == "mul" and var in eqn.invars:
+                return nxt[0]
+            v = eqn.outvars[0]
+        return None
+
     def _gelu_end(self, var: Any) -> int | None:
         """x * 0.5 * erfc(-x / sqrt 2) (jax.nn.gelu, approximate=False) read from `var`."""
+        tanh_form = self._tanh_gelu_end(var)
+        if tanh_form is not None:
+            return tanh_form
         for j in self.readers.get(var, []):
             if self.eqns[j].primitive.name != "neg":
                 continue
@@ -323,7 +345,8 @@ class JaxprFacts:
         for _ in range(64):
             gelu = self._gelu_end(var)
             if gelu is not None and found is None:
-                found = ("gelu", None, "the erfc GELU pattern")
+                how = "tanh" if self._tanh_gelu_end(var) is not None else "erfc"
+                found = ("gelu", None, f"the {how} GELU pattern")
                 var = self.eqns[gelu].outvars[0]
                 continue
             soft = self._softmax_end(var) if found is None else None

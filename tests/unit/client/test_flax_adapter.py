@@ -111,3 +111,22 @@ def test_lstm_cell_gates_and_forget_bias() -> None:
     c_want = sig(f) * np.asarray(c0, np.float64) + sig(i) * np.tanh(g)
     np.testing.assert_allclose(np.asarray(c), c_want, rtol=1e-5, atol=1e-6)
     np.testing.assert_allclose(np.asarray(h), sig(o) * np.tanh(c_want), rtol=1e-5, atol=1e-6)
+
+
+def test_gelu_forms_and_a_residual_branch() -> None:
+    class Pollen(nn.Module):
+        @nn.compact
+        def __call__(self, x: Any) -> Any:
+            h = nn.LayerNorm(name="norm")(x)
+            h = nn.gelu(nn.Dense(8, name="spread")(h))  # tanh form, flax's default
+            x = x + nn.Dense(4, name="mix")(h)
+            return nn.Dense(2, name="count")(nn.gelu(x, approximate=False))
+
+    model, x = Pollen(), jnp.ones((2, 4))
+    variables = model.init(jax.random.PRNGKey(0), x)
+    d = describe_params(variables, seed=1, apply_fn=model.apply, example_input=x)
+    rows = {t.name: t for t in d.layers}
+    assert rows["spread"].activation == "gelu" and "tanh" in rows["spread"].activation_from
+    assert rows["mix"].activation == "linear"  # the add comes first: the GELU is after the join
+    assert rows["norm"].branch == rows["spread"].branch == rows["mix"].branch is not None
+    assert rows["count"].branch is None and rows["count"].role == "output"
