@@ -25,6 +25,7 @@ import numpy as np
 from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.problems import Problem, RequestRejected
 from seedbed.core.rng import derive_key, fill_standard, round_to_dtype, standard_runs
+from seedbed.core.rng.fill import fill_scaled
 
 # Runs shorter than this are cheaper to draw as part of whole contiguous batches.
 _MIN_RUN = 256
@@ -161,6 +162,12 @@ def _flat_values(plan: Plan, t: TensorPlan, first: int, last: int, threads: int 
             values = _block_values(t, first, last)
         else:
             values = np.full(last - first, t.scale, dtype=np.float64)
+    elif t.dtype in ("float32", "float64"):
+        # Scaling and the one rounding happen inside the generator: no float64 copy.
+        out = np.empty(last - first, dtype=t.dtype)
+        key = derive_key(plan.seed, t.tensor)
+        fill_scaled(t.sampler, key, out, first, t.scale, threads=threads)
+        return out
     else:
         values = np.empty(last - first, dtype=np.float64)
         fill_standard(t.sampler, derive_key(plan.seed, t.tensor), values, first, threads=threads)
