@@ -12,6 +12,7 @@ from starlette.routing import Route
 
 from seedbed import __version__
 from seedbed.core.audit import AuditLimits
+from seedbed.core.rng import kernel as generator_kernel
 from seedbed.web.errors import install_error_handlers
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
@@ -29,6 +30,15 @@ DESCRIPTION = (
 )
 
 
+def _size_numeric_thread_pools(threads: int) -> None:
+    """BLAS (diagnose's matrix products, orthogonal QR) gets the same thread budget as a
+    request's generation: with W workers of cores / W threads each, the workers' pools never
+    add up to more threads than cores."""
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(limits=threads)
+
+
 def create_app(
     settings: Settings | None = None,
     *,
@@ -39,12 +49,14 @@ def create_app(
     arguments replace the baked /readyz values (tests use them to prove a mismatch is caught)."""
     settings = Settings.from_env() if settings is None else settings
     metrics = ServiceMetrics()
+    generator_kernel.set_enabled(settings.generator_kernel)
+    _size_numeric_thread_pools(settings.threads_per_request())
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         app.state.readiness = await anyio.to_thread.run_sync(
             lambda: self_check(
-                reference_digests, reference_algorithm, threads=settings.generation_threads
+                reference_digests, reference_algorithm, threads=settings.threads_per_request()
             )
         )
         # Opens (creating or upgrading) the recipe database now rather than on the first

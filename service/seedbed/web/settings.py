@@ -84,8 +84,11 @@ class Settings:
     # base64 inside JSON costs 4/3 of the raw bytes and the client must hold it all to parse it;
     # above this size we point callers to npz or safetensors.
     max_json_response_bytes: int = 64 << 20
-    # Threads the core may use to fill one tensor (per request).
-    generation_threads: int = 1
+    # Threads the core may use to fill one tensor (per request); 0: the machine's cores divided
+    # by the workers, so that workers x threads never exceeds the cores.
+    generation_threads: int = 0
+    # The compiled generator kernel (same bytes as the numpy reference); off forces numpy.
+    generator_kernel: bool = True
     # Size of the pieces a response is generated and sent in: the memory a stream holds at once.
     chunk_bytes: int = 4 << 20
     # Largest weights file POST /v1/audit accepts (read in a spool, never all in memory).
@@ -93,6 +96,12 @@ class Settings:
     limits: Limits = field(default_factory=Limits)
     # POST /v1/diagnose budgets, read as SEEDBED_DIAGNOSE_<FIELD> (e.g. SEEDBED_DIAGNOSE_MAX_BATCH).
     diagnostics: DiagnosticLimits = field(default_factory=DiagnosticLimits)
+
+    def threads_per_request(self) -> int:
+        """generation_threads, with 0 resolved to the cores left per worker (at least 1)."""
+        if self.generation_threads:
+            return self.generation_threads
+        return max(1, (os.cpu_count() or 1) // self.workers)
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None) -> Settings:
@@ -127,7 +136,8 @@ _PARSERS: dict[str, Callable[[str, str], Any]] = {
     "access_log": _flag,
     "max_body_bytes": _int_in(1024, _GIB),
     "max_json_response_bytes": _int_in(1024, 16 * _GIB),
-    "generation_threads": _int_in(1, 256),
+    "generation_threads": _int_in(0, 256),
+    "generator_kernel": _flag,
     "chunk_bytes": _int_in(4096, _GIB),
     "max_audit_bytes": _int_in(1024, 64 * _GIB),
 }

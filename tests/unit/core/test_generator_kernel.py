@@ -86,8 +86,15 @@ def test_golden_vectors_as_float64(compiled) -> None:
 @pytest.mark.parametrize(
     ("start", "count"),
     # chunk edges (1024 values), lane offsets, a far block and the top of the index range
-    [(0, 1), (3, 1023), (1, 1024), (5, 1025), (0, 300_001), (2**40 + 3, 70_000),
-     (2**63 - 9000, 9000)],
+    [
+        (0, 1),
+        (3, 1023),
+        (1, 1024),
+        (5, 1025),
+        (0, 300_001),
+        (2**40 + 3, 70_000),
+        (2**63 - 9000, 9000),
+    ],
 )
 def test_float64_values_equal_the_reference(compiled, dist: str, start: int, count: int) -> None:
     for stream in (0, 7):
@@ -172,7 +179,11 @@ def _run(code: str, extra_env: dict[str, str]) -> dict[str, object]:
     env.update(extra_env)
     env["PYTHONPATH"] = str(ROOT / "service")
     done = subprocess.run(
-        [sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=300,
+        [sys.executable, "-c", code],
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=300,
         check=False,
     )
     assert done.returncode == 0, done.stderr[-3000:]
@@ -232,7 +243,10 @@ def test_no_fused_multiply_add_in_the_built_kernel(compiled) -> None:
     listing = subprocess.run(
         [objdump, "-d", compiled.__file__], capture_output=True, text=True, check=True
     ).stdout
-    fused = [line for line in listing.splitlines() if "vfmadd" in line or "vfmsub" in line
-             or "vfnmadd" in line or "vfnmsub" in line]
+    fused = [
+        line
+        for line in listing.splitlines()
+        if "vfmadd" in line or "vfmsub" in line or "vfnmadd" in line or "vfnmsub" in line
+    ]
     assert "mulpd" in listing or "mulsd" in listing  # the disassembly is of the real loops
     assert not fused, fused[:5]

@@ -147,7 +147,7 @@ async def diagnose_signal(
     settings = settings_of(request)
     data = await read_json_body(request, settings.max_body_bytes)
     document = await run_in_threadpool(_document, data, settings.limits, _limits(request),
-                                       settings.generation_threads)
+                                       settings.threads_per_request())
     if chart == "svg":
         return Response(chart_svg(document), media_type=SVG_MEDIA_TYPE)
     if chart == "html":

@@ -296,7 +296,7 @@ async def publish_recipe(request: Request) -> Response:
         raise _refused(exc) from None
     body = await read_json_body(request, settings.max_body_bytes)
     prepared: PreparedRecipe = await run_in_threadpool(
-        prepare_recipe, body, settings.limits, settings.generation_threads
+        prepare_recipe, body, settings.limits, settings.threads_per_request()
     )
     try:
         summary = await _db(publish, registry.engine, prepared, token)
@@ -499,7 +499,7 @@ async def recipe_weights(
                 f"{settings.max_json_response_bytes} (SEEDBED_MAX_JSON_RESPONSE_BYTES); ask for "
                 "format=npz or format=safetensors",
             )
-    tensors = outgoing_tensors(plan, None, settings.chunk_bytes, settings.generation_threads)
+    tensors = outgoing_tensors(plan, None, settings.chunk_bytes, settings.threads_per_request())
     # With digests given the formats verify every tensor while streaming and skip their own
     # hashing pass; the bytes are the same either way.
     encoded = await run_in_threadpool(

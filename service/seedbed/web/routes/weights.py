@@ -124,7 +124,8 @@ async def generate_weights(
             )
     # safetensors hashes every tensor before its first byte: that pass must not block the loop.
     encoded = await run_in_threadpool(
-        encode_weights, plan, selection, format, settings.chunk_bytes, settings.generation_threads
+        encode_weights, plan, selection, format, settings.chunk_bytes,
+        settings.threads_per_request(),
     )
     metrics: ServiceMetrics = request.app.state.metrics
     values = plan.total_count if selection is None else selection.count
