@@ -37,8 +37,8 @@ class _KernelBuild(build_ext):
 def kernel_build_options(package_dir: str) -> dict[str, Any]:
     """setup() keywords that build seedbed_client._generator_kernel from `package_dir`."""
     kernel = Extension(
-        "seedbed_client._generator_kernel",
-        sources=[f"{package_dir}/generator_kernel.c"],
+        "seedbed_client.generator._kernel",
+        sources=[f"{package_dir}/generator/_kernel.c"],
         optional=True,  # no compiler, no headers: install anyway, use the numpy generator
     )
     return {"ext_modules": [kernel], "cmdclass": {"build_ext": _KernelBuild}}

@@ -172,7 +172,7 @@ def _settings(args: argparse.Namespace) -> int:
           "SEEDBED_DATABASE_URL, default an SQLite file under SEEDBED_DATA_DIR)")
     print(f"registry reads need a key: {'on' if registry.read_requires_key else 'off'} "
           "(SEEDBED_READ_REQUIRES_KEY)")
-    from seedbed.core.rng import kernel
+    from seedbed_client.generator import kernel
 
     state = kernel.status() if current.generator_kernel else kernel.set_enabled(False)
     print(f"generator: {state.describe()}; {current.threads_per_request()} thread(s) per "

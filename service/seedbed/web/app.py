@@ -12,7 +12,6 @@ from starlette.routing import Route
 
 from seedbed import __version__
 from seedbed.core.audit import AuditLimits
-from seedbed.core.rng import kernel as generator_kernel
 from seedbed.web.errors import install_error_handlers
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
@@ -20,6 +19,7 @@ from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
 from seedbed.web.routes import audit, diagnose, ops, plan, recipes, weights
 from seedbed.web.settings import Settings
+from seedbed_client.generator import kernel as generator_kernel
 
 DESCRIPTION = (
     "Seeded, reproducible, explained initial weights for neural networks. Describe a network's "

@@ -20,8 +20,8 @@ from typing import Any
 
 from seedbed.core.plan import build_plan
 from seedbed.core.render import iter_tensor_bytes
-from seedbed.core.rng import kernel as generator_kernel
 from seedbed.core.version import ALGORITHM
+from seedbed_client.generator import kernel as generator_kernel
 
 _LAYERS: list[dict[str, Any]] = [
     {

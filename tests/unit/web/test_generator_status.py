@@ -12,8 +12,8 @@ from pathlib import Path
 import pytest
 from fastapi.testclient import TestClient
 
-from seedbed.core.rng import kernel
 from seedbed.web import Settings, create_app
+from seedbed_client.generator import kernel
 
 ROOT = Path(__file__).resolve().parents[3]
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
@@ -60,7 +60,7 @@ def test_settings_command_says_which_generator_runs(tmp_path: Path) -> None:
     env = {"SEEDBED_DATA_DIR": str(tmp_path), "SEEDBED_GENERATION_THREADS": "3"}
     # A fresh install without a compiler has no extension module: block its import.
     missing = _settings_output(
-        "import sys; sys.modules['seedbed_client._generator_kernel'] = None\n", env
+        "import sys; sys.modules['seedbed_client.generator._kernel'] = None\n", env
     )
     assert "generator: reference (compiled kernel unavailable" in missing
     assert "3 thread(s) per request" in missing

@@ -1,9 +1,9 @@
 """The optional compiled kernel of this generator, and whether it is in use.
 
-`seedbed_client._generator_kernel` is a C extension built at install time when a compiler is
-available (client/seedbed_client/generator_kernel.c). It computes the same float64 operations
+`seedbed_client.generator._kernel` is a C extension built at install time when a compiler is
+available (client/seedbed_client/generator/_kernel.c). It computes the same float64 operations
 as the numpy reference in the same order, so it produces the same bytes; the byte-equality
-tests (tests/unit/core/test_generator_kernel.py) hold it to that. Without it, or when switched
+tests (tests/unit/client/test_generator_kernel.py) hold it to that. Without it, or when switched
 off, every function here reports so and the callers use the numpy reference: same bytes,
 slower.
 
@@ -48,7 +48,7 @@ def _wide_loops_allowed() -> bool:
 
 def _load() -> tuple[ModuleType | None, KernelStatus]:
     try:
-        import seedbed_client._generator_kernel as module
+        import seedbed_client.generator._kernel as module
     except ImportError as exc:
         reason = f"compiled kernel unavailable: {exc}; using the numpy reference (same bytes)"
         return None, KernelStatus("reference", reason)

@@ -533,12 +533,12 @@ static PyMethodDef kernel_methods[] = {
 };
 
 static struct PyModuleDef kernel_module = {
-    PyModuleDef_HEAD_INIT, "_generator_kernel",
+    PyModuleDef_HEAD_INIT, "_kernel",
     "Compiled kernel of seedbed's generator (same bytes as the numpy reference).", -1,
     kernel_methods,
 };
 
-PyMODINIT_FUNC PyInit__generator_kernel(void)
+PyMODINIT_FUNC PyInit__kernel(void)
 {
     return PyModule_Create(&kernel_module);
 }

@@ -20,10 +20,10 @@ import pytest
 
 from seedbed.core.plan import build_plan
 from seedbed.core.render import iter_tensor_bytes, render_rows
-from seedbed.core.rng import DISTRIBUTIONS, derive_key, fill_standard, kernel, standard_runs
-from seedbed.core.rng.fill import fill_reference, fill_scaled
-from seedbed.core.rng.philox import DrawSource
 from seedbed.web.readiness import PROBE_REQUESTS
+from seedbed_client.generator import DISTRIBUTIONS, derive_key, fill_standard, kernel, standard_runs
+from seedbed_client.generator.fill import fill_reference, fill_scaled
+from seedbed_client.generator.philox import DrawSource
 
 ROOT = Path(__file__).resolve().parents[3]
 VECTORS = json.loads((ROOT / "tests" / "vectors" / "rng_vectors.json").read_text("utf-8"))
@@ -192,8 +192,8 @@ def _run(code: str, extra_env: dict[str, str]) -> dict[str, object]:
 
 _COMPARE = """
 import json, numpy as np
-from seedbed.core.rng import kernel, derive_key
-from seedbed.core.rng.fill import fill_reference
+from seedbed_client.generator import kernel, derive_key
+from seedbed_client.generator.fill import fill_reference
 key = derive_key("estuary-7", "pump.0.weight")
 same = True
 for dist, code in kernel.DIST_CODES.items():
@@ -223,11 +223,11 @@ def test_without_the_kernel_the_same_fingerprints_and_the_reason_shown() -> None
     # A fresh install without a compiler has no extension module; making the import fail
     # reproduces that in a child process.
     code = (
-        "import sys; sys.modules['seedbed_client._generator_kernel'] = None\n"
+        "import sys; sys.modules['seedbed_client.generator._kernel'] = None\n"
         "import json, runpy, io, contextlib\n"
         f"sys.path.insert(0, {str(ROOT / 'tests' / 'vectors')!r})\n"
         "from rng_fingerprint import fingerprints\n"
-        "from seedbed.core.rng import kernel\n"
+        "from seedbed_client.generator import kernel\n"
         "print(json.dumps({'status': kernel.status().describe(), 'prints': fingerprints()}))\n"
     )
     result = _run(code, {})
