@@ -16,6 +16,7 @@ from seedbed.web.errors import install_error_handlers
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
+from seedbed.web.plan_cache import PlanCache
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
 from seedbed.web.routes import audit, diagnose, ops, plan, recipes, weights
 from seedbed.web.settings import Settings
@@ -86,6 +87,7 @@ def create_app(
     app.state.settings = settings
     app.state.metrics = metrics
     app.state.readiness = None
+    app.state.plan_cache = PlanCache(settings.plan_cache_entries, settings.plan_cache_bytes)
     app.state.audit_limits = AuditLimits(max_upload_bytes=settings.max_audit_bytes)
     app.state.diagnostic_limits = settings.diagnostics
     install_error_handlers(app)

@@ -87,6 +87,10 @@ class Settings:
     # Threads the core may use to fill one tensor (per request); 0: the machine's cores divided
     # by the workers, so that workers x threads never exceeds the cores.
     generation_threads: int = 0
+    # Validated plans kept for repeated requests (least recently used out; 0 turns it off),
+    # within a budget of about 16 bytes per byte of canonical request JSON.
+    plan_cache_entries: int = 256
+    plan_cache_bytes: int = 64 << 20
     # The compiled generator kernel (same bytes as the numpy reference); off forces numpy.
     generator_kernel: bool = True
     # Size of the pieces a response is generated and sent in: the memory a stream holds at once.
@@ -138,6 +142,8 @@ _PARSERS: dict[str, Callable[[str, str], Any]] = {
     "max_json_response_bytes": _int_in(1024, 16 * _GIB),
     "generation_threads": _int_in(0, 256),
     "generator_kernel": _flag,
+    "plan_cache_entries": _int_in(0, 1 << 20),
+    "plan_cache_bytes": _int_in(0, 16 * _GIB),
     "chunk_bytes": _int_in(4096, _GIB),
     "max_audit_bytes": _int_in(1024, 64 * _GIB),
 }
