@@ -18,6 +18,7 @@ from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.render import block_shape, iter_tensor_bytes
 from seedbed.formats import EncodedBody, OutgoingTensor, encode_body, json_size
 from seedbed.web.documents import block_entry, response_document
+from seedbed.web.read_ahead import read_ahead
 
 # Bytes a safetensors response may hold between its hashing pass and its data pass. One 4096 x
 # 4096 float32 tensor fits; a 1 GiB response still raises memory by less than the 128 MiB the
@@ -97,7 +98,9 @@ def outgoing_tensors(
             shape = tuple(block_shape(t, start, stop))
             entry = block_entry(t, shape, start, stop)
         nbytes = math.prod(shape) * t.itemsize
-        chunks = generate if hold is None else _held_once(generate, nbytes, hold)
+        # Tensors of several pieces generate the next piece while this one is hashed and sent.
+        source = read_ahead(generate) if nbytes >= 2 * chunk_bytes else generate
+        chunks = source if hold is None else _held_once(source, nbytes, hold)
         return OutgoingTensor(
             name=t.tensor,
             dtype=t.dtype,
