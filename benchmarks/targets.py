@@ -155,7 +155,7 @@ def fetch_seconds(server: RunningServer, request: dict[str, Any], fmt: str,
 def fetch_rows(server: RunningServer, repeats: int, normal: float) -> tuple[list[Row], list[str]]:
     from seedbed.core.plan import build_plan
     from seedbed.core.render import iter_tensor_bytes
-    from seedbed.web.encoding import encode_weights
+    from seedbed.web.weights_response import encode_weights
 
     request = single_dense(SIDE, SIDE, activation="relu")
     plan = build_plan(request)

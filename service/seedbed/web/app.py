@@ -12,6 +12,7 @@ from starlette.routing import Route
 
 from seedbed import __version__
 from seedbed.core.audit import AuditLimits
+from seedbed.settings import Settings
 from seedbed.web.errors import install_error_handlers
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
@@ -19,7 +20,6 @@ from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.plan_cache import PlanCache
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
 from seedbed.web.routes import audit, diagnose, ops, plan, recipes, weights
-from seedbed.web.settings import Settings
 from seedbed_client.generator import kernel as generator_kernel
 
 DESCRIPTION = (
