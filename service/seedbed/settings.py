@@ -100,6 +100,9 @@ class Settings:
     chunk_bytes: int = 4 << 20
     # Largest weights file POST /v1/audit accepts (read in a spool, never all in memory).
     max_audit_bytes: int = 256 << 20
+    # Largest ONNX model the /v1/onnx/* routes read; it is parsed whole, so this bounds memory.
+    # Models whose weights live in external data files are small: only shapes are needed.
+    max_onnx_bytes: int = 128 << 20
     limits: Limits = field(default_factory=Limits)
     # POST /v1/diagnose budgets, read as SEEDBED_DIAGNOSE_<FIELD> (e.g. SEEDBED_DIAGNOSE_MAX_BATCH).
     diagnostics: DiagnosticLimits = field(default_factory=DiagnosticLimits)
@@ -187,6 +190,8 @@ _PARSERS: dict[str, Callable[[str, str], Any]] = {
     "plan_cache_bytes": _int_in(0, 16 * _GIB),
     "chunk_bytes": _int_in(4096, _GIB),
     "max_audit_bytes": _int_in(1024, 64 * _GIB),
+    # protobuf cannot parse a message of 2 GiB or more
+    "max_onnx_bytes": _int_in(1024, 2 * _GIB - 1),
 }
 
 

@@ -13,6 +13,7 @@ modules, so both implementations share one definition of every constant computed
 
 from __future__ import annotations
 
+import importlib
 import os
 from dataclasses import dataclass
 from types import ModuleType
@@ -48,7 +49,9 @@ def _wide_loops_allowed() -> bool:
 
 def _load() -> tuple[ModuleType | None, KernelStatus]:
     try:
-        import seedbed_client.generator._kernel as module
+        # By name: the extension is not a source module, and an import statement of it would
+        # read as an import of this package's __init__ (which imports this module).
+        module = importlib.import_module(__name__.rsplit(".", 1)[0] + "._kernel")
     except ImportError as exc:
         reason = f"compiled kernel unavailable: {exc}; using the numpy reference (same bytes)"
         return None, KernelStatus("reference", reason)

@@ -19,7 +19,7 @@ from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.plan_cache import PlanCache
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
-from seedbed.web.routes import audit, diagnose, ops, plan, recipes, weights
+from seedbed.web.routes import audit, diagnose, onnx_models, ops, plan, recipes, weights
 from seedbed_client.generator import kernel as generator_kernel
 
 DESCRIPTION = (
@@ -82,6 +82,8 @@ def create_app(
             {"name": "audit", "description": "Checks of existing weights files."},
             {"name": "recipes", "description": "Team recipes: named, immutable versions of a "
              "request, and their weights."},
+            {"name": "onnx", "description": "Weights for an ONNX model file: the request read "
+             "from its graph, its initializers filled in its own layouts."},
         ],
     )
     app.state.settings = settings
@@ -93,7 +95,7 @@ def create_app(
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
     for router in (plan.router, weights.router, diagnose.router, audit.router, recipes.router,
-                   ops.router):
+                   onnx_models.router, ops.router):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):

@@ -25,13 +25,12 @@ from seedbed_client.layers import (
 
 
 def _service_accepts(request: dict[str, Any]) -> bool:
-    try:
-        from seedbed.core.request import parse  # type: ignore[import-not-found]
-    except ImportError:
-        from seedbed.core.spec import parse_request as parse
+    from seedbed.core.request.parse import parse
+    from seedbed.core.request.problems import RequestRejected
+
     try:
         parse(request)
-    except Exception:  # the service's refusal, whatever its class is called after refactors
+    except RequestRejected:
         return False
     return True
 
