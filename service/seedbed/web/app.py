@@ -17,8 +17,9 @@ from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
-from seedbed.web.routes import audit, diagnose, ops, plan, recipes, weights
+from seedbed.web.routes import audit, diagnose, ops, plan, recipes, sample, weights
 from seedbed.web.settings import Settings
+from seedbed.web.workbench import install_workbench
 
 DESCRIPTION = (
     "Seeded, reproducible, explained initial weights for neural networks. Describe a network's "
@@ -61,6 +62,7 @@ def create_app(
         description=DESCRIPTION,
         lifespan=lifespan,
         redoc_url=None,
+        docs_url=None,  # served on local assets by the workbench (install_workbench)
         openapi_tags=[
             {"name": "weights", "description": "Plans, weights and the catalog."},
             {"name": "operations", "description": "Liveness, readiness and metrics."},
@@ -78,12 +80,13 @@ def create_app(
     app.state.diagnostic_limits = settings.diagnostics
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
-    for router in (plan.router, weights.router, diagnose.router, audit.router, recipes.router,
-                   ops.router):
+    for router in (plan.router, weights.router, sample.router, diagnose.router, audit.router,
+                   recipes.router, ops.router):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):
                 methods_by_path.setdefault(route.path, set()).update(route.methods or ())
+    install_workbench(app)
     for route in app.routes:
         if isinstance(route, Route) and route.methods:
             methods_by_path.setdefault(route.path, set()).update(route.methods)
