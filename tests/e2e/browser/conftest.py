@@ -84,10 +84,10 @@ class Watched:
         assert not errors, f"console errors: {errors}"
         assert not self.failed, f"failed loads: {self.failed}"
 
-    def shot(self, name: str) -> Path:
+    def shot(self, name: str, full_page: bool = True) -> Path:
         ARTIFACTS.mkdir(parents=True, exist_ok=True)
         path = ARTIFACTS / f"{name}.png"
-        self.page.screenshot(path=str(path), full_page=True)
+        self.page.screenshot(path=str(path), full_page=full_page)
         return path
 
 

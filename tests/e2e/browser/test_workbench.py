@@ -8,6 +8,8 @@ import hashlib
 import io
 import json
 import math
+import os
+import shutil
 import struct
 import subprocess
 import sys
@@ -61,10 +63,15 @@ def test_every_view_and_the_docs_load_clean(watched: Watched) -> None:
         assert unlabeled == [], f"{view}: controls without a label: {unlabeled}"
     watched.goto("/")
     assert watched.page.url.endswith("/workbench/compose")
+    # The keyboard's first stop skips the navigation straight to the content.
+    watched.page.keyboard.press("Tab")
+    assert watched.page.evaluate("document.activeElement.textContent") == "Skip to the content"
+    watched.page.keyboard.press("Enter")
+    assert watched.page.evaluate("document.activeElement.id") == "main"
     watched.goto("/docs")
     watched.page.wait_for_selector(".swagger-ui .opblock", timeout=TIMEOUT_MS)
     assert "seedbed" in watched.page.title()
-    watched.shot("docs")
+    watched.shot("docs", full_page=False)
     watched.assert_clean()
 
 
@@ -288,7 +295,9 @@ def _safetensors_manifest(data: bytes) -> tuple[dict[str, Any], dict[str, bytes]
 
 
 @pytest.mark.parametrize("fmt", ["safetensors", "npz"])
-def test_downloaded_file_verifies_against_its_manifest(watched: Watched, fmt: str) -> None:
+def test_downloaded_file_verifies_against_its_manifest(
+    watched: Watched, fmt: str, tmp_path: Path
+) -> None:
     load_example(watched, "moisture-alarm")
     watched.goto("/workbench/takeaway")
     watched.page.check(f"#fmt-{fmt}")
@@ -318,6 +327,49 @@ def test_downloaded_file_verifies_against_its_manifest(watched: Watched, fmt: st
         assert hashlib.sha256(raw[entry["tensor"]]).hexdigest() == entry["sha256"]
     watched.shot(f"takeaway-{fmt}")
     watched.assert_clean()
+
+    # The command line's own check accepts the file (exit code 0: every tensor matches).
+    saved = tmp_path / f"downloaded.{fmt}"
+    saved.write_bytes(data)
+    verified = subprocess.run(
+        [sys.executable, "-m", "seedbed.cli", "verify", str(saved)],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=False,
+    )
+    assert verified.returncode == 0, verified.stdout + verified.stderr
+
+    # The snippets on screen fetch exactly these bytes: run them as a user would paste them.
+    digests = {e["tensor"]: e["sha256"] for e in manifest["tensors"]}
+    python = watched.page.inner_text("#python-snippet") + (
+        "\nimport hashlib as _h, json as _j\n"
+        "print(_j.dumps({k: _h.sha256(v.tobytes()).hexdigest() for k, v in weights.items()}))\n"
+    )
+    # The client's cache goes to the test's folder, not the user's.
+    env = {**os.environ, "SEEDBED_CACHE_DIR": str(tmp_path / "cache")}
+    ran = subprocess.run(
+        [sys.executable, "-c", python],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        cwd=tmp_path,
+        env=env,
+        check=False,
+    )
+    assert ran.returncode == 0, ran.stderr
+    assert json.loads(ran.stdout.strip().splitlines()[-1]) == digests
+    if shutil.which("curl") is not None:
+        shell = subprocess.run(
+            ["bash", "-c", snippet],
+            capture_output=True,
+            text=True,
+            timeout=120,
+            cwd=tmp_path,
+            check=False,
+        )
+        assert shell.returncode == 0, shell.stderr
+        assert (tmp_path / f"weights.{fmt}").read_bytes() == data
 
 
 def test_compose_shows_each_problem_beside_its_field(watched: Watched) -> None:

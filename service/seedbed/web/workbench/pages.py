@@ -141,12 +141,12 @@ plan.</p>
 <section aria-labelledby="open-h" class="panel">
   <h2 id="open-h">Open a published recipe</h2>
   <form id="recipe-open" class="inline">
-    <label for="open-name">Recipe name</label>
+    <div class="pair"><label for="open-name">Recipe name</label>
     <input id="open-name" name="name" autocomplete="off" required
-           pattern="[a-z0-9][a-z0-9._\\-]{{0,99}}" aria-describedby="open-error">
-    <label for="open-version">Version</label>
+           pattern="[a-z0-9][a-z0-9._\\-]{{0,99}}" aria-describedby="open-error"></div>
+    <div class="pair"><label for="open-version">Version</label>
     <input id="open-version" name="version" inputmode="numeric" placeholder="latest"
-           aria-describedby="open-error">
+           aria-describedby="open-error"></div>
     <button type="submit">Open</button>
     <p class="error" id="open-error" role="status"></p>
   </form>
@@ -211,10 +211,10 @@ def _plan() -> HTMLResponse:
 <section aria-labelledby="hist-h" class="panel">
   <h2 id="hist-h">Served values against the intended density</h2>
   <form id="sample-form" class="inline">
-    <label for="sample-tensor">Tensor</label>
-    <select id="sample-tensor"></select>
-    <label for="sample-count">Values</label>
-    <input id="sample-count" type="number" min="1" max="65536" value="4096">
+    <div class="pair"><label for="sample-tensor">Tensor</label>
+    <select id="sample-tensor"></select></div>
+    <div class="pair"><label for="sample-count">Values</label>
+    <input id="sample-count" type="number" min="1" max="65536" value="4096"></div>
     <button type="submit">Draw</button>
   </form>
   <figure id="histogram" class="chart"><figcaption>Bars: a bounded sample of the values the
@@ -282,12 +282,12 @@ def _recipes() -> HTMLResponse:
 <section aria-labelledby="compare-h" class="panel">
   <h2 id="compare-h">Compare two versions</h2>
   <form id="compare-form" class="inline">
-    <label for="cmp-name">Recipe name</label>
-    <input id="cmp-name" autocomplete="off" required>
-    <label for="cmp-a">Older version</label>
-    <input id="cmp-a" type="number" min="1" required>
-    <label for="cmp-b">Newer version</label>
-    <input id="cmp-b" type="number" min="1" required>
+    <div class="pair"><label for="cmp-name">Recipe name</label>
+    <input id="cmp-name" autocomplete="off" required></div>
+    <div class="pair"><label for="cmp-a">Older version</label>
+    <input id="cmp-a" type="number" min="1" required></div>
+    <div class="pair"><label for="cmp-b">Newer version</label>
+    <input id="cmp-b" type="number" min="1" required></div>
     <button type="submit" class="primary">Compare</button>
   </form>
   <div id="compare-result" aria-live="polite"></div>
