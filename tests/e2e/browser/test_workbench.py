@@ -224,8 +224,8 @@ def test_recipe_comparison_shows_the_changed_field_and_tensor(
     watched.page.fill("#pub-key", key)
     watched.page.click("#publish-form button")
     watched.page.wait_for_selector("#publish-result .ok", timeout=TIMEOUT_MS)
-    stored = watched.page.evaluate("JSON.stringify({...sessionStorage, ...localStorage})")
-    assert key not in stored, "the publishing key was written to browser storage"
+    storage = watched.page.evaluate("JSON.stringify({...sessionStorage, ...localStorage})")
+    assert key not in storage, "the publishing key was written to browser storage"
     assert watched.page.input_value("#pub-key") == ""
 
     watched.page.click("#compare-form button")
@@ -242,12 +242,27 @@ def test_recipe_comparison_shows_the_changed_field_and_tensor(
     # The stored fingerprints are the oracle: exactly the tensors whose SHA-256 differ changed.
     with httpx.Client(base_url=bench_server.base_url, timeout=60) as http:
         v1 = http.get("/v1/recipes/moisture-alarm/1").json()["fingerprints"]
-        v2 = http.get("/v1/recipes/moisture-alarm/2").json()["fingerprints"]
+        stored = http.get("/v1/recipes/moisture-alarm/2").json()
+    v2, v2_request = stored["fingerprints"], stored["request"]
     assert states == {t: ("same bytes" if v1[t] == v2[t] else "bytes changed") for t in v1}
     # A tensor's values depend only on its own spec: only the mixing weight changes.
     assert states["mix.weight"] == "bytes changed"
     assert states["sense.weight"] == "same bytes"
     watched.shot("recipes")
+
+    # Open version 2 by name from the compose view; the take-away view then offers the
+    # recipe's own cacheable URL too.
+    watched.goto("/workbench/compose")
+    watched.page.fill("#open-name", "moisture-alarm")
+    watched.page.fill("#open-version", "2")
+    watched.page.click("#recipe-open button")
+    watched.page.wait_for_selector("#check-result .ok", timeout=TIMEOUT_MS)
+    assert json.loads(watched.page.input_value("#request-text")) == v2_request
+    assert "recipe moisture-alarm v2" in watched.page.inner_text("#loaded")
+    watched.goto("/workbench/takeaway")
+    assert "/v1/recipes/moisture-alarm/2/weights?format=safetensors" in (
+        watched.page.inner_text("#curl-snippet")
+    )
     watched.assert_clean()
 
 
@@ -279,6 +294,36 @@ def test_audit_upload_shows_its_findings(
     assert "all_constant" in codes
     assert watched.page.inner_text("#audit-verdict") == direct["summary"]["verdict"]
     watched.shot("audit")
+    watched.assert_clean()
+
+
+def test_audit_against_the_current_request(
+    watched: Watched, bench_server: RunningServer, tmp_path: Path
+) -> None:
+    load_example(watched, "moisture-alarm")
+    request = json.loads(
+        watched.page.evaluate("sessionStorage.getItem('seedbed.workbench.request')")
+    )
+    with httpx.Client(base_url=bench_server.base_url, timeout=60) as http:
+        served = http.post("/v1/weights", params={"format": "npz"}, json=request)
+    with np.load(io.BytesIO(served.content)) as npz:
+        arrays = {
+            name: np.array(npz[name]) for name in npz.files if name.endswith(("weight", "bias"))
+        }
+    # Someone scaled the first layer by ten after fetching it: ten times the He std.
+    arrays["sense.weight"] = arrays["sense.weight"] * 10
+    path = tmp_path / "rescaled.npz"
+    np.savez(path, **arrays)
+    watched.goto("/workbench/audit")
+    watched.page.set_input_files("#audit-file", str(path))
+    watched.page.check("#audit-with-request")
+    watched.page.click("#audit-form button")
+    watched.page.wait_for_selector("#audit-verdict", timeout=TIMEOUT_MS)
+    flagged = watched.page.eval_on_selector_all(
+        "#findings tbody tr", "rows => rows.map(r => [r.dataset.code, r.cells[1].textContent])"
+    )
+    assert ["scale_too_large", "sense.weight"] in flagged
+    assert "compared with the request" in watched.page.inner_text("#audit-result")
     watched.assert_clean()
 
 
