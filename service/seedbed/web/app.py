@@ -19,7 +19,7 @@ from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
 from seedbed.web.routes import audit, diagnose, ops, plan, recipes, sample, weights
 from seedbed.web.settings import Settings
-from seedbed.web.workbench import install_workbench
+from seedbed.web.workbench import WORKBENCH_ROUTERS
 
 DESCRIPTION = (
     "Seeded, reproducible, explained initial weights for neural networks. Describe a network's "
@@ -62,7 +62,7 @@ def create_app(
         description=DESCRIPTION,
         lifespan=lifespan,
         redoc_url=None,
-        docs_url=None,  # served on local assets by the workbench (install_workbench)
+        docs_url=None,  # served on local assets by the workbench's routers
         openapi_tags=[
             {"name": "weights", "description": "Plans, weights and the catalog."},
             {"name": "operations", "description": "Liveness, readiness and metrics."},
@@ -81,12 +81,11 @@ def create_app(
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
     for router in (plan.router, weights.router, sample.router, diagnose.router, audit.router,
-                   recipes.router, ops.router):
+                   recipes.router, ops.router, *WORKBENCH_ROUTERS):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):
                 methods_by_path.setdefault(route.path, set()).update(route.methods or ())
-    install_workbench(app)
     for route in app.routes:
         if isinstance(route, Route) and route.methods:
             methods_by_path.setdefault(route.path, set()).update(route.methods)

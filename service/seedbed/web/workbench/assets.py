@@ -42,7 +42,7 @@ def asset_url(name: str) -> str:
     return f"{PREFIX}/{name}?v={etag.strip(chr(34))[:12]}"
 
 
-@router.get(PREFIX + "/{name}")
+@router.api_route(PREFIX + "/{name}", methods=["GET", "HEAD"])
 async def workbench_asset(request: Request, name: str) -> Response:
     found = bundled().get(name)
     if found is None:

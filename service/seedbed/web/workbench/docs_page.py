@@ -33,7 +33,7 @@ def _read(name: str) -> tuple[bytes, str]:
     return raw, body_etag(raw)
 
 
-@router.get("/docs")
+@router.api_route("/docs", methods=["GET", "HEAD"])
 async def api_docs(request: Request) -> Response:
     openapi_url = request.app.openapi_url or "/openapi.json"
     return get_swagger_ui_html(
@@ -47,7 +47,7 @@ async def api_docs(request: Request) -> Response:
     )
 
 
-@router.get(PREFIX + "/{name}")
+@router.api_route(PREFIX + "/{name}", methods=["GET", "HEAD"])
 async def api_docs_asset(request: Request, name: str) -> Response:
     media = _FILES.get(name)
     if media is None:

@@ -383,12 +383,12 @@ _BUILDERS = {
 }
 
 
-@router.get("/")
+@router.api_route("/", methods=["GET", "HEAD"])
 async def root() -> RedirectResponse:
     return RedirectResponse(f"{BASE}/compose", status_code=307)
 
 
-@router.get(BASE)
+@router.api_route(BASE, methods=["GET", "HEAD"])
 async def workbench_home() -> RedirectResponse:
     return RedirectResponse(f"{BASE}/compose", status_code=307)
 
@@ -398,7 +398,9 @@ def _page_route(view: str) -> None:
         return _BUILDERS[view]()
 
     page.__name__ = f"workbench_{view}"
-    router.add_api_route(f"{BASE}/{view}", page, methods=["GET"], response_class=HTMLResponse)
+    router.add_api_route(
+        f"{BASE}/{view}", page, methods=["GET", "HEAD"], response_class=HTMLResponse
+    )
 
 
 for _view in _BUILDERS:
