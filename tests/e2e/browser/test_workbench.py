@@ -183,6 +183,46 @@ def test_diagnose_renders_its_chart_beside_the_verdicts(
     watched.assert_clean()
 
 
+def test_signal_runs_an_alternative_of_ones_own(watched: Watched) -> None:
+    load_example(watched, "beehive-acoustics")
+    watched.goto("/workbench/signal")
+    for box in watched.page.locator("#signal-form input[type=checkbox]").all():
+        box.uncheck()
+    # Refused by the service (a bound with a normal distribution): its words, its field.
+    watched.page.fill("#own-label", "narrow")
+    watched.page.fill("#own-init", '{"method": "he", "distribution": "normal", "bound": 0.1}')
+    with watched.page.expect_response("**/v1/diagnose") as reply:
+        watched.page.click("#signal-form button[type=submit]")
+    problem = reply.value.json()["error"]["problems"][0]
+    watched.page.wait_for_selector("#verdicts ul.error", timeout=TIMEOUT_MS)
+    assert problem["message"] in watched.page.inner_text("#verdicts")
+    assert problem["field"] in watched.page.inner_text("#verdicts")
+    # Accepted: a std of 0.02 everywhere, far below He's sqrt(2/160) = 0.11 (He et al. 2015,
+    # eq. 10), shrinks a ReLU signal by about 0.02 * sqrt(160 / 2) ~ 0.18 per layer.
+    watched.page.fill("#own-init", '{"method": "lecun", "distribution": "normal", "std": 0.02}')
+    watched.page.click("#signal-form button[type=submit]")
+    watched.page.wait_for_selector("#verdict-table tr[data-run='narrow']", timeout=TIMEOUT_MS)
+    verdict = watched.page.inner_text("#verdict-table tr[data-run='narrow'] .badge")
+    assert verdict == "vanishing"
+    watched.assert_clean(refused=422)
+
+
+def test_depth_policy_and_its_scales_show_in_the_plan(watched: Watched) -> None:
+    load_example(watched, "harbour-radio")
+    rows = plan_rows(watched)
+    assert "scaled_residual" in watched.page.inner_text("#depth-policy")
+    # Radford et al. 2019, sec. 2.3: residual output maps at 0.02 / sqrt(N), N = 12 residual
+    # layers (two per block, six blocks); other weights at the common-practice 0.02.
+    residual = [t for t in rows if t.endswith(("attn.output.weight", "mlp_out.weight"))]
+    assert len(residual) == 12
+    for name in residual:
+        assert float(rows[name]["std"]) == pytest.approx(0.02 / math.sqrt(12), rel=1e-12)
+    # One point per weight tensor in the chart, whatever the depth.
+    weights = [t for t in rows if t.endswith("weight")]
+    assert watched.page.locator("#std-chart svg circle").count() == len(weights)
+    watched.assert_clean()
+
+
 def _key(server: RunningServer) -> str:
     done = subprocess.run(
         [sys.executable, "-m", "seedbed.cli", "keys", "create", "browser-tests"],

@@ -46,6 +46,34 @@ BEEHIVE_ACOUSTICS: dict[str, Any] = {
     ],
 }
 
+# A transformer stack written as a block shorthand, with a depth policy: the plan gains the
+# policy's rationale and the multipliers the training script must apply.
+HARBOUR_RADIO: dict[str, Any] = {
+    "seed": "harbour-radio/small",
+    "layers": [
+        {"name": "tokens", "kind": "embedding", "vocab": 2000, "dim": 128},
+        {
+            "name": "enc",
+            "kind": "transformer_block",
+            "dim": 128,
+            "heads": 4,
+            "mlp_dim": 512,
+            "norm": "pre",
+            "repeat": 6,
+        },
+        {"name": "final_norm", "kind": "norm", "dim": 128},
+        {
+            "name": "next_token",
+            "kind": "dense",
+            "n_in": 128,
+            "n_out": 2000,
+            "bias": False,
+            "role": "output",
+        },
+    ],
+    "depth_policy": {"name": "scaled_residual"},
+}
+
 
 def workbench_examples() -> list[tuple[str, str, dict[str, Any]]]:
     """(key, one-line summary, request) for every example, the tour network first."""
@@ -59,6 +87,11 @@ def workbench_examples() -> list[tuple[str, str, dict[str, Any]]]:
             "beehive-acoustics",
             "A nine-layer ReLU stack listening for a queen bee",
             BEEHIVE_ACOUSTICS,
+        ),
+        (
+            "harbour-radio",
+            "A six-block transformer for harbour radio logs, depth policy on",
+            HARBOUR_RADIO,
         ),
     ]
     out.extend((key, str(ex["summary"]), ex["value"]) for key, ex in EXAMPLES.items())

@@ -241,6 +241,18 @@ what it shows says nothing certain about how training will go.</p>
     <legend>Alternatives to compare with the plan</legend>
     <ul class="checks">{boxes}</ul>
   </fieldset>
+  <fieldset>
+    <legend>Your own alternative (optional)</legend>
+    <div class="pair"><label for="own-label">Label</label>
+    <input id="own-label" maxlength="64" autocomplete="off" placeholder="e.g. narrow normal">
+    </div>
+    <div class="pair"><label for="own-init">Initialisation (JSON, as a layer's init)</label>
+    <input id="own-init" class="mono wide" autocomplete="off" spellcheck="false"
+           placeholder='{{"method": "lecun", "distribution": "normal", "std": 0.02}}'
+           aria-describedby="own-help"></div>
+    <p class="help" id="own-help">Applies to every dense, conv, attention and embedding
+    layer. The service's refusal, if any, is shown below in its own words.</p>
+  </fieldset>
   <label for="signal-batch">Synthetic batch size</label>
   <input id="signal-batch" type="number" min="1" max="4096" value="64">
   <button type="submit" class="primary">Run the diagnosis</button>

@@ -138,6 +138,23 @@
     status.replaceChildren(el("p", {}, `${tensors.length} tensors · seed `, el("code", { text: JSON.stringify(plan.seed) }),
       ` · generator `, el("code", { text: plan.algorithm })),
       ...(warnings.length ? [el("ul", { class: "caution" }, warnings.map((w) => el("li", { text: w })))] : []));
+    const policy = plan.depth_policy;
+    if (policy) {
+      const multipliers = plan.multipliers || [];
+      status.append(el("section", { class: "panel", id: "depth-policy", "aria-labelledby": "policy-h" },
+        el("h2", { id: "policy-h" }, "Depth policy ", el("code", { text: policy.name })),
+        el("p", { text: policy.text || "" }),
+        el("p", { class: "help" }, "Parameters: ", Object.entries(policy.parameters || {})
+          .map(([k, v]) => `${k} ${typeof v === "number" ? num(v, 6) : JSON.stringify(v)}`).join(" · ")),
+        (policy.references || []).length ? el("ul", {}, policy.references.map((r) => el("li", { text: r }))) : "",
+        multipliers.length ? el("table", {},
+          el("caption", { text: "What the training script must apply besides the weights" }),
+          el("thead", {}, el("tr", {}, ["Name", "Group", "Optimizer", "Value", "What it means"].map((h) => el("th", { scope: "col", text: h })))),
+          el("tbody", {}, multipliers.map((m) => el("tr", {},
+            el("th", { scope: "row", text: m.name }), el("td", { text: m.group || "—" }),
+            el("td", { text: m.optimizer || "—" }), el("td", { class: "num", text: num(m.value, 6) }),
+            el("td", { text: m.text || "" }))))) : ""));
+    }
     body.replaceChildren(...tensors.flatMap(rows));
     stdChart(tensors);
     select.replaceChildren(...tensors.map((t) => el("option", { value: t.tensor, text: t.tensor })));

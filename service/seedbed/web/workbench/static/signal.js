@@ -33,6 +33,15 @@
     if (!Bench.needRequest(verdicts)) return;
     const chosen = [...document.querySelectorAll("#signal-form input[type=checkbox]:checked")]
       .map((box) => alternatives[Number(box.value)]);
+    const ownText = document.getElementById("own-init").value.trim();
+    if (ownText) {
+      let init;
+      try { init = JSON.parse(ownText); } catch (e) {
+        error.textContent = "Your own alternative's initialisation is not JSON: " + e.message;
+        return;
+      }
+      chosen.push({ label: document.getElementById("own-label").value.trim() || "my alternative", init });
+    }
     const body = { request: Bench.request(), alternatives: chosen,
                    batch: Number(document.getElementById("signal-batch").value || 64) };
     const button = document.querySelector("#signal-form button");
