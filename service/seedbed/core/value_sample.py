@@ -4,9 +4,11 @@ The sample is taken from the values exactly as served (the same rendering that p
 weights' bytes, rounded to the tensor's dtype), never from a fresh draw of the intended
 distribution: the point is to show that the real numbers follow the rationale. It is bounded:
 at most `limit` values, read from up to `MAX_BLOCKS` evenly spaced blocks of consecutive served
-rows (each row cut to the same number of leading values when rows are long), so the cost does
-not grow with the tensor beyond rendering the rows it reads (orthogonal tensors excepted: their
-rows come out of one factorisation of the whole matrix, as when they are served).
+rows, so the cost does not grow with the tensor beyond rendering the rows it reads. A row longer
+than the whole sample is cut to its leading values and read from the start of its byte stream
+(which stops at the sample's size where served order is generation order; transposed layouts
+render that one row, as serving it does). Orthogonal tensors come out of one factorisation of
+the whole matrix, as when they are served.
 
 The intended density is drawn on the histogram's count scale (expected values per bin width at
 each x) from the plan's own figures: normal std, uniform bound, the truncated normal's scale and
@@ -23,7 +25,7 @@ from typing import Any
 import numpy as np
 
 from seedbed.core.plan_types import Plan, TensorPlan
-from seedbed.core.render import render_rows
+from seedbed.core.render import iter_tensor_bytes, render_rows
 
 DEFAULT_VALUES = 4096
 MAX_VALUES = 65536
@@ -57,11 +59,37 @@ def _layout(t: TensorPlan, limit: int) -> tuple[list[tuple[int, int]], int]:
     return [(s, s + each) for s in starts], per_row
 
 
-def _served_rows(plan: Plan, t: TensorPlan, blocks: list[tuple[int, int]]) -> list[np.ndarray]:
+def _from_bytes(data: bytes, dtype: str) -> np.ndarray:
+    """float64 values of raw little-endian bytes as served (16-bit formats as bit patterns)."""
+    if dtype == "bfloat16":
+        bits = np.frombuffer(data, dtype="<u2").astype(np.uint32) << 16
+        return bits.view(np.float32).astype(np.float64)
+    code = {"float64": "<f8", "float32": "<f4", "float16": "<f2"}[dtype]
+    return np.frombuffer(data, dtype=code).astype(np.float64)
+
+
+def _served_rows(
+    plan: Plan, t: TensorPlan, blocks: list[tuple[int, int]], per_row: int
+) -> list[np.ndarray]:
+    """(rows, per_row) float64 arrays of the served values, one per block."""
     if t.sampler == "orthogonal":
         whole = render_rows(plan, t)
-        return [whole[a:b] for a, b in blocks]
-    return [render_rows(plan, t, a, b) for a, b in blocks]
+        return [
+            np.asarray(whole[a:b], dtype=np.float64).reshape(b - a, -1)[:, :per_row]
+            for a, b in blocks
+        ]
+    row_len = math.prod(t.shape[1:]) if t.shape else 1
+    if per_row < row_len:
+        # One row longer than the whole sample (_layout): read only its first chunk of bytes,
+        # which the byte stream cuts at `per_row` values wherever served order is generation
+        # order, instead of rendering a row that may hold millions of values.
+        ((a, b),) = blocks
+        first = next(iter_tensor_bytes(plan, t, a, b, chunk_bytes=per_row * t.itemsize))
+        return [_from_bytes(first, t.dtype)[:per_row].reshape(1, per_row)]
+    return [
+        np.asarray(render_rows(plan, t, a, b), dtype=np.float64).reshape(b - a, -1)
+        for a, b in blocks
+    ]
 
 
 def _normal_pdf(x: np.ndarray, std: float) -> np.ndarray:
@@ -131,9 +159,8 @@ def sample_document(
     """The JSON-ready sample of `t`: where the values came from, the values, their summary, a
     histogram and the intended density on the histogram's count scale."""
     blocks, per_row = _layout(t, limit)
-    pieces = _served_rows(plan, t, blocks)
-    flat = [np.asarray(p, dtype=np.float64).reshape(p.shape[0], -1)[:, :per_row] for p in pieces]
-    values = np.concatenate([f.reshape(-1) for f in flat])
+    pieces = _served_rows(plan, t, blocks, per_row)
+    values = np.concatenate([p.reshape(-1) for p in pieces])
     finite = values[np.isfinite(values)]
     intended = _intended(t)
     edges = _edges(finite if finite.size else np.zeros(1), intended, bins)

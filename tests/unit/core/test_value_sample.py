@@ -52,7 +52,14 @@ def _expected(plan, name, doc):
     "name", ["probe.weight", "blend.weight", "trend.weight", "night.recurrent_weight", "night.bias"]
 )
 @pytest.mark.parametrize("limit", [1, 100, 4096, 10**6])
-def test_sample_is_the_served_values_within_its_bound(plan, name: str, limit: int) -> None:
+@pytest.mark.parametrize(
+    ("dtype", "layout"),
+    [("float32", "out_in"), ("bfloat16", "in_out"), ("float16", "out_in"), ("float64", "in_out")],
+)
+def test_sample_is_the_served_values_within_its_bound(
+    name: str, limit: int, dtype: str, layout: str
+) -> None:
+    plan = build_plan({**REQUEST, "dtype": dtype, "layout": layout}, Limits())
     t = plan.tensor(name)
     doc = sample_document(plan, t, limit)
     values = np.asarray(doc["values"])
