@@ -4,6 +4,7 @@ service computes, checked against published formulas and against the served byte
 
 from __future__ import annotations
 
+import base64
 import hashlib
 import io
 import json
@@ -379,7 +380,7 @@ def _safetensors_manifest(data: bytes) -> tuple[dict[str, Any], dict[str, bytes]
     return manifest, raw
 
 
-@pytest.mark.parametrize("fmt", ["safetensors", "npz"])
+@pytest.mark.parametrize("fmt", ["safetensors", "npz", "json"])
 def test_downloaded_file_verifies_against_its_manifest(
     watched: Watched, fmt: str, tmp_path: Path
 ) -> None:
@@ -398,6 +399,9 @@ def test_downloaded_file_verifies_against_its_manifest(
         manifest, raw = _safetensors_manifest(data)
         arrays = load(data)  # the format's own reader accepts the file
         assert set(arrays) == set(raw)
+    elif fmt == "json":
+        manifest = json.loads(data)
+        raw = {e["tensor"]: base64.b64decode(e["data"], validate=True) for e in manifest["tensors"]}
     else:
         with zipfile.ZipFile(io.BytesIO(data)) as zf:
             manifest = json.loads(zf.read("seedbed-manifest.json"))
