@@ -13,7 +13,7 @@ from urllib.parse import urlsplit
 
 import pytest
 
-from ..conftest import ServerFactory
+from ..conftest import _TROUBLE_MARKERS, ServerFactory
 from ..server import RunningServer
 from .chromium import chromium_path, launch
 
@@ -115,7 +115,15 @@ def watched(browser_context: Any, bench_server: RunningServer) -> Iterator[Watch
     page.on("console", on_console)
     page.on("pageerror", lambda exc: seen.console_errors.append(f"uncaught: {exc}"))
     page.on("requestfailed", on_failed)
+    log_size = bench_server.log_path.stat().st_size
     try:
         yield seen
     finally:
         page.close()
+    # Whatever the page did, the service must not have logged an unexpected failure.
+    assert bench_server.alive(), bench_server.log_tail()
+    with open(bench_server.log_path, "rb") as fh:
+        fh.seek(log_size)
+        lines = fh.read().decode("utf-8", errors="replace").splitlines()
+    trouble = [line for line in lines if any(m in line for m in _TROUBLE_MARKERS)]
+    assert not trouble, "the service logged errors:\n" + "\n".join(trouble[:20])
