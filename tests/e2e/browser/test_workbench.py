@@ -15,6 +15,7 @@ import struct
 import subprocess
 import sys
 import zipfile
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -481,3 +482,35 @@ def test_compose_shows_each_problem_beside_its_field(watched: Watched) -> None:
         assert p["message"] in row.inner_text()
     watched.shot("compose")
     watched.assert_clean(refused=422)
+
+
+def test_recipes_behind_a_read_key_ask_for_it(
+    browser_context: Any, server_factory: Callable[..., RunningServer]
+) -> None:
+    guarded = server_factory({"SEEDBED_READ_REQUIRES_KEY": "1"})
+    key = _key(guarded)
+    with httpx.Client(base_url=guarded.base_url, timeout=60) as http:
+        r = http.post(
+            "/v1/recipes",
+            json={
+                "name": "quiet-orchard",
+                "request": {
+                    "seed": 3,
+                    "layers": [
+                        {"name": "count", "kind": "dense", "n_in": 4, "n_out": 1, "role": "output"}
+                    ],
+                },
+            },
+            headers={"Authorization": f"Bearer {key}"},
+        )
+        assert r.status_code == 201, r.text
+    page = browser_context.new_page()
+    try:
+        page.goto(guarded.base_url + "/workbench/recipes", wait_until="networkidle")
+        page.fill("#read-key", key)
+        page.click("#recipe-list button[type=submit]")
+        page.wait_for_selector("#recipe-list tr[data-recipe='quiet-orchard']", timeout=TIMEOUT_MS)
+        stored = page.evaluate("JSON.stringify({...sessionStorage, ...localStorage})")
+        assert key not in stored
+    finally:
+        page.close()

@@ -11,10 +11,25 @@
   let publishingKey = null; // never written anywhere: gone when the page goes
 
   const enc = encodeURIComponent;
+  // Reads carry the key too when the service asks for one (SEEDBED_READ_REQUIRES_KEY).
+  const read = (path) => api(path, { bearer: publishingKey || undefined });
+
+  function askForKey(where, retry) {
+    const input = el("input", { id: "read-key", type: "password", autocomplete: "off", required: true });
+    where.replaceChildren(el("form", { class: "inline", onsubmit: (e) => {
+      e.preventDefault();
+      publishingKey = input.value;
+      retry();
+    } },
+      el("p", { class: "caution", text: "This service asks for a key to read recipes. It stays in this page's memory only." }),
+      el("div", { class: "pair" }, el("label", { for: "read-key", text: "Key" }), input),
+      el("button", { type: "submit", text: "Use the key" })));
+  }
   const when = (iso) => (iso || "").replace("T", " ").replace(/\.\d+/, "").replace("+00:00", " UTC");
 
   async function loadList(after) {
-    const reply = await api("/v1/recipes?limit=50" + (after ? "&after=" + enc(after) : ""));
+    const reply = await read("/v1/recipes?limit=50" + (after ? "&after=" + enc(after) : ""));
+    if (reply.status === 401) { publishingKey = null; askForKey(list, () => loadList(after)); return; }
     if (!reply.ok) { list.replaceChildren(problemList(reply.problems)); return; }
     const rows = reply.data.recipes.map((r) => el("tr", { "data-recipe": r.name },
       el("th", { scope: "row" }, el("button", { type: "button", class: "linkish", onclick: () => loadVersions(r.name), text: r.name })),
@@ -37,14 +52,14 @@
   }
 
   async function open(name, version) {
-    const reply = await api(`/v1/recipes/${enc(name)}/${version}`);
+    const reply = await read(`/v1/recipes/${enc(name)}/${version}`);
     if (!reply.ok) { versions.append(problemList(reply.problems)); return; }
     Bench.setRequest(JSON.stringify(reply.data.request, null, 2), `recipe ${name} v${version}`);
     window.location.href = "/workbench/plan";
   }
 
   async function loadVersions(name) {
-    const reply = await api(`/v1/recipes/${enc(name)}`);
+    const reply = await read(`/v1/recipes/${enc(name)}`);
     if (!reply.ok) { versions.replaceChildren(problemList(reply.problems)); return; }
     const all = reply.data.versions;
     versions.replaceChildren(el("h3", {}, "Versions of ", el("code", { text: name })),
@@ -89,7 +104,7 @@
     const name = document.getElementById("cmp-name").value.trim();
     const a = document.getElementById("cmp-a").value, b = document.getElementById("cmp-b").value;
     compared.replaceChildren(el("p", { text: "Fetching both versions…" }));
-    const [left, right] = await Promise.all([api(`/v1/recipes/${enc(name)}/${enc(a)}`), api(`/v1/recipes/${enc(name)}/${enc(b)}`)]);
+    const [left, right] = await Promise.all([read(`/v1/recipes/${enc(name)}/${enc(a)}`), read(`/v1/recipes/${enc(name)}/${enc(b)}`)]);
     if (!left.ok || !right.ok) { compared.replaceChildren(problemList([...left.problems, ...right.problems])); return; }
     const fields = differences(left.data.request, right.data.request, "", []);
     const fa = left.data.fingerprints, fb = right.data.fingerprints;
