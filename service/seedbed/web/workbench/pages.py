@@ -2,8 +2,8 @@
 a small plain script per view (static/*.js) fills from the service's own JSON API.
 
 The request being worked on lives in the tab's sessionStorage, so it follows the user from view
-to view; a publishing key is never stored: the recipes view keeps it in a variable for the one
-request that needs it. Every page carries a Content-Security-Policy that lets it talk to its own
+to view; a key is never stored: the recipes view keeps it in a variable of the open page and
+sends it only to the service, with the requests that need it. Every page carries a Content-Security-Policy that lets it talk to its own
 origin only: nothing it loads or sends can leave the service.
 """
 
