@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from seedbed.core.limits import Limits
 from seedbed.core.plan import build_plan
 from seedbed.core.render import render_rows
+from seedbed.core.request.limits import Limits
 from seedbed.core.value_sample import MAX_BLOCKS, sample_document
 
 # An invented network: a frost-warning model for an orchard, one tensor per law.

@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 from fastapi.testclient import TestClient
 
+from seedbed.settings import Settings
 from seedbed.web.app import create_app
-from seedbed.web.settings import Settings
 
 REQUEST = {
     "seed": "greenhouse/moisture/v1",

@@ -10,8 +10,8 @@ from importlib import resources
 import pytest
 from fastapi.testclient import TestClient
 
+from seedbed.settings import Settings
 from seedbed.web.app import create_app
-from seedbed.web.settings import Settings
 from seedbed.web.workbench.assets import bundled
 from seedbed.web.workbench.pages import VIEWS
 

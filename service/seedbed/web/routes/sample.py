@@ -17,9 +17,9 @@ from seedbed.core.value_sample import (
     MIN_BINS,
     sample_document,
 )
+from seedbed.web.dependencies import load_plan
 from seedbed.web.errors import ApiError
 from seedbed.web.openapi_doc import error_responses, request_body
-from seedbed.web.plan_loader import load_plan
 
 router = APIRouter(tags=["weights"])
 

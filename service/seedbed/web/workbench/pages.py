@@ -3,8 +3,9 @@ a small plain script per view (static/*.js) fills from the service's own JSON AP
 
 The request being worked on lives in the tab's sessionStorage, so it follows the user from view
 to view; a key is never stored: the recipes view keeps it in a variable of the open page and
-sends it only to the service, with the requests that need it. Every page carries a Content-Security-Policy that lets it talk to its own
-origin only: nothing it loads or sends can leave the service.
+sends it only to the service, with the requests that need it. Every page carries a
+Content-Security-Policy that lets it talk to its own origin only: nothing it loads or sends can
+leave the service.
 """
 
 from __future__ import annotations
