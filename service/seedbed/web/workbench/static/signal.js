@@ -59,6 +59,12 @@
     if (picture.ok) {
       // The service's own SVG, parsed as XML (never run as HTML) and placed in the page.
       const parsed = new DOMParser().parseFromString(picture.text, "image/svg+xml").documentElement;
+      // Scale with the panel: a viewBox from the drawing's own size, then CSS sets the width.
+      if (!parsed.getAttribute("viewBox") && parsed.getAttribute("width") && parsed.getAttribute("height")) {
+        parsed.setAttribute("viewBox", `0 0 ${parseFloat(parsed.getAttribute("width"))} ${parseFloat(parsed.getAttribute("height"))}`);
+      }
+      parsed.removeAttribute("width");
+      parsed.removeAttribute("height");
       parsed.setAttribute("role", "img");
       parsed.setAttribute("aria-label", "Activation and gradient std through depth for each run: " +
         doc.data.runs.map((r) => `${r.label} ${r.verdict}`).join(", "));
