@@ -26,6 +26,9 @@ import pytest
 from ..server import RunningServer
 from .conftest import Watched
 
+# A real browser against a real server: minutes, not seconds (CI runs them all the same).
+pytestmark = pytest.mark.slow
+
 VIEWS = ("compose", "plan", "signal", "recipes", "audit", "takeaway")
 TIMEOUT_MS = 60_000
 
