@@ -91,6 +91,13 @@
       parts.push(svg("polyline", { class: "intended", points: curve.x.map((v, i) => `${x(v)},${y(curve.y[i])}`).join(" "),
                                    fill: "none", stroke: "#7a4520", "stroke-width": 2.2 }));
     }
+    if (doc.intended.law === "point") {
+      // Constants and identities: the intended values are point masses, drawn as rules.
+      for (const v of doc.intended.points || []) {
+        parts.push(svg("line", { class: "intended", x1: x(v), x2: x(v), y1: T, y2: H - B,
+                                 stroke: "#7a4520", "stroke-width": 2.2, "stroke-dasharray": "5 3" }));
+      }
+    }
     for (const v of [edges[0], 0, edges[edges.length - 1]]) {
       parts.push(svg("text", { x: x(v), y: H - B + 16, "text-anchor": "middle", "font-size": 11, fill: "#1c2a22", text: num(v, 3) }));
     }
