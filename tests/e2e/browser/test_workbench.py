@@ -163,6 +163,19 @@ def test_histogram_sample_matches_the_served_tensor(
     watched.assert_clean()
 
 
+def test_histogram_of_a_constant_shows_its_point_mass(watched: Watched) -> None:
+    load_example(watched, "moisture-alarm")
+    plan_rows(watched)
+    watched.page.select_option("#sample-tensor", "alarm.bias")
+    watched.page.click("#sample-form button")
+    watched.page.wait_for_selector("#sample-summary[data-count='1']", timeout=TIMEOUT_MS)
+    shown = watched.page.eval_on_selector("#sample-summary", "e => ({...e.dataset})")
+    # Lin et al. 2017, sec. 4.1: b = -log((1 - pi) / pi) with pi = 0.02, served as float32.
+    assert float(shown["mean"]) == float(np.float32(math.log(0.02 / 0.98)))
+    assert watched.page.locator("#histogram svg line.intended").count() == 1
+    watched.assert_clean()
+
+
 def test_diagnose_renders_its_chart_beside_the_verdicts(
     watched: Watched, bench_server: RunningServer
 ) -> None:
