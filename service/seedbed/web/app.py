@@ -19,7 +19,8 @@ from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.plan_cache import PlanCache
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
-from seedbed.web.routes import audit, diagnose, onnx_models, ops, plan, recipes, weights
+from seedbed.web.routes import audit, diagnose, onnx_models, ops, plan, recipes, sample, weights
+from seedbed.web.workbench import WORKBENCH_ROUTERS
 from seedbed_client.generator import kernel as generator_kernel
 
 DESCRIPTION = (
@@ -74,6 +75,7 @@ def create_app(
         description=DESCRIPTION,
         lifespan=lifespan,
         redoc_url=None,
+        docs_url=None,  # served on local assets by the workbench's routers
         openapi_tags=[
             {"name": "weights", "description": "Plans, weights and the catalog."},
             {"name": "operations", "description": "Liveness, readiness and metrics."},
@@ -94,8 +96,8 @@ def create_app(
     app.state.diagnostic_limits = settings.diagnostics
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
-    for router in (plan.router, weights.router, diagnose.router, audit.router, recipes.router,
-                   onnx_models.router, ops.router):
+    for router in (plan.router, weights.router, sample.router, diagnose.router, audit.router,
+                   recipes.router, onnx_models.router, ops.router, *WORKBENCH_ROUTERS):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):
