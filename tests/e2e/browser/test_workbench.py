@@ -457,6 +457,14 @@ def test_downloaded_file_verifies_against_its_manifest(
     )
     assert verified.returncode == 0, verified.stdout + verified.stderr
 
+    # The copy buttons put exactly the snippets on the clipboard.
+    for which in ("python", "curl"):
+        watched.page.evaluate("document.getElementById('copy-status').textContent = ''")
+        watched.page.click(f"button[data-copy='{which}-snippet']")
+        watched.page.wait_for_selector("#copy-status:has-text('Copied')", timeout=TIMEOUT_MS)
+        copied = watched.page.evaluate("navigator.clipboard.readText()")
+        assert copied == watched.page.eval_on_selector(f"#{which}-snippet", "e => e.textContent")
+
     # The snippets on screen fetch exactly these bytes: run them as a user would paste them.
     digests = {e["tensor"]: e["sha256"] for e in manifest["tensors"]}
     python = watched.page.inner_text("#python-snippet") + (
