@@ -40,4 +40,6 @@ def launch(playwright: Any, profile: Path, executable: str, downloads: Path) -> 
         accept_downloads=True,
         downloads_path=str(downloads),
         viewport={"width": 1360, "height": 900},
+        # The take-away view's copy buttons write to the clipboard; the tests read it back.
+        permissions=["clipboard-read", "clipboard-write"],
     )

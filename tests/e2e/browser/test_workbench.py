@@ -373,7 +373,18 @@ def test_audit_against_the_current_request(
     path = tmp_path / "rescaled.npz"
     np.savez(path, **arrays)
     watched.goto("/workbench/audit")
-    watched.page.set_input_files("#audit-file", str(path))
+    # Dropped on the box this time, as a file dragged from a desktop would be.
+    transfer = watched.page.evaluate_handle(
+        """([name, b64]) => {
+            const bytes = Uint8Array.from(atob(b64), (c) => c.charCodeAt(0));
+            const dt = new DataTransfer();
+            dt.items.add(new File([bytes], name));
+            return dt;
+        }""",
+        ["rescaled.npz", base64.b64encode(path.read_bytes()).decode("ascii")],
+    )
+    watched.page.dispatch_event("#dropzone", "drop", {"dataTransfer": transfer})
+    assert "rescaled.npz" in watched.page.inner_text("#dropzone")
     watched.page.check("#audit-with-request")
     watched.page.click("#audit-form button")
     watched.page.wait_for_selector("#audit-verdict", timeout=TIMEOUT_MS)
@@ -446,6 +457,14 @@ def test_downloaded_file_verifies_against_its_manifest(
     )
     assert verified.returncode == 0, verified.stdout + verified.stderr
 
+    # The copy buttons put exactly the snippets on the clipboard.
+    for which in ("python", "curl"):
+        watched.page.evaluate("document.getElementById('copy-status').textContent = ''")
+        watched.page.click(f"button[data-copy='{which}-snippet']")
+        watched.page.wait_for_selector("#copy-status:has-text('Copied')", timeout=TIMEOUT_MS)
+        copied = watched.page.evaluate("navigator.clipboard.readText()")
+        assert copied == watched.page.eval_on_selector(f"#{which}-snippet", "e => e.textContent")
+
     # The snippets on screen fetch exactly these bytes: run them as a user would paste them.
     digests = {e["tensor"]: e["sha256"] for e in manifest["tensors"]}
     python = watched.page.inner_text("#python-snippet") + (
@@ -476,6 +495,21 @@ def test_downloaded_file_verifies_against_its_manifest(
         )
         assert shell.returncode == 0, shell.stderr
         assert (tmp_path / f"weights.{fmt}").read_bytes() == data
+
+
+def test_compose_reads_an_uploaded_file(watched: Watched, tmp_path: Path) -> None:
+    from .. import networks
+
+    path = tmp_path / "controller.json"
+    path.write_text(json.dumps(networks.greenhouse_controller()))
+    watched.goto("/workbench/compose")
+    watched.page.set_input_files("#request-file", str(path))
+    watched.page.wait_for_selector("#check-result .ok", timeout=TIMEOUT_MS)
+    assert json.loads(watched.page.input_value("#request-text")) == (
+        networks.greenhouse_controller()
+    )
+    assert "file controller.json" in watched.page.inner_text("#loaded")
+    watched.assert_clean()
 
 
 def test_compose_shows_each_problem_beside_its_field(watched: Watched) -> None:

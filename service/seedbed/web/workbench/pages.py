@@ -36,7 +36,7 @@ VIEWS: tuple[tuple[str, str, str], ...] = (
 )
 
 POLICY = (
-    "default-src 'self'; img-src 'self' data: blob:; style-src 'self' 'unsafe-inline'; "
+    "default-src 'self'; img-src 'self'; style-src 'self'; "
     "script-src 'self'; connect-src 'self'; object-src 'none'; base-uri 'none'; "
     "form-action 'self'; frame-ancestors 'none'"
 )

@@ -100,7 +100,8 @@
     }
     const ends = [edges[0], edges[edges.length - 1]];
     for (const v of (ends[0] < 0 && ends[1] > 0 ? [ends[0], 0, ends[1]] : ends)) {
-      parts.push(svg("text", { x: x(v), y: H - B + 16, "text-anchor": "middle", "font-size": 11, fill: "#1c2a22", text: num(v, 3) }));
+      const anchor = v === ends[0] ? "start" : v === ends[1] ? "end" : "middle";
+      parts.push(svg("text", { x: x(v), y: H - B + 16, "text-anchor": anchor, "font-size": 11, fill: "#1c2a22", text: num(v, 3) }));
     }
     parts.push(svg("text", { x: L - 6, y: y(top / 1.08) + 4, "text-anchor": "end", "font-size": 11, fill: "#4d5a52", text: String(Math.round(top / 1.08)) }));
     const label = `Histogram of ${doc.summary.count} served values of ${doc.tensor}` +
