@@ -59,7 +59,7 @@ def _seed(text: str) -> int | str:
 
 
 def _load_factory(target: str) -> Any:
-    from seedbed_client.cli import UsageProblem
+    from seedbed_client.cli_shared import UsageProblem
 
     module_name, _, attr = target.partition(":")
     if not module_name or not attr:
@@ -72,7 +72,8 @@ def _load_factory(target: str) -> Any:
 
 
 def _run(args: argparse.Namespace) -> int:
-    from seedbed_client.cli import EXIT_OK, UsageProblem, _client
+    from seedbed_client.cli_shared import EXIT_OK, UsageProblem
+    from seedbed_client.cli_shared import client_from_args as _client
 
     try:
         from torch import nn

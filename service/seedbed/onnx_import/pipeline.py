@@ -6,9 +6,9 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
 
-from seedbed.core.request.limits import Limits
 from seedbed.core.plan import build_plan, plan_document
 from seedbed.core.plan_types import Plan
+from seedbed.core.request.limits import Limits
 from seedbed.onnx_import.loading import LoadedModel, parse_model
 from seedbed.onnx_import.translation import Translation, translate
 
