@@ -14,22 +14,21 @@ from collections.abc import Iterator
 from typing import Any, Literal
 
 from fastapi import APIRouter, Query, Request, Response
-from fastapi.responses import JSONResponse, StreamingResponse
+from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.concurrency import run_in_threadpool
 
 from seedbed.core.request.problems import RequestRejected
-from seedbed.formats import EncodedBody, FormatInputError, OutgoingTensor, encode_body
+from seedbed.formats import FormatInputError, OutgoingTensor
 from seedbed.formats.multipart_in import FormError, FormPartsParser, PartInfo, boundary_of
 from seedbed.onnx_import import ModelRefused
 from seedbed.onnx_import.assembly import binding_bytes
 from seedbed.onnx_import.pipeline import ImportedModel, import_model
 from seedbed.onnx_import.rewrite import seeded_model
 from seedbed.web.dependencies import settings_of
-from seedbed.web.documents import response_document
 from seedbed.web.errors import ApiError, Fault
-from seedbed.web.etag import strong_etag
 from seedbed.web.openapi_doc import error_responses
+from seedbed.web.weights_response import Rearranged, WeightsOptions, weights_response
 
 router = APIRouter(tags=["onnx"])
 
@@ -358,16 +357,6 @@ def _outgoing(imported: ImportedModel) -> list[OutgoingTensor]:
     return out
 
 
-def _encode(imported: ImportedModel, fmt: str) -> EncodedBody:
-    doc = response_document(imported.plan, None)
-    doc["onnx"] = {
-        "request": imported.translation.request,
-        "kept": list(imported.translation.kept),
-        "constants": list(imported.translation.constants),
-    }
-    return encode_body(fmt, doc, _outgoing(imported))
-
-
 @router.post(
     "/v1/onnx/weights",
     operation_id="generateOnnxWeights",
@@ -399,9 +388,8 @@ async def onnx_weights(
     ),
 ) -> Response:
     imported = await _imported(request, seed, keep)
-    settings = settings_of(request)
     try:
-        encoded = await run_in_threadpool(_encode, imported, format)
+        _outgoing(imported)  # initializer names a container cannot hold are refused here
     except FormatInputError as exc:
         raise ApiError.one(
             422,
@@ -409,33 +397,20 @@ async def onnx_weights(
             "unservable_name",
             f"{exc}; ask for POST /v1/onnx/model, which keeps any name",
         ) from None
-    if format == "json" and encoded.content_length > settings.max_json_response_bytes:
-        raise ApiError.one(
-            413,
-            "format",
-            "json_too_large",
-            f"this JSON response would be {encoded.content_length} bytes, above "
-            f"the limit of {settings.max_json_response_bytes} "
-            "(SEEDBED_MAX_JSON_RESPONSE_BYTES); ask for format=npz or "
-            "format=safetensors",
-        )
-    plan = imported.plan
-    etag = strong_etag(
-        "onnx-weights",
-        request=plan.canonical_request,
-        algorithm=plan.algorithm,
-        format=format,
-        bindings=[b.document() for b in imported.translation.bindings],
+    translation = imported.translation
+    rearranged = Rearranged(
+        tensors=lambda: _outgoing(imported),
+        document={
+            "onnx": {
+                "request": translation.request,
+                "kept": list(translation.kept),
+                "constants": list(translation.constants),
+            }
+        },
+        etag_parts={"onnx_bindings": [b.document() for b in translation.bindings]},
     )
-    if any(t.reproducible != "exact" for t in plan.tensors):
-        etag = "W/" + etag  # orthogonal values may differ in the last bits between BLAS builds
-    headers = {
-        "ETag": etag,
-        "X-Seedbed-Algorithm": plan.algorithm,
-        "Content-Length": str(encoded.content_length),
-        "Content-Disposition": f'attachment; filename="weights.{format}"',
-    }
-    return StreamingResponse(encoded.body, media_type=encoded.media_type, headers=headers)
+    options = WeightsOptions(format=format, filename="weights", rearranged=rearranged)
+    return await weights_response(request, imported.plan, options)
 
 
 @router.post(

@@ -292,7 +292,7 @@ async def publish_recipe(request: Request) -> Response:
         raise _refused(exc) from None
     body = await read_json_body(request, settings.max_body_bytes)
     prepared: PreparedRecipe = await run_in_threadpool(
-        prepare_recipe, body, settings.limits, settings.generation_threads
+        prepare_recipe, body, settings.limits, settings.threads_per_request()
     )
     try:
         summary = await _db(publish, registry.engine, prepared, token)
