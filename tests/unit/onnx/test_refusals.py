@@ -181,3 +181,36 @@ def test_external_data_initializers_need_only_shapes(http: TestClient) -> None:
     assert seeded.status_code == 200
     (init,) = onnx.load_from_string(seeded.content).graph.initializer
     assert init.data_location == TensorProto.DEFAULT and len(init.raw_data) == 48
+
+
+def test_weights_in_constant_nodes_and_subgraphs_are_refused_then_kept(
+    http: TestClient,
+) -> None:
+    folded = numpy_helper.from_array(np.full((4, 3), 0.5, np.float32), "folded_value")
+    nodes = [
+        helper.make_node("Constant", [], ["folded"], value=folded),
+        helper.make_node("MatMul", ["x", "folded"], ["y"], "squash"),
+    ]
+    model = _graph(nodes, [])
+    err = _error(post_model(http, "plan", model), 422, "unsupported_weights")
+    assert "'folded' (a Constant node of 12 floats, read by MatMul)" in err["message"]
+    kept = post_model(http, "model", _graph(nodes, []), keep=["folded"])
+    assert kept.status_code == 422  # nothing else to fill: no_weights, not a silent success
+    assert kept.json()["error"]["code"] == "no_weights"
+
+    body = helper.make_graph(
+        [helper.make_node("MatMul", ["x", "inner.w"], ["z"])],
+        "branch",
+        [],
+        [helper.make_tensor_value_info("z", TensorProto.FLOAT, [2, 3])],
+        [_w("inner.w", 4, 3)],
+    )
+    cond = numpy_helper.from_array(np.array(True), "flag")
+    nodes = [
+        helper.make_node("Gemm", ["x", "W"], ["h"], "outer", transB=1),
+        helper.make_node("If", ["flag"], ["y"], "choose", then_branch=body, else_branch=body),
+    ]
+    model = _graph(nodes, [_w("W", 3, 4), cond], check=False)
+    err = _error(post_model(http, "plan", model), 422, "unsupported_weights")
+    assert "inside the subgraph of If node 'choose'" in err["message"]
+    assert post_model(http, "plan", model, keep=["inner.w"]).status_code == 200
