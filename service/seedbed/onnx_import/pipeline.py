@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -43,11 +43,16 @@ class ImportedModel:
 
 
 def import_model(
-    data: bytes, max_bytes: int, seed: int | str, keep: Iterable[str], limits: Limits
+    data: bytes,
+    max_bytes: int,
+    seed: int | str,
+    keep: Iterable[str],
+    limits: Limits,
+    activations: Mapping[str, tuple[str, float | None]] | None = None,
 ) -> ImportedModel:
     """Raises ModelRefused for the file, RequestRejected when the inferred request is refused
     by the same checks as POST /v1/plan."""
     loaded = parse_model(data, max_bytes)
-    translation = translate(loaded, seed, keep)
+    translation = translate(loaded, seed, keep, activations)
     plan = build_plan(translation.request, limits)
     return ImportedModel(loaded, translation, plan)

@@ -17,8 +17,9 @@ the layouts each reader relies on are cited beside its tests.
 
 from __future__ import annotations
 
+import difflib
 import re
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from math import prod
 from typing import Any
@@ -829,6 +830,31 @@ class _Reader:
         return kept, constants
 
 
+def _apply_overrides(reader: _Reader, activations: Mapping[str, tuple[str, float | None]]) -> None:
+    by_name = {layer.name: layer for layer in reader.layers}
+    for key, (name, param) in activations.items():
+        layer = by_name.get(key)
+        if layer is None:
+            close = difflib.get_close_matches(key, list(by_name), n=1, cutoff=0.5)
+            hint = f"; did you mean {close[0]!r}?" if close else ""
+            raise ModelRefused(
+                "unknown_layer",
+                f"activation names layer {key!r}, which the "
+                f"graph does not have{hint} Layers: "
+                f"{', '.join(list(by_name)[:30])}",
+                field="activation",
+            )
+        if layer.fields["kind"] == "recurrent" and layer.fields["cell"] != "simple":
+            raise ModelRefused(
+                "not_allowed",
+                f"{key!r} is a gated {layer.op} cell: its gate "
+                "functions are fixed, it takes no activation",
+                field="activation",
+            )
+        layer.activation, layer.activation_param = name, param
+        layer.activation_from = "caller override"
+
+
 def _constant_size(node: onnx.NodeProto) -> int:
     """How many floats a Constant node holds (0 when it holds something else)."""
     for a in node.attribute:
@@ -882,8 +908,16 @@ def _unique(name: str, used: set[str]) -> str:
     return candidate
 
 
-def translate(loaded: LoadedModel, seed: int | str, keep: Iterable[str] = ()) -> Translation:
-    """The seedbed request for the model, and one binding per initializer it fills."""
+def translate(
+    loaded: LoadedModel,
+    seed: int | str,
+    keep: Iterable[str] = (),
+    activations: Mapping[str, tuple[str, float | None]] | None = None,
+) -> Translation:
+    """The seedbed request for the model, and one binding per initializer it fills.
+
+    `activations` replaces what was read for the named layers (layer -> (name, parameter));
+    a key that names no layer is refused with the layer names."""
     keep_set = frozenset(keep)
     known = set(loaded.initializers)
     for node in loaded.model.graph.node:
@@ -913,6 +947,7 @@ def translate(loaded: LoadedModel, seed: int | str, keep: Iterable[str] = ()) ->
     for layer in reader.layers:
         reader.follow(layer)
     reader.mark_residuals()
+    _apply_overrides(reader, activations or {})
     for layer in reader.layers:
         if layer.branch and layer.role == "output":
             layer.role = "hidden"

@@ -214,3 +214,16 @@ def test_weights_in_constant_nodes_and_subgraphs_are_refused_then_kept(
     err = _error(post_model(http, "plan", model), 422, "unsupported_weights")
     assert "inside the subgraph of If node 'choose'" in err["message"]
     assert post_model(http, "plan", model, keep=["inner.w"]).status_code == 200
+
+
+def test_activation_override_replaces_what_was_read(http: TestClient) -> None:
+    r = post_model(http, "plan", mlp(), activation=["probe=leaky_relu:0.1", "mix=selu"])
+    assert r.status_code == 200, r.text
+    rows = {row["layer"]: row for row in r.json()["inference"]}
+    assert rows["probe"]["activation_param"] == 0.1
+    assert rows["mix"]["activation"] == "selu"
+    assert rows["mix"]["activation_from"] == "caller override"
+    err = _error(post_model(http, "plan", mlp(), activation=["mx=relu"]), 422, "unknown_layer")
+    assert "did you mean 'mix'" in err["message"]
+    _error(post_model(http, "plan", mlp(), activation=["probe"]), 422, "invalid_value")
+    _error(post_model(http, "plan", mlp(), activation=["probe=swirl"]), 422, "invalid_value")
