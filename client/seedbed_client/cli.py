@@ -352,7 +352,13 @@ def register(subparsers: Any) -> None:
 
     from seedbed_client.torch_cli import register_torch_command
 
-    register_torch_command(subparsers, _add_service_options, _HANDLER)
+    register_torch_command(
+        subparsers,
+        add_service_options=_add_service_options,
+        handler_key=_HANDLER,
+        make_client=lambda args: _client(args, cache=True),
+        usage_error=UsageProblem,
+    )
 
 
 def run(args: argparse.Namespace) -> int:

@@ -34,6 +34,7 @@ from seedbed.web.documents import block_entry, response_document
 from seedbed.web.errors import ApiError
 from seedbed.web.etag import none_match, strong_etag
 from seedbed.web.metrics import ServiceMetrics
+from seedbed.web.read_ahead import read_ahead
 
 # Bytes a safetensors response may hold between its hashing pass and its data pass. One 4096 x
 # 4096 float32 tensor fits; a 1 GiB response still raises memory by less than the 128 MiB the
@@ -113,7 +114,9 @@ def outgoing_tensors(
             shape = tuple(block_shape(t, start, stop))
             entry = block_entry(t, shape, start, stop)
         nbytes = math.prod(shape) * t.itemsize
-        chunks = generate if hold is None else _held_once(generate, nbytes, hold)
+        # Tensors of several pieces generate the next piece while this one is hashed and sent.
+        source = read_ahead(generate) if nbytes >= 2 * chunk_bytes else generate
+        chunks = source if hold is None else _held_once(source, nbytes, hold)
         return OutgoingTensor(
             name=t.tensor,
             dtype=t.dtype,
@@ -280,7 +283,7 @@ async def weights_response(request: Request, plan: Plan, options: WeightsOptions
     digests = options.digests if exact else None
     # safetensors hashes every tensor before its first byte: that pass must not block the loop.
     encoded = await run_in_threadpool(
-        encode_weights, plan, selection, fmt, settings.chunk_bytes, settings.generation_threads,
+        encode_weights, plan, selection, fmt, settings.chunk_bytes, settings.threads_per_request(),
         digests, options.rearranged,
     )
     headers["Content-Length"] = str(encoded.content_length)
