@@ -227,3 +227,28 @@ def test_activation_override_replaces_what_was_read(http: TestClient) -> None:
     assert "did you mean 'mix'" in err["message"]
     _error(post_model(http, "plan", mlp(), activation=["probe"]), 422, "invalid_value")
     _error(post_model(http, "plan", mlp(), activation=["probe=swirl"]), 422, "invalid_value")
+
+
+def test_lstm_variants_seedbed_does_not_plan_are_refused(http: TestClient) -> None:
+    def lstm(**attrs: Any) -> bytes:
+        inputs = ["x3", "W", "R", "B", "", "", "", "P" if "peep" in attrs else ""]
+        attrs.pop("peep", None)
+        graph = helper.make_graph(
+            [helper.make_node("LSTM", inputs, ["y"], "cell", hidden_size=2, **attrs)],
+            "cell",
+            [helper.make_tensor_value_info("x3", TensorProto.FLOAT, [1, 1, 3])],
+            [helper.make_tensor_value_info("y", TensorProto.FLOAT, [1, 1, 1, 2])],
+            [_w("W", 1, 8, 3), _w("R", 1, 8, 2), _w("B", 1, 16), _w("P", 1, 6)],
+        )
+        model = helper.make_model(graph, opset_imports=[helper.make_opsetid("", 17)])
+        return model.SerializeToString()
+
+    err = _error(post_model(http, "plan", lstm(peep=True)), 422, "unsupported_weights")
+    assert "peephole" in err["message"]
+    assert post_model(http, "plan", lstm(peep=True), keep=["P"]).status_code == 200
+    _error(post_model(http, "plan", lstm(input_forget=1)), 422, "unsupported_attribute")
+    _error(
+        post_model(http, "plan", lstm(activations=["Sigmoid", "Relu", "Relu"])),
+        422,
+        "unsupported_attribute",
+    )
