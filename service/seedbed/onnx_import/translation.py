@@ -100,6 +100,19 @@ ARITHMETIC: frozenset[str] = frozenset(
     }
 )
 CELLS = {"LSTM": "lstm", "GRU": "gru", "RNN": "simple"}
+# Required inputs of the operators read here (ONNX operator specification).
+MIN_INPUTS = {
+    "Gemm": 2,
+    "MatMul": 2,
+    "Conv": 2,
+    "ConvTranspose": 2,
+    "Gather": 2,
+    "LSTM": 3,
+    "GRU": 3,
+    "RNN": 3,
+    "LayerNormalization": 2,
+    "BatchNormalization": 5,
+}
 # ONNX operator specification, LSTM (opset 7..22): W is [iofc], B is [Wb, Rb]; GRU: W is [zrh]
 # = update, reset, hidden (the candidate). The shared table holds them in seedbed's gate names.
 RECURRENT_GATES: dict[str, tuple[str, ...]] = {
@@ -278,6 +291,15 @@ class _Reader:
             reader = getattr(self, f"_read_{node.op_type.lower()}", None)
             if node.domain not in ("", "ai.onnx") or reader is None:
                 continue
+            need = MIN_INPUTS.get(node.op_type, 1)
+            if len(node.input) < need or len(node.output) < 1:
+                raise self.refuse(
+                    i,
+                    "malformed_node",
+                    f"has {len(node.input)} inputs and "
+                    f"{len(node.output)} outputs; the operator specification "
+                    f"needs at least {need} inputs and one output",
+                )
             layer = reader(i, node)
             if layer is not None:
                 self.layers.append(layer)
