@@ -375,7 +375,7 @@ async def review_onnx(
     return JSONResponse(imported.review())
 
 
-def _outgoing(imported: ImportedModel) -> list[OutgoingTensor]:
+def _outgoing(imported: ImportedModel, chunk_bytes: int = 4 << 20) -> list[OutgoingTensor]:
     plan = imported.plan
     out = []
     for binding in imported.translation.bindings:
@@ -389,7 +389,7 @@ def _outgoing(imported: ImportedModel) -> list[OutgoingTensor]:
         nbytes *= plan.tensors[0].itemsize
 
         def chunks(b: Any = binding) -> Iterator[bytes]:
-            return binding_bytes(plan, b)
+            return binding_bytes(plan, b, chunk_bytes)
 
         out.append(
             OutgoingTensor(
@@ -447,7 +447,7 @@ async def onnx_weights(
         ) from None
     translation = imported.translation
     rearranged = Rearranged(
-        tensors=lambda: _outgoing(imported),
+        tensors=lambda: _outgoing(imported, settings_of(request).chunk_bytes),
         document={
             "onnx": {
                 "request": translation.request,
