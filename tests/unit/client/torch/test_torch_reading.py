@@ -277,3 +277,10 @@ def test_projection_skip_is_reported_with_what_it_reads() -> None:
         "branch" not in layers["stage.1.conv1"]
         and layers["stage.1.conv3"]["role"] == "residual_out"
     )
+
+
+def test_table_with_reasons_shows_the_evidence() -> None:
+    text = describe_module(tm.GaugeModel(), seed=1).table(reasons=True)
+    assert "    followed by tanh" in text
+    assert "    feeds a residual add" in text
+    assert "    feeds the network output" in text
