@@ -61,6 +61,41 @@ _KEEP_QUERY = Query(
 )
 
 
+_ACTIVATION_QUERY = Query(
+    default_factory=list,
+    description="Replace the activation read for a layer: LAYER=NAME or LAYER=NAME:PARAM "
+    "(repeat the parameter), e.g. mlp.fc=gelu or probe=leaky_relu:0.1. The layer names are the "
+    "review's; the inference table then says `caller override`.",
+    examples=[["mlp.fc=gelu"]],
+)
+
+
+def _activation_overrides(items: list[str]) -> dict[str, tuple[str, float | None]]:
+    out: dict[str, tuple[str, float | None]] = {}
+    for item in items:
+        layer, sep, rest = item.partition("=")
+        name, colon, param = rest.partition(":")
+        value: float | None = None
+        try:
+            value = float(param) if colon else None
+        except ValueError:
+            sep = ""
+        if not sep or not layer or not name or (value is not None and value != value):
+            raise ApiError.one(
+                422,
+                "activation",
+                "invalid_value",
+                f"activation {item[:80]!r} is not LAYER=NAME or "
+                "LAYER=NAME:PARAM (e.g. probe=leaky_relu:0.1)",
+            )
+        if layer in out:
+            raise ApiError.one(
+                422, "activation", "duplicate_name", f"activation names layer {layer!r} twice"
+            )
+        out[layer] = (name, value)
+    return out
+
+
 def _too_large(seen: str, limit: int) -> ApiError:
     return ApiError.one(
         413,
@@ -169,12 +204,21 @@ def _seed_value(text: str) -> int | str:
     return text
 
 
-async def _imported(request: Request, seed: str, keep: list[str]) -> ImportedModel:
+async def _imported(
+    request: Request, seed: str, keep: list[str], activation: list[str]
+) -> ImportedModel:
+    overrides = _activation_overrides(activation)
     data = await read_model(request)
     settings = settings_of(request)
     try:
         imported: ImportedModel = await run_in_threadpool(
-            import_model, data, settings.max_onnx_bytes, _seed_value(seed), keep, settings.limits
+            import_model,
+            data,
+            settings.max_onnx_bytes,
+            _seed_value(seed),
+            keep,
+            settings.limits,
+            overrides,
         )
     except ModelRefused as exc:
         field = exc.field if exc.field != "keep" else "keep"
@@ -322,13 +366,16 @@ _ERRORS = error_responses(
     openapi_extra=_UPLOAD,
 )
 async def review_onnx(
-    request: Request, seed: str = _SEED_QUERY, keep: list[str] = _KEEP_QUERY
+    request: Request,
+    seed: str = _SEED_QUERY,
+    keep: list[str] = _KEEP_QUERY,
+    activation: list[str] = _ACTIVATION_QUERY,
 ) -> JSONResponse:
-    imported = await _imported(request, seed, keep)
+    imported = await _imported(request, seed, keep, activation)
     return JSONResponse(imported.review())
 
 
-def _outgoing(imported: ImportedModel) -> list[OutgoingTensor]:
+def _outgoing(imported: ImportedModel, chunk_bytes: int = 4 << 20) -> list[OutgoingTensor]:
     plan = imported.plan
     out = []
     for binding in imported.translation.bindings:
@@ -342,7 +389,7 @@ def _outgoing(imported: ImportedModel) -> list[OutgoingTensor]:
         nbytes *= plan.tensors[0].itemsize
 
         def chunks(b: Any = binding) -> Iterator[bytes]:
-            return binding_bytes(plan, b)
+            return binding_bytes(plan, b, chunk_bytes)
 
         out.append(
             OutgoingTensor(
@@ -383,11 +430,12 @@ async def onnx_weights(
     request: Request,
     seed: str = _SEED_QUERY,
     keep: list[str] = _KEEP_QUERY,
+    activation: list[str] = _ACTIVATION_QUERY,
     format: WeightsFormat = Query(  # noqa: B008 - FastAPI's parameter declaration style
         "json", description="Container: json, npz or safetensors, as for POST /v1/weights."
     ),
 ) -> Response:
-    imported = await _imported(request, seed, keep)
+    imported = await _imported(request, seed, keep, activation)
     try:
         _outgoing(imported)  # initializer names a container cannot hold are refused here
     except FormatInputError as exc:
@@ -399,7 +447,7 @@ async def onnx_weights(
         ) from None
     translation = imported.translation
     rearranged = Rearranged(
-        tensors=lambda: _outgoing(imported),
+        tensors=lambda: _outgoing(imported, settings_of(request).chunk_bytes),
         document={
             "onnx": {
                 "request": translation.request,
@@ -431,9 +479,12 @@ async def onnx_weights(
     openapi_extra=_UPLOAD,
 )
 async def onnx_model(
-    request: Request, seed: str = _SEED_QUERY, keep: list[str] = _KEEP_QUERY
+    request: Request,
+    seed: str = _SEED_QUERY,
+    keep: list[str] = _KEEP_QUERY,
+    activation: list[str] = _ACTIVATION_QUERY,
 ) -> Response:
-    imported = await _imported(request, seed, keep)
+    imported = await _imported(request, seed, keep, activation)
     try:
         body: bytes = await run_in_threadpool(
             seeded_model, imported.loaded.model, imported.plan, imported.translation.bindings
