@@ -40,8 +40,8 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path[:0] = [str(ROOT / "tests"), str(ROOT / "service")]
 
-from e2e.networks import river_gauge_forecaster, single_dense  # noqa: E402
-from e2e.server import RunningServer, start_server  # noqa: E402
+from support.networks import river_gauge_forecaster, single_dense  # noqa: E402
+from support.server import RunningServer, start_server  # noqa: E402
 
 SIDE = 4096
 

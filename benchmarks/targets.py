@@ -49,10 +49,10 @@ sys.path[:0] = [str(ROOT / "tests"), str(ROOT / "service"), str(Path(__file__).p
 
 from timing import best_of  # noqa: E402
 
-from e2e.networks import river_gauge_forecaster, single_dense  # noqa: E402
-from e2e.server import RunningServer, start_server  # noqa: E402
 from seedbed_client.generator import derive_key, kernel  # noqa: E402
 from seedbed_client.generator.fill import fill_scaled  # noqa: E402
+from support.networks import river_gauge_forecaster, single_dense  # noqa: E402
+from support.server import RunningServer, start_server  # noqa: E402
 
 SIDE = 4096
 COUNT = SIDE * SIDE

@@ -19,6 +19,45 @@ sys.path.insert(0, str(ROOT / "service"))
 os.environ.setdefault("SEEDBED_DATA_DIR", tempfile.mkdtemp(prefix="seedbed-test-data-"))
 
 
+TESTS = Path(__file__).resolve().parent
+# Markers by top-level folder: e2e and client tests start real servers, registry tests real
+# databases. The fast loop deselects them: pytest -m "not e2e and not registry and not slow".
+FOLDER_MARKERS: dict[str, tuple[str, ...]] = {
+    "e2e": ("e2e",),
+    "client": ("e2e",),
+    "registry": ("registry",),
+    "unit": ("unit",),
+}
+
+
+# In-process tests that still take seconds each (fresh interpreters, an API fuzzer, jax
+# tracing, long simulations): `slow`, so the fast loop skips them; CI runs them all.
+SLOW_TESTS: tuple[str, ...] = (
+    "unit/web/test_fuzz.py",
+    "unit/core/diagnostics/test_verdicts.py",
+    "unit/client/test_flax_adapter.py",
+    "unit/client/test_generator_portability.py",
+    "unit/client/test_generator_kernel.py::test_without_the_kernel",
+    "unit/cli/test_commands.py::test_help_lists_service_and_client_commands",
+    "unit/core/test_golden.py::test_same_digests_with_simd_dispatch_disabled",
+    "unit/core/test_activations.py::test_gain_bitwise_identical_in_fresh_process",
+    "unit/web/test_generator_status.py::test_settings_command_says_which_generator_runs",
+)
+
+
+def pytest_collection_modifyitems(config: pytest.Config, items: list[pytest.Item]) -> None:
+    for item in items:
+        try:
+            where = Path(str(item.path)).resolve().relative_to(TESTS)
+        except ValueError:
+            continue
+        for mark in FOLDER_MARKERS.get(where.parts[0], ()):
+            item.add_marker(mark)
+        node = where.as_posix() + "::" + item.name
+        if any(node.startswith(prefix) for prefix in SLOW_TESTS):
+            item.add_marker("slow")
+
+
 def require_oracle(module: str) -> ModuleType:
     """Import a reference library used as an oracle.
 

@@ -38,8 +38,9 @@ from seedbed_client.cli_shared import (
 )
 from seedbed_client.cli_shared import client_from_args as _client
 from seedbed_client.client import DEFAULT_URL, ENV_URL
-from seedbed_client.containers import IntegrityError, inspect_body, sniff_format
+from seedbed_client.containers import inspect_body, sniff_format
 from seedbed_client.errors import (
+    IntegrityError,
     SeedbedError,
     ServiceError,
     ServiceUnavailable,

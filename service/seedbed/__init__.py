@@ -1,3 +1,5 @@
 """seedbed: seeded, reproducible, explained initial weights for neural networks."""
 
-__version__ = "0.1.0"
+from seedbed_client._version import __version__
+
+__all__ = ["__version__"]

@@ -23,7 +23,7 @@ COMMAND = "keys"
 
 def register(subparsers: Any) -> argparse.ArgumentParser:
     """Add `keys create|list|revoke` to the `seedbed` command's subparsers."""
-    keys = subparsers.add_parser(
+    keys: argparse.ArgumentParser = subparsers.add_parser(
         COMMAND,
         help="create, list and revoke publishing keys",
         description="Manage the keys that may publish team recipes. Uses the same database as "

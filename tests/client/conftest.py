@@ -18,8 +18,8 @@ ROOT = Path(__file__).resolve().parents[2]
 if str(ROOT / "client") not in sys.path:
     sys.path.insert(0, str(ROOT / "client"))
 
-from e2e.server import RunningServer, free_port, start_server  # noqa: E402
 from seedbed_client import Client, RetryPolicy  # noqa: E402
+from support.server import RunningServer, free_port, start_server  # noqa: E402
 
 
 @pytest.fixture(scope="session")

@@ -14,10 +14,10 @@ from pathlib import Path
 
 import pytest
 
-from e2e.networks import greenhouse_controller, harbor_crane_monitor
-from e2e.readback import check_digests, read_body
-from e2e.server import RunningServer
 from seedbed_client import cli
+from support.networks import greenhouse_controller, harbor_crane_monitor
+from support.readback import check_digests, read_body
+from support.server import RunningServer
 
 from .conftest import ROOT, FaultyProxy, dead_url
 

@@ -1,6 +1,6 @@
 """The client against a real service: every format, blocks, plans, and the async twin.
 
-The oracle for the arrays is the end-to-end suite's reader (tests/e2e/readback.py), which opens
+The oracle for the arrays is the end-to-end suite's reader (tests/support/readback.py), which opens
 each container with the library that owns the format (json+base64, numpy.load, the safetensors
 package), never with seedbed or seedbed_client code.
 """
@@ -15,10 +15,10 @@ import httpx
 import numpy as np
 import pytest
 
-from e2e.networks import greenhouse_controller, harbor_crane_monitor
-from e2e.readback import read_body
-from e2e.server import RunningServer
 from seedbed_client import AsyncClient, Client, WeightSet
+from support.networks import greenhouse_controller, harbor_crane_monitor
+from support.readback import read_body
+from support.server import RunningServer
 
 
 def _served(base_url: str, request: dict, fmt: str, scratch: Path, **params: str):

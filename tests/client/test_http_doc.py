@@ -15,7 +15,7 @@ from pathlib import Path
 
 import pytest
 
-from e2e.server import RunningServer
+from support.server import RunningServer
 
 from .conftest import ROOT
 

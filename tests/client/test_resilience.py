@@ -10,8 +10,6 @@ from pathlib import Path
 import httpx
 import pytest
 
-from e2e.networks import greenhouse_controller, single_dense
-from e2e.server import RunningServer
 from seedbed_client import (
     CacheCorrupted,
     Client,
@@ -23,6 +21,8 @@ from seedbed_client import (
     SpecInvalid,
     UnknownTensor,
 )
+from support.networks import greenhouse_controller, single_dense
+from support.server import RunningServer
 
 from .conftest import FAST_RETRY, FaultyProxy, dead_url
 

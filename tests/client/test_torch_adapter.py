@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 
 from conftest import require_oracle
-from e2e.server import RunningServer
 from seedbed_client import Client, SpecInvalid
+from support.server import RunningServer
 
 torch = require_oracle("torch")
 from torch import nn  # noqa: E402 - only once the oracle check above has passed

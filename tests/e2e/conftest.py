@@ -8,7 +8,7 @@ from pathlib import Path
 import httpx
 import pytest
 
-from .server import RunningServer, start_server
+from support.server import RunningServer, start_server
 
 ServerFactory = Callable[..., RunningServer]
 

@@ -10,8 +10,8 @@ import httpx
 import numpy as np
 import pytest
 
-from .networks import greenhouse_controller
-from .readback import read_body
+from support.networks import greenhouse_controller
+from support.readback import read_body
 
 
 @pytest.mark.parametrize("fmt", ["npz", "safetensors"])

@@ -13,7 +13,7 @@ from typing import Any
 import httpx
 import pytest
 
-from .networks import greenhouse_controller, single_dense
+from support.networks import greenhouse_controller, single_dense
 
 JSON = {"Content-Type": "application/json"}
 # The service's default limits (seedbed_client.wire_facts): 1 MiB bodies, 4096 layers, 2**28

@@ -9,7 +9,7 @@ import time
 import httpx
 import pytest
 
-from .networks import greenhouse_controller, harbor_crane_monitor
+from support.networks import greenhouse_controller, harbor_crane_monitor
 
 GET_ROUTES = ["/healthz", "/readyz", "/metrics", "/v1/catalog"]
 

@@ -10,8 +10,8 @@ from collections.abc import Callable
 import httpx
 import pytest
 
-from .networks import greenhouse_controller, harbor_crane_monitor
-from .server import RunningServer
+from support.networks import greenhouse_controller, harbor_crane_monitor
+from support.server import RunningServer
 
 CASES: list[tuple[str, dict[str, str]]] = [
     ("json", {}),

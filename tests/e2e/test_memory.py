@@ -21,8 +21,8 @@ from dataclasses import dataclass, field
 import httpx
 import pytest
 
-from .networks import single_dense
-from .server import RunningServer
+from support.networks import single_dense
+from support.server import RunningServer
 
 MIB = 1 << 20
 SIDE = 16384  # one 16384 x 16384 float32 dense layer: 2**28 values, exactly 1 GiB

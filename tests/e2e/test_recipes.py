@@ -13,9 +13,9 @@ from pathlib import Path
 import httpx
 import pytest
 
-from .networks import greenhouse_controller, harbor_crane_monitor
-from .readback import check_digests, read_body
-from .server import RunningServer
+from support.networks import greenhouse_controller, harbor_crane_monitor
+from support.readback import check_digests, read_body
+from support.server import RunningServer
 
 IMMUTABLE = "public, max-age=31536000, immutable"  # the caching docs/recipes.md fixes for recipes
 RECIPE = "greenhouse-zone7"

@@ -23,7 +23,7 @@ from schemathesis.checks import not_a_server_error
 from schemathesis.config import SchemathesisConfig
 from schemathesis.specs.openapi.checks import response_schema_conformance
 
-from .server import ROOT, RunningServer
+from support.server import ROOT, RunningServer
 
 DOCUMENT = ROOT / "openapi" / "openapi.json"
 FUZZ_SEED = 20261202

@@ -9,8 +9,8 @@ from pathlib import Path
 import httpx
 import pytest
 
-from .networks import greenhouse_controller
-from .server import ServerStartError, start_server
+from support.networks import greenhouse_controller
+from support.server import ServerStartError, start_server
 
 
 def test_bad_setting_stops_start_up_naming_the_variable(tmp_path: Path) -> None:

@@ -10,8 +10,8 @@ import httpx
 import numpy as np
 import pytest
 
-from .networks import greenhouse_controller, harbor_crane_monitor, single_dense
-from .readback import Payload, check_digests, read_body
+from support.networks import greenhouse_controller, harbor_crane_monitor, single_dense
+from support.readback import Payload, check_digests, read_body
 
 FORMATS = ["json", "npz", "safetensors"]
 MEDIA_TYPES = {

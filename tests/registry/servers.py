@@ -1,7 +1,7 @@
 """Real service processes with the registry, for the replica and crash tests.
 
 Each is the real `python -m seedbed.cli serve`. Process handling (environment, logs,
-stopping) is the end-to-end suite's (tests/e2e/server.py).
+stopping) is the end-to-end suite's (tests/support/server.py).
 """
 
 from __future__ import annotations
@@ -14,7 +14,7 @@ from pathlib import Path
 
 import httpx
 
-from e2e.server import (
+from support.server import (
     HOST,
     ROOT,
     STARTUP_TIMEOUT_S,

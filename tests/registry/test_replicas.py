@@ -18,9 +18,9 @@ from typing import Any
 import httpx
 import pytest
 
-from e2e.server import RunningServer
 from seedbed.registry import config_from_env, open_registry
 from seedbed.registry.keys import create_key
+from support.server import RunningServer
 
 from .servers import start_registry_server
 

@@ -1,4 +1,5 @@
-"""A fixed set of requests whose output bytes are pinned by SHA-256 (tests/test_golden.py).
+"""A fixed set of requests whose output bytes are pinned by SHA-256
+(tests/unit/core/test_golden.py).
 
 Runnable as a script: prints {"<case>/<tensor>": sha256} as JSON, so the same computation can be
 repeated in a subprocess with different CPU features disabled.

@@ -1,8 +1,9 @@
 """Write tests/vectors/rng_vectors.json, the generator's published test vectors.
 
-The same JSON is shown in docs/generator.md; tests/test_rng_vectors.py checks that the code
-reproduces it and that the document shows exactly this file. Regenerate only together with
-a new ALGORITHM version:  PYTHONPATH=service:client python tests/vectors/make_rng_vectors.py
+The same JSON is shown in docs/generator.md; tests/unit/client/test_generator_vectors.py
+checks that the code reproduces it and that the document shows exactly this file. Regenerate
+only together with a new ALGORITHM version:
+PYTHONPATH=service:client python tests/vectors/make_rng_vectors.py
 """
 
 from __future__ import annotations

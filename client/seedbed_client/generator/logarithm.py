@@ -82,8 +82,8 @@ def log_positive(x: np.ndarray) -> np.ndarray:
 def deterministic_log(x: np.ndarray) -> np.ndarray:
     """Natural log of an array of positive finite values, bit-identical on every CPU.
 
-    Accuracy: within 1 ulp of the true value (see tests/test_rng_log.py for the measured
-    bound). Zero, negative, infinite or NaN inputs raise ValueError.
+    Accuracy: within 1 ulp of the true value (see tests/unit/client/test_generator_log.py for
+    the measured bound). Zero, negative, infinite or NaN inputs raise ValueError.
     """
     arr = np.asarray(x, dtype=np.float64)
     if arr.size and not (np.all(arr > 0.0) and np.all(np.isfinite(arr))):

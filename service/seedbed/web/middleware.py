@@ -36,7 +36,7 @@ def request_id_of(scope: Scope) -> str:
 def _incoming_id(scope: Scope) -> str:
     for name, value in scope.get("headers", ()):
         if name == REQUEST_ID_HEADER.encode():
-            text = value.decode("latin-1")
+            text: str = value.decode("latin-1")
             if _GOOD_ID.fullmatch(text):
                 return text
             break

@@ -4,7 +4,7 @@ A replica whose numpy, CPU or build produced different values from everyone else
 out silently different "reproducible" weights. So before it reports ready, the service generates
 a fixed set of probe tensors through the real core and compares their SHA-256 with values baked
 in below. The probe requests are the golden cases of tests/support/golden_cases.py and the baked
-values a subset of tests/golden/core_digests.json (tests/test_web_readyz.py keeps both in
+values a subset of tests/golden/core_digests.json (tests/unit/web/test_readyz.py keeps both in
 agreement), chosen to cover every dtype, both layouts and each exact sampler (normal, uniform,
 truncated normal, identity, constant; a transposed conv; permuted LSTM gates). Orthogonal
 tensors are `platform`-reproducible by design and take no part.

@@ -13,8 +13,9 @@ from urllib.parse import urlsplit
 
 import pytest
 
+from support.server import RunningServer
+
 from ..conftest import _TROUBLE_MARKERS, ServerFactory
-from ..server import RunningServer
 from .chromium import chromium_path, launch
 
 ARTIFACTS = Path(

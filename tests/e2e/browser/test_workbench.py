@@ -23,7 +23,8 @@ import httpx
 import numpy as np
 import pytest
 
-from ..server import RunningServer
+from support.server import RunningServer
+
 from .conftest import Watched
 
 # A real browser against a real server: minutes, not seconds (CI runs them all the same).

@@ -15,7 +15,7 @@ from seedbed.web import Settings, create_app
 from seedbed.web.plan_cache import CachedPlan, PlanCache, request_key
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
-from e2e.networks import river_gauge_forecaster
+from support.networks import river_gauge_forecaster
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 

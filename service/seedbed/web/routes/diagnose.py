@@ -94,7 +94,10 @@ def _finite(value: Any) -> Any:
 
 def _document(data: Any, request_limits: Any, limits: DiagnosticLimits,
               threads: int) -> dict[str, Any]:
-    return _finite(diagnosis_document(diagnose(data, request_limits, limits, threads=threads)))
+    document: dict[str, Any] = _finite(
+        diagnosis_document(diagnose(data, request_limits, limits, threads=threads))
+    )
+    return document
 
 
 @router.post(

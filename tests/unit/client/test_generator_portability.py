@@ -12,7 +12,7 @@ import pytest
 
 from seedbed.core.version import ALGORITHM
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[3]
 VECTORS = ROOT / "tests" / "vectors"
 SCRIPT = VECTORS / "rng_fingerprint.py"
 OLDEST_VENV = ROOT / ".venv-oldest-numpy"

@@ -11,9 +11,9 @@ import numpy as np
 import pytest
 
 from seedbed.formats import FORMAT_NAMES, encode_body
-from test_formats_helpers import DEMO_DOCUMENT, array_tensor, collect
+from support.format_helpers import DEMO_DOCUMENT, array_tensor, collect
 
-DOC = Path(__file__).resolve().parents[1] / "docs" / "formats.md"
+DOC = Path(__file__).resolve().parents[3] / "docs" / "formats.md"
 
 
 def _verify_function() -> Any:

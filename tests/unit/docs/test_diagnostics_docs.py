@@ -13,7 +13,7 @@ from seedbed.core.diagnostics.ops import NORM_EPS
 from seedbed.core.diagnostics.unit_stats import FLAT_WHEN_SATURATED, RECTIFIER_FAMILY
 from seedbed.core.diagnostics.verdict import HIGH, LOW
 
-DOC = (Path(__file__).resolve().parents[1] / "docs" / "diagnostics.md").read_text(
+DOC = (Path(__file__).resolve().parents[3] / "docs" / "diagnostics.md").read_text(
     encoding="utf-8")
 
 

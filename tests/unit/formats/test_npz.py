@@ -15,7 +15,7 @@ import pytest
 
 from seedbed.formats import OutgoingTensor, npz_body
 from seedbed.formats.npz_out import BF16_STORED_AS, MANIFEST_MEMBER, ZIP64_LIMIT, npy_header
-from test_formats_helpers import DEMO_DOCUMENT, array_tensor, collect, raw_tensor, sha256_hex
+from support.format_helpers import DEMO_DOCUMENT, array_tensor, collect, raw_tensor, sha256_hex
 
 # Streaming more than 4 GiB (or 65535 members) takes 5-15 s on two cores: run these by hand with
 # SEEDBED_LONG_TESTS=1. The lowered-threshold tests below take the same code paths in CI, and

@@ -21,7 +21,7 @@ from seedbed.formats import (
     tensor_digests,
 )
 from seedbed.formats.safetensors_out import ALGORITHM_KEY, MANIFEST_KEY
-from test_formats_helpers import (
+from support.format_helpers import (
     DEMO_DOCUMENT,
     array_tensor,
     collect,

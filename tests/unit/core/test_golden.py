@@ -15,7 +15,7 @@ from pathlib import Path
 
 from support.golden_cases import digests
 
-HERE = Path(__file__).resolve().parent
+HERE = Path(__file__).resolve().parents[2]
 GOLDEN = json.loads((HERE / "golden" / "core_digests.json").read_text())
 BUMP = ("output bytes changed: if intended, bump ALGORITHM in service/seedbed/core/version.py "
         "and regenerate tests/golden/core_digests.json with tests/support/golden_cases.py")

@@ -261,7 +261,7 @@ def test_gain_bitwise_stable_across_calls_and_cache_clears() -> None:
 def test_gain_bitwise_identical_in_fresh_process() -> None:
     code = (
         "import sys; sys.path.insert(0, 'service'); sys.path.insert(0, 'tests');"
-        "from test_activations import _all_gain_bits; print('\\n'.join(_all_gain_bits()))"
+        "from unit.core.test_activations import _all_gain_bits; print('\\n'.join(_all_gain_bits()))"
     )
     out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True,
                          check=True, timeout=120)

@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 from seedbed.formats import FORMAT_NAMES, OutgoingTensor, encode_body, json_size
 from seedbed.formats.npz_out import MANIFEST_MEMBER, NPY_DESCR, npz_body
 from seedbed.formats.safetensors_out import MANIFEST_KEY
-from test_formats_helpers import ITEMSIZE, collect, parse_safetensors, raw_tensor, sha256_hex
+from support.format_helpers import ITEMSIZE, collect, parse_safetensors, raw_tensor, sha256_hex
 
 _ST_CODES = {"float64": "F64", "float32": "F32", "float16": "F16", "bfloat16": "BF16"}
 

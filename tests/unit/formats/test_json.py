@@ -10,7 +10,7 @@ import ml_dtypes
 import numpy as np
 
 from seedbed.formats import OutgoingTensor, json_body, json_size
-from test_formats_helpers import DEMO_DOCUMENT, array_tensor, collect, sha256_hex
+from support.format_helpers import DEMO_DOCUMENT, array_tensor, collect, sha256_hex
 
 _NP_DTYPES = {"float32": np.float32, "float64": np.float64, "float16": np.float16,
               "bfloat16": ml_dtypes.bfloat16}

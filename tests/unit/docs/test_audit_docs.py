@@ -14,7 +14,7 @@ from seedbed.core.audit.refusals import REFUSAL_CODES
 from seedbed.settings import SettingsError
 from seedbed.web.routes.audit import MAX_AUDIT_ENV, audit_limits_from_env
 
-DOC = (Path(__file__).resolve().parents[1] / "docs" / "audit.md").read_text(encoding="utf-8")
+DOC = (Path(__file__).resolve().parents[3] / "docs" / "audit.md").read_text(encoding="utf-8")
 
 
 def test_every_code_is_documented() -> None:

@@ -361,7 +361,7 @@ def test_any_json_policy_name_is_refused_cleanly(name: object) -> None:
 
 
 def test_the_example_in_the_depth_guide_is_valid_and_as_described() -> None:
-    text = (Path(__file__).resolve().parents[1] / "docs" / "depth.md").read_text()
+    text = (Path(__file__).resolve().parents[4] / "docs" / "depth.md").read_text()
     blocks = re.findall(r"```json\n(.*?)```", text, flags=re.S)
     assert blocks
     for raw in blocks:

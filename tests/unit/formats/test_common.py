@@ -21,9 +21,9 @@ from seedbed.formats import (
     tensor_digests,
     tensor_from_array,
 )
-from test_formats_helpers import DEMO_DOCUMENT, array_tensor, collect, raw_tensor
+from support.format_helpers import DEMO_DOCUMENT, array_tensor, collect, raw_tensor
 
-FORMATS_DIR = Path(__file__).resolve().parents[1] / "service" / "seedbed" / "formats"
+FORMATS_DIR = Path(__file__).resolve().parents[3] / "service" / "seedbed" / "formats"
 WEB_ROOTS = {"fastapi", "starlette", "uvicorn", "httpx", "prometheus_client"}
 
 

@@ -4,7 +4,7 @@ point one way, from the web layer to the core)."""
 import ast
 from pathlib import Path
 
-CORE = Path(__file__).resolve().parents[1] / "service" / "seedbed" / "core"
+CORE = Path(__file__).resolve().parents[2] / "service" / "seedbed" / "core"
 WEB_MODULES = {"fastapi", "starlette", "uvicorn", "httpx", "prometheus_client", "seedbed.web"}
 
 

@@ -14,7 +14,7 @@ import pytest
 from fastapi.testclient import TestClient
 
 from seedbed.web import Settings, create_app
-from test_web_endpoints import READERS
+from unit.web.test_endpoints import READERS
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 

@@ -12,7 +12,7 @@ from seedbed.web.openapi_export import DEFAULT_PATH, REGENERATE, current_documen
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
-COMMITTED = Path(__file__).resolve().parents[1] / "openapi" / "openapi.json"
+COMMITTED = Path(__file__).resolve().parents[3] / "openapi" / "openapi.json"
 
 
 def test_committed_document_is_current() -> None:

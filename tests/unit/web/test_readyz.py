@@ -25,10 +25,11 @@ pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 def test_baked_values_agree_with_the_golden_tests() -> None:
     # The probes are the golden cases and the baked digests a subset of the committed golden
-    # values (tests/test_golden.py), so the two checks can never disagree silently.
+    # values (tests/unit/core/test_golden.py), so the two checks can never disagree silently.
     assert BAKED_ALGORITHM == ALGORITHM
     assert PROBE_REQUESTS == CASES
-    golden = json.loads((Path(__file__).parent / "golden" / "core_digests.json").read_text())
+    digests_file = Path(__file__).resolve().parents[2] / "golden" / "core_digests.json"
+    golden = json.loads(digests_file.read_text())
     assert {k: golden.get(k) for k in BAKED_SHA256} == BAKED_SHA256
     # Every dtype and layout takes part.
     assert {k.split("/")[0] for k in BAKED_SHA256} == set(CASES)

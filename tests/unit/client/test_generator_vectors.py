@@ -27,9 +27,9 @@ from seedbed_client.generator.normal_inverse import (
     AS241_E,
     AS241_F,
 )
-from test_rng_philox import reference_philox4x64_10
+from unit.client.test_generator_philox import reference_philox4x64_10
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[3]
 VECTORS = json.loads((ROOT / "tests" / "vectors" / "rng_vectors.json").read_text(encoding="utf-8"))
 DOC = (ROOT / "docs" / "generator.md").read_text(encoding="utf-8")
 CASES = VECTORS["cases"]

@@ -12,7 +12,7 @@ from collections.abc import Callable, Iterator
 import pytest
 
 from seedbed.formats import EncodedBody, OutgoingTensor, encode_body
-from test_formats_helpers import DEMO_DOCUMENT
+from support.format_helpers import DEMO_DOCUMENT
 
 BLOCK = bytes(range(256)) * 4096  # 1 MiB
 PEAK_LIMIT = 64 << 20
