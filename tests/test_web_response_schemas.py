@@ -312,10 +312,15 @@ def test_recipe_bodies_conform(client: TestClient, document: dict[str, Any],
                             json={"name": "kiln-probe", "request": KILN,
                                   "description": "firing-curve baseline"})
     assert published.status_code == 201, published.text
-    client.post("/v1/recipes", headers=auth, json={"name": "kiln-probe", "request": KILN})
+    # The same request again reuses version 1 (200); a changed one makes version 2.
+    again = client.post("/v1/recipes", headers=auth, json={"name": "kiln-probe", "request": KILN})
+    client.post("/v1/recipes", headers=auth,
+                json={"name": "kiln-probe", "request": {**KILN, "seed": 2}})
     client.post("/v1/recipes", headers=auth, json={"name": "deep-enc", "request": DEEP_ENCODER})
     cases = [
         ("/v1/recipes", "post", 201, published),
+        ("/v1/recipes", "post", 200, again),
+        ("/v1/recipes/{name}/{version}", "get", 200, client.get("/v1/recipes/kiln-probe/latest")),
         ("/v1/recipes", "get", 200, client.get("/v1/recipes", params={"limit": 1})),
         ("/v1/recipes/{name}", "get", 200, client.get("/v1/recipes/kiln-probe")),
         ("/v1/recipes/{name}/{version}", "get", 200, client.get("/v1/recipes/kiln-probe/2")),
