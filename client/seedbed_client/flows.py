@@ -39,9 +39,9 @@ from seedbed_client.spool import (
     map_file,
     read_file,
 )
-from seedbed_client.wire import WeightsCall
+from seedbed_client.wire import RecipeWeightsCall, WeightsCall
 
-Source = Literal["service", "cache", "revalidated"]
+Source = Literal["service", "cache", "revalidated", "local"]
 
 
 @dataclass(frozen=True)
@@ -200,20 +200,51 @@ def json_flow(
     method: str, path: str, body: bytes | None, ctx: FlowContext
 ) -> Generator[Effect, Outcome, Any]:
     """POST /v1/plan, GET /v1/catalog: one JSON document, retried, no cache."""
-    extra = {"content-type": "application/json"} if body is not None else {}
-    headers = _headers(ctx, accept="application/json", **extra)
-    _, reply = yield from exchange(lambda: Send(method, path, {}, headers, body), ctx.retry, ctx)
-    _raise_for(reply)
+    _, doc = yield from document_flow(method, path, body, ctx)
+    return doc
+
+
+def document_flow(
+    method: str,
+    path: str,
+    body: bytes | None,
+    ctx: FlowContext,
+    *,
+    params: Mapping[str, str] | None = None,
+    content_type: str = "application/json",
+    accept: str = "application/json",
+    ok: tuple[int, ...] = (200,),
+    more_headers: Mapping[str, str] | None = None,
+    retry: RetryPolicy | None = None,
+) -> Generator[Effect, Outcome, tuple[Reply, Any]]:
+    """One small document (JSON, or text when `accept` is not JSON), retried, no cache.
+
+    Returns the reply and the parsed body; any status outside `ok` raises the service's error.
+    """
+    extra = {"content-type": content_type} if body is not None else {}
+    headers = _headers(ctx, accept=accept, **extra, **(more_headers or {}))
+    query = dict(params or {})
+    _, reply = yield from exchange(
+        lambda: Send(method, path, query, headers, body), retry or ctx.retry, ctx
+    )
+    if reply.status not in ok:
+        raise service_error(reply.status, _json_reply(reply), reply.headers.get("x-request-id"))
+    if "json" not in accept:
+        return reply, reply.content.decode("utf-8", errors="replace")
     try:
-        return json.loads(reply.content)
+        return reply, json.loads(reply.content)
     except ValueError:
-        raise IntegrityError(f"{path} answered 200 with a body that is not JSON") from None
+        raise IntegrityError(
+            f"{path} answered {reply.status} with a body that is not JSON"
+        ) from None
 
 
 # --- weights ---------------------------------------------------------------------------------
 
 
-def _open_cached(entry: CacheEntry, call: WeightsCall, spool_dir: Path | None) -> Delivery:
+def _open_cached(
+    entry: CacheEntry, call: WeightsCall | RecipeWeightsCall, spool_dir: Path | None
+) -> Delivery:
     """Load a cached body and verify it whole (content address) and per tensor (manifest).
 
     Into memory, or (for `save`) into a spool file in `spool_dir`: what is verified is the copy
@@ -245,7 +276,9 @@ def _open_cached(entry: CacheEntry, call: WeightsCall, spool_dir: Path | None) -
     return Delivery(inspection, buffer, entry.etag, "cache", path)
 
 
-def _finish_download(send: Send, reply: Reply, call: WeightsCall, ctx: FlowContext) -> Delivery:
+def _finish_download(
+    send: Send, reply: Reply, call: WeightsCall | RecipeWeightsCall, ctx: FlowContext
+) -> Delivery:
     sink = send.sink
     etag = reply.headers.get("etag")
     path: Path | None = None
@@ -263,12 +296,14 @@ def _finish_download(send: Send, reply: Reply, call: WeightsCall, ctx: FlowConte
         sink.abandon()
         raise
     if ctx.cache is not None:
-        ctx.cache.store(call.cache_key, path or buffer, sink.digest(), call.format, etag)
+        ctx.cache.store(
+            call.cache_key, path or buffer, sink.digest(), call.format, etag, labels=call.labels
+        )
     return Delivery(inspection, buffer, etag, "service", path)
 
 
 def weights_flow(
-    call: WeightsCall,
+    call: WeightsCall | RecipeWeightsCall,
     ctx: FlowContext,
     *,
     progress: ProgressHook | None = None,
@@ -294,7 +329,12 @@ def weights_flow(
                 cache.discard(entry)
                 entry, damage = None, exc
 
-    more = {"content-type": "application/json"}
+    if cached is not None and call.immutable:
+        # A numbered recipe version never changes: a verified copy is the answer, unasked.
+        assert entry is not None and cache is not None
+        cache.touch(entry)
+        return cached
+    more = {"content-type": "application/json"} if call.body is not None else {}
     if cached is not None and cached.etag:
         more["if-none-match"] = cached.etag
     headers = _headers(ctx, **more)
@@ -303,7 +343,7 @@ def weights_flow(
         sink: BodySink = (
             MemorySink(progress) if spool_dir is None else FileSink(spool_dir, progress)
         )
-        return Send("POST", "/v1/weights", call.params, headers, call.body, sink)
+        return Send(call.method, call.path, call.params, headers, call.body, sink)
 
     # Revalidating a verified copy is a single try: when it fails the copy is the answer.
     policy = NO_RETRY if cached is not None else ctx.retry
@@ -349,6 +389,7 @@ __all__ = [
     "Reply",
     "Send",
     "Wait",
+    "document_flow",
     "exchange",
     "json_flow",
     "run_flow_step",

@@ -278,8 +278,8 @@ def test_a_crash_while_storing_leaves_no_entry(
         _store(cache, "k", b"body")
     monkeypatch.undo()
     assert cache.lookup("k") is None
-    assert list((tmp_path / "v1" / "entries").iterdir()) == []  # no temporary entry left
-    assert list((tmp_path / "v1" / "tmp").iterdir()) == []
+    assert list((tmp_path / "v2" / "by-request").iterdir()) == []  # no temporary entry left
+    assert list((tmp_path / "v2" / "partial").iterdir()) == []
 
 
 # --- containers ------------------------------------------------------------------------------
