@@ -110,8 +110,8 @@ def publishing_key(
             Problem(
                 "key",
                 "missing_field",
-                f"publishing needs a key: set {ENV_KEY}, or {ENV_KEY_FILE} (a file holding it), or pass "
-                "key_file=; `seedbed keys create NAME` on the service makes one",
+                f"publishing needs a key: set {ENV_KEY}, or {ENV_KEY_FILE} (a file holding it), "
+                "or pass key_file=; `seedbed keys create NAME` on the service makes one",
             )
         ]
     )

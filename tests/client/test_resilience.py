@@ -129,7 +129,8 @@ def test_a_cut_connection_raises_integrity_error_and_returns_nothing(
     assert not (cache_dir / "v2" / "by-request").exists() or not list(
         (cache_dir / "v2" / "by-request").iterdir()
     )
-    leftovers = list((cache_dir / "v2" / "partial").glob("*")) if (cache_dir / "v2").exists() else []
+    partial = cache_dir / "v2" / "partial"
+    leftovers = list(partial.glob("*")) if partial.exists() else []
     assert leftovers == []  # partial downloads are removed, not kept
 
 

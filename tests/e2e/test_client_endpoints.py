@@ -112,9 +112,12 @@ def test_recipes_publish_list_show_and_weights_by_version_and_latest(
         assert offline.recipe == "vent-control@2" and offline.source == "cache"
         assert offline.note is not None and "could not be reached" in offline.note
         assert _digests(offline) == _digests(direct)
-    with Client(registry_server.base_url, cache_dir=tmp_path / "empty", retry=QUICK) as client:
-        with pytest.raises(ServiceUnavailable):
-            client.weights("vent-control@latest")
+    empty = tmp_path / "empty"
+    with (
+        Client(registry_server.base_url, cache_dir=empty, retry=QUICK) as client,
+        pytest.raises(ServiceUnavailable),
+    ):
+        client.weights("vent-control@latest")
 
 
 def _twin_rows_file(path: Path, request: dict[str, Any], client: Client) -> Path:
