@@ -12,6 +12,7 @@ sha256 matched its manifest.
 from __future__ import annotations
 
 import asyncio
+import hashlib
 import os
 import random
 from collections.abc import Mapping
@@ -46,6 +47,7 @@ from seedbed_client.local import (
     PlatformChoice,
     check_origin,
     check_platform,
+    expected_digests,
     local_manifest,
     make_tensors,
     platform_names,
@@ -474,6 +476,28 @@ class Client:
         made = make_tensors(plan, only=only, rows=rows, platform_tensors=platform,
                             fetch=lambda n, _r: fetched[n])
         return self._setup.local_set(plan, made)
+
+    def expected_digests(
+        self, against: WeightsSource, *, origin: str = "local"
+    ) -> dict[str, tuple[str, bool]]:
+        """What each tensor's sha256 should be: tensor -> (digest, made here although
+        platform-dependent). A recipe reference answers with the fingerprints its registry
+        stored at publish time; a request is planned by the service and, with the default
+        `origin="local"`, its digests are computed here without holding any tensor
+        (orthogonal tensors are asked of the service); `origin="service"` downloads them."""
+        if isinstance(against, str):
+            stored = self.recipe(against)
+            return {n: (d, False) for n, d in stored.fingerprints.items()}
+        if check_origin(origin) == "service":
+            served = self.weights(against)
+            return {e["tensor"]: (e["sha256"], False) for e in served.manifest["tensors"]}
+        plan = self.plan(against)
+
+        def service_digest(name: str) -> str:
+            array = np.ascontiguousarray(self.tensor(against, name))
+            return hashlib.sha256(array.reshape(-1).view(np.uint8).data).hexdigest()
+
+        return expected_digests(plan, service_digest)
 
     # --- recipes ---------------------------------------------------------------------------
 

@@ -181,3 +181,25 @@ def local_manifest(plan: Mapping[str, Any], entries: Iterable[dict[str, Any]]) -
         "made_locally": True,
         "tensors": list(entries),
     }
+
+
+def expected_digests(
+    plan: Mapping[str, Any],
+    fetch_digest: Callable[[str], str] | None = None,
+    threads: int = 1,
+) -> dict[str, tuple[str, bool]]:
+    """Tensor name -> (sha256 of its bytes, made here although platform-dependent), computed
+    piece by piece without holding any tensor (orthogonal: one matrix at a time).
+
+    Platform-dependent tensors are asked of `fetch_digest(name)` when given (the service's
+    bytes are the reference), else generated here and marked."""
+    out: dict[str, tuple[str, bool]] = {}
+    for _, recipe in recipes_of(plan):
+        if recipe.platform_dependent and fetch_digest is not None:
+            out[recipe.tensor] = (fetch_digest(recipe.tensor), False)
+            continue
+        sha = hashlib.sha256()
+        for piece in iter_tensor_bytes(recipe, chunk_bytes=CHUNK_BYTES, threads=threads):
+            sha.update(piece)
+        out[recipe.tensor] = (sha.hexdigest(), recipe.platform_dependent)
+    return out
