@@ -25,7 +25,7 @@ import numpy as np
 
 from seedbed_client._version import __version__
 from seedbed_client.cache import WeightCache, default_cache_dir, default_max_bytes
-from seedbed_client.containers import to_arrays
+from seedbed_client.containers import mapped_arrays, to_arrays
 from seedbed_client.drivers import drive_async, drive_sync
 from seedbed_client.endpoint_flows import (
     RecipeDelivery,
@@ -204,6 +204,16 @@ def _place(delivery: Delivery, target: Path) -> int:
     return target.stat().st_size
 
 
+def _arrays_of(delivery: Delivery) -> dict[str, np.ndarray]:
+    """Arrays on the verified body: private maps of its file, or views of memory we own."""
+    if delivery.handle is None:
+        return to_arrays(delivery.inspection)
+    try:
+        return mapped_arrays(delivery.inspection, delivery.handle)
+    finally:
+        delivery.handle.close()  # each array's map keeps its own reference to the file
+
+
 class _Setup:
     """Settings shared by both clients, and the flows built from them."""
 
@@ -313,13 +323,13 @@ class _Setup:
 
     @staticmethod
     def weight_set(delivery: Delivery) -> WeightSet:
-        arrays = to_arrays(delivery.inspection)
+        arrays = _arrays_of(delivery)
         return WeightSet(arrays, delivery.manifest, delivery.etag, delivery.source)
 
     @staticmethod
     def recipe_set(got: RecipeDelivery) -> WeightSet:
         d = got.delivery
-        return WeightSet(to_arrays(d.inspection), d.manifest, d.etag, d.source,
+        return WeightSet(_arrays_of(d), d.manifest, d.etag, d.source,
                          recipe=str(got.ref), note=got.note)
 
     def recipe_saved(self, got: RecipeDelivery, target: Path, fmt: WeightFormat) -> SavedWeights:
@@ -336,7 +346,7 @@ class _Setup:
 
     @staticmethod
     def one_tensor(delivery: Delivery, name: str) -> np.ndarray:
-        arrays = to_arrays(delivery.inspection)
+        arrays = _arrays_of(delivery)
         if name not in arrays:  # the service always answers with the selected tensor
             raise SpecInvalid([Problem("tensor", "unknown_tensor", f"{name!r} not in answer")])
         return arrays[name]

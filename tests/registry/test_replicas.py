@@ -156,8 +156,10 @@ def test_a_key_revoked_once_is_refused_by_every_replica(
     finally:
         registry.close()
     body = {"name": "nacelle", "request": TURBINE}
-    for server in replicas:
-        assert httpx.post(server.base_url + "/v1/recipes", headers=_auth(doomed), json=body,
+    for i, server in enumerate(replicas):
+        # Distinct requests: the newest version's own request would be answered 200, unchanged.
+        fresh = {"name": "nacelle", "request": {**TURBINE, "seed": 60061 + i}}
+        assert httpx.post(server.base_url + "/v1/recipes", headers=_auth(doomed), json=fresh,
                           timeout=60).status_code == 201
     env = {k: v for k, v in os.environ.items() if not k.startswith("SEEDBED_")}
     env.update(database)
