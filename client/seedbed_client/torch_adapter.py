@@ -50,7 +50,7 @@ import numpy as np
 import torch
 from torch import nn
 
-from seedbed_client.client import Client
+from seedbed_client.client import DEFAULT_FORMAT, Client
 from seedbed_client.errors import Problem, SpecInvalid
 
 __all__ = [
@@ -497,13 +497,25 @@ def apply_weights(
 ) -> None:
     """Copy served arrays into the module's parameters, in place, under torch.no_grad()."""
     params = dict(module.named_parameters())
+    # Served arrays are memory maps of the download, one per tensor: dropping each once its
+    # last parameter is filled lets its pages go, so copying holds about one tensor at a time.
+    pending = dict(arrays)
+    del arrays  # when the caller passed its only reference, `pending` is now the only holder
+    uses: dict[str, int] = {}
+    for item in description.copies:
+        for s in item.sources:
+            uses[s] = uses.get(s, 0) + 1
     with torch.no_grad():
         for item in description.copies:
             target = params[item.parameter]
             if item.zero:
                 target.zero_()
                 continue
-            pieces = [arrays[s] for s in item.sources]
+            pieces = [pending[s] for s in item.sources]
+            for s in item.sources:
+                uses[s] -= 1
+                if uses[s] == 0:
+                    del pending[s]
             served = pieces[0] if len(pieces) == 1 else np.concatenate(pieces, axis=0)
             values = _as_torch(item.convert(served), target.dtype)
             if tuple(values.shape) != tuple(target.shape):
@@ -518,6 +530,7 @@ def apply_weights(
                     ]
                 )
             target.copy_(values)
+            del pieces, served, values
         for sub in module.modules():
             if isinstance(sub, nn.Embedding) and sub.padding_idx is not None:
                 sub.weight[sub.padding_idx].zero_()
@@ -528,15 +541,19 @@ def seed_module(
     client: Client,
     *,
     seed: int | str,
-    format: str = "safetensors",
+    format: str = DEFAULT_FORMAT,
+    origin: str = "service",
     **options: Any,
 ) -> ModuleDescription:
     """Describe `module`, fetch its weights (verified), and copy them in place.
 
-    `options` go to `describe_module`. Returns the description (what was inferred, skipped,
-    noted); the module's parameters hold the served values afterwards.
+    `origin="local"` fetches only the plan and generates the values in this process (the same
+    bytes; see Client.weights). `options` go to `describe_module`. Returns the description
+    (what was inferred, skipped, noted); the module's parameters hold the served values.
     """
     description = describe_module(module, seed=seed, **options)
-    arrays = client.weights(description.request, format=format)
-    apply_weights(module, description, arrays)
+    # Not bound to a name here, so apply_weights holds the only reference and can let each
+    # tensor go once copied.
+    apply_weights(module, description,
+                  client.weights(description.request, format=format, origin=origin))
     return description
