@@ -14,6 +14,7 @@ equals the service's; `platform_tensors="generate"` makes them here instead and 
 from __future__ import annotations
 
 import hashlib
+import importlib.util
 from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any, Literal
@@ -65,6 +66,12 @@ def recipes_of(plan: Mapping[str, Any]) -> list[tuple[dict[str, Any], TensorReci
     seed, dtype = plan.get("seed"), plan.get("dtype")
     if not isinstance(seed, int | str) or not isinstance(dtype, str):
         raise IntegrityError("the plan has no usable seed and dtype; cannot generate locally")
+    if dtype == "bfloat16" and importlib.util.find_spec("ml_dtypes") is None:
+        raise SpecInvalid([Problem(
+            "origin", "needs_extra",
+            "generating bfloat16 locally rounds with ml_dtypes, which is not installed: "
+            "pip install 'seedbed-client[bfloat16]', or use origin='service'",
+        )])
     out = []
     for entry in plan.get("tensors", []):
         try:
