@@ -174,7 +174,7 @@ def test_chance_twins_estimate_matches_the_birthday_count() -> None:
 def test_short_low_precision_rows_repeating_by_chance_are_only_a_warning() -> None:
     import io
 
-    from seedbed.core.audit import audit_upload
+    from seedbed.formats.upload_in import audit_upload
 
     rng = np.random.default_rng(22)
     w = (rng.standard_normal((3000, 1)) * 0.1).astype(np.float16)

@@ -20,7 +20,7 @@ from seedbed.core.diagnostics import DiagnosticLimits, chart_html, chart_svg, di
 from seedbed.core.diagnostics.report import diagnosis_document
 from seedbed.core.diagnostics.twins import locked_groups, summarise, twin_groups
 from seedbed.core.diagnostics.unit_stats import activate, dead_units, saturated_fraction
-from seedbed.core.problems import RequestRejected
+from seedbed.core.request.problems import RequestRejected
 
 # --- twin units -----------------------------------------------------------------------------
 

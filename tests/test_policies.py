@@ -18,9 +18,9 @@ import pytest
 
 from seedbed.core.plan import build_plan, plan_document
 from seedbed.core.plan_types import Plan
-from seedbed.core.problems import RequestRejected
 from seedbed.core.render import render_rows
-from seedbed.core.spec import parse_request
+from seedbed.core.request.parse import parse
+from seedbed.core.request.problems import RequestRejected
 
 
 def dense(name: str, n_in: int, n_out: int, **extra: Any) -> dict[str, Any]:
@@ -416,14 +416,14 @@ def test_width_transfer_with_an_explicit_width_and_attention() -> None:
 )  # fmt: skip
 def test_policy_errors_name_the_field(body: dict[str, Any], expected: tuple[str, str]) -> None:
     with pytest.raises(RequestRejected) as info:
-        parse_request(body)
+        parse(body)
     assert expected in fields(info.value), info.value.problems
     assert all(p.message for p in info.value.problems)
 
 
 def test_policy_names_are_listed_in_the_error() -> None:
     with pytest.raises(RequestRejected) as info:
-        parse_request(tide_lm(1, depth_policy={"name": "rezero"}))
+        parse(tide_lm(1, depth_policy={"name": "rezero"}))
     message = info.value.problems[0].message
     for name in ("fixup", "skip_gate", "scaled_residual", "deepnorm", "t_fixup",
                  "width_transfer"):

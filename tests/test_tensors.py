@@ -15,14 +15,14 @@ import numpy as np
 import pytest
 
 from conftest import require_oracle
-from seedbed.core import tensors
-from seedbed.core.problems import RequestRejected
-from seedbed.core.spec import NetworkRequest, canonical_request, parse_request
+from seedbed.core.request.network import NetworkRequest
+from seedbed.core.request.parse import parse
+from seedbed.core.request.problems import RequestRejected
 from seedbed.core.tensors import TensorSlot, request_slots, tensor_name_problems, tensor_slots
 
 
 def one_layer(layer: dict[str, Any], layout: str = "out_in") -> list[TensorSlot]:
-    r = parse_request({"seed": 1, "layout": layout, "layers": [layer]})
+    r = parse({"seed": 1, "layout": layout, "layers": [layer]}).request
     return tensor_slots(r.layers[0], r.layout)
 
 
@@ -221,10 +221,10 @@ def test_embedding_and_norm_do_not_change_with_layout() -> None:
 
 def test_request_slots_in_layer_order_independent_of_neighbours() -> None:
     body = {"seed": 3, "layers": [EMBED, ATTN, NORM, DENSE]}
-    r = parse_request(body)
+    r = parse(body).request
     slots = request_slots(r)
     assert [s.layer for s in slots] == ["tok"] + ["att"] * 8 + ["ln", "ln", "fc", "fc"]
-    alone = parse_request({"seed": 3, "layers": [DENSE]})
+    alone = parse({"seed": 3, "layers": [DENSE]}).request
     assert request_slots(alone) == [s for s in slots if s.layer == "fc"]
 
 
@@ -232,7 +232,7 @@ def test_tensor_name_clash_between_layers_is_refused_naming_both() -> None:
     body = {"seed": 1, "layers": [ATTN, {**DENSE, "name": "att.key", "n_in": 8, "n_out": 8,
                                          "bias": False}]}  # fmt: skip
     with pytest.raises(RequestRejected) as info:
-        parse_request(body)
+        parse(body)
     (p,) = info.value.problems
     assert (p.field, p.code) == ("layers[1].name", "duplicate_name")
     assert "'att.key.weight'" in p.message and "layers[0].name" in p.message
@@ -243,11 +243,11 @@ def test_norm_and_dense_names_can_coexist_when_tensors_differ() -> None:
     # and "x.scale.bias". No tensor name is shared, so this is fine: the check compares whole
     # tensor names, not prefixes.
     body = {"seed": 1, "layers": [{**NORM, "name": "x"}, {**DENSE, "name": "x.scale"}]}
-    parse_request(body)
+    parse(body)
 
 
 def test_request_slots_refuse_unchecked_requests_with_clashes() -> None:
-    # A request built without parse_request may carry duplicates; enumeration still refuses.
+    # A request built without parse may carry duplicates; enumeration still refuses.
     r = NetworkRequest.model_validate({"seed": 1, "layers": [DENSE, DENSE]})
     with pytest.raises(RequestRejected) as info:
         request_slots(r)
@@ -258,6 +258,3 @@ def test_request_slots_refuse_unchecked_requests_with_clashes() -> None:
     assert len(tensor_name_problems(clash)) == 2  # att.value.weight and att.value.bias
 
 
-def test_canonical_request_is_available_from_tensors() -> None:
-    r = parse_request({"seed": 1, "layers": [DENSE]})
-    assert tensors.canonical_request(r) == canonical_request(r)

@@ -42,12 +42,16 @@ from seedbed_client.layers import (
     AttentionSpec,
     ConvSpec,
     DenseSpec,
+    DepthPolicy,
     EmbeddingSpec,
     InitOverride,
     LayerSpec,
     NetworkSpec,
     NormSpec,
     RecurrentSpec,
+    ResidualConvBlockSpec,
+    TransformerBlockSpec,
+    request_problems,
 )
 from seedbed_client.limits import RequestLimits, limit_problems
 from seedbed_client.records import (
@@ -72,6 +76,7 @@ __all__ = [
     "Client",
     "ConvSpec",
     "DenseSpec",
+    "DepthPolicy",
     "DiagnosisReport",
     "DiagnosisRun",
     "EmbeddingSpec",
@@ -89,6 +94,7 @@ __all__ = [
     "RequestInvalid",
     "RequestLimits",
     "RequestTooLarge",
+    "ResidualConvBlockSpec",
     "RetryPolicy",
     "SavedWeights",
     "SeedbedError",
@@ -98,6 +104,7 @@ __all__ = [
     "StoredRecipe",
     "TensorCheck",
     "Timeouts",
+    "TransformerBlockSpec",
     "UnknownTensor",
     "UnsupportedMedia",
     "WeightCache",
@@ -106,6 +113,7 @@ __all__ = [
     "default_cache_dir",
     "inspect_body",
     "limit_problems",
+    "request_problems",
     "service_error",
     "sniff_format",
 ]

@@ -483,6 +483,10 @@ def register(subparsers: Any) -> None:
     _add_service_options(show)
     show.set_defaults(**{_HANDLER: _show})
 
+    from seedbed_client.torch_cli import register_torch_command
+
+    register_torch_command(subparsers, _add_service_options, _HANDLER)
+
 
 def run(args: argparse.Namespace) -> int:
     """Run the subcommand `register` set up; prints errors to standard error."""

@@ -12,7 +12,6 @@ from __future__ import annotations
 import argparse
 import importlib.util
 import json
-import os
 import sys
 from collections.abc import Sequence
 
@@ -78,15 +77,11 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _serve(args: argparse.Namespace) -> int:
+    from seedbed.settings import Settings, SettingsError, pass_to_workers
     from seedbed.web.logs import logging_config
-    from seedbed.web.settings import PREFIX, Settings, SettingsError
 
-    # Workers are separate processes that build their own app from the environment, so command
-    # line overrides travel to them as SEEDBED_* variables.
-    for name in ("host", "port", "workers", "log_level"):
-        value = getattr(args, name)
-        if value is not None:
-            os.environ[PREFIX + name.upper()] = str(value)
+    overrides = {name: getattr(args, name) for name in ("host", "port", "workers", "log_level")}
+    pass_to_workers({name: value for name, value in overrides.items() if value is not None})
     try:
         settings = Settings.from_env()
     except SettingsError as exc:
@@ -116,7 +111,7 @@ def _serve(args: argparse.Namespace) -> int:
 
 def _plan(args: argparse.Namespace) -> int:
     from seedbed.core.plan import build_plan, plan_document
-    from seedbed.core.problems import RequestRejected
+    from seedbed.core.request.problems import RequestRejected
 
     try:
         if args.file == "-":
@@ -147,7 +142,7 @@ def _plan(args: argparse.Namespace) -> int:
 
 
 def _settings(args: argparse.Namespace) -> int:
-    from seedbed.web.settings import Settings, SettingsError, settings_table, shown
+    from seedbed.settings import Settings, SettingsError, is_set, settings_table, shown
 
     try:
         current = Settings.from_env()
@@ -158,9 +153,9 @@ def _settings(args: argparse.Namespace) -> int:
         obj: object = current
         for part in name.split("."):
             obj = getattr(obj, part)
-        origin = "environment" if var in os.environ else "default"
+        origin = "environment" if is_set(var) else "default"
         print(f"{var}={shown(obj)}  ({origin}; default {default})")
-    # The registry's settings are read by the registry itself (seedbed.registry.config).
+    # The registry interprets its own variables (seedbed.registry.config).
     from seedbed.registry.config import RegistryConfigError, config_from_env
 
     try:

@@ -33,6 +33,7 @@ from seedbed.core import fans as fan_rules
 from seedbed.core.activations import describe_activation, gain_for
 from seedbed.core.meanfield import mean_field, rationale_sentence
 from seedbed.core.references import cite, short_cite
+from seedbed.core.request.overrides import WeightOverride
 from seedbed.core.scales import (
     Realised,
     Scale,
@@ -45,7 +46,6 @@ from seedbed.core.scales import (
     realise,
     symmetric_uniform_scale,
 )
-from seedbed.core.spec import WeightOverride
 from seedbed.core.tensors import TensorSlot
 
 _SQRT3 = math.sqrt(3.0)

@@ -12,13 +12,13 @@ from starlette.routing import Route
 
 from seedbed import __version__
 from seedbed.core.audit import AuditLimits
+from seedbed.settings import Settings
 from seedbed.web.errors import install_error_handlers
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
-from seedbed.web.routes import audit, diagnose, ops, plan, recipes, weights
-from seedbed.web.settings import Settings
+from seedbed.web.routes import audit, diagnose, onnx_models, ops, plan, recipes, weights
 
 DESCRIPTION = (
     "Seeded, reproducible, explained initial weights for neural networks. Describe a network's "
@@ -69,6 +69,8 @@ def create_app(
             {"name": "audit", "description": "Checks of existing weights files."},
             {"name": "recipes", "description": "Team recipes: named, immutable versions of a "
              "request, and their weights."},
+            {"name": "onnx", "description": "Weights for an ONNX model file: the request read "
+             "from its graph, its initializers filled in its own layouts."},
         ],
     )
     app.state.settings = settings
@@ -79,7 +81,7 @@ def create_app(
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
     for router in (plan.router, weights.router, diagnose.router, audit.router, recipes.router,
-                   ops.router):
+                   onnx_models.router, ops.router):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):

@@ -20,7 +20,7 @@ from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from seedbed.core.problems import RequestRejected
+from seedbed.core.request.problems import RequestRejected
 
 log = logging.getLogger("seedbed.errors")
 

@@ -20,7 +20,8 @@ from typing import Annotated, Any, Literal
 from pydantic import BaseModel, ConfigDict, Field
 from pydantic.json_schema import SkipJsonSchema
 
-from seedbed.core.spec import POLICY_NAMES, Distribution, DType, Layout
+from seedbed.core.request.policy_models import POLICY_NAMES
+from seedbed.core.request.vocabulary import Distribution, DType, Layout
 
 SHA256_PATTERN = "^[0-9a-f]{64}$"
 Sha256 = Annotated[str, Field(pattern=SHA256_PATTERN)]

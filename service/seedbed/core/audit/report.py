@@ -1,15 +1,15 @@
 """The audit of an uploaded file: per-tensor statistics, findings, and a summary.
 
-`audit_upload` refuses a file it cannot read safely (UploadRefused) before looking at any
-value, then loads one tensor at a time and analyses it: statistics (stats.py), twin units
-(twins.py), numerical rank (rank.py) and, when a request describes the network, the
-comparison with its plan (matching.py).
+`audit_stored` takes a file already read by seedbed.formats.upload_in (which refuses what it
+cannot read safely before looking at any value), loads one tensor at a time and analyses it:
+statistics (stats.py), twin units (twins.py), numerical rank (rank.py) and, when a request
+describes the network, the comparison with its plan (matching.py).
 """
 
 from __future__ import annotations
 
 import math
-from typing import IO, Any
+from typing import Any
 
 import numpy as np
 
@@ -23,9 +23,8 @@ from seedbed.core.audit.matching import (
 )
 from seedbed.core.audit.rank import numerical_rank, work_of
 from seedbed.core.audit.stats import ValueStats, value_stats
-from seedbed.core.audit.stored import FLOAT_ROUNDOFF, StoredTensor
+from seedbed.core.audit.stored import FLOAT_ROUNDOFF, StoredTensor, Upload
 from seedbed.core.audit.twins import TwinGroups, twin_units
-from seedbed.core.audit.upload import open_upload
 from seedbed.core.plan_types import Plan, TensorPlan
 
 NOTICE = (
@@ -267,16 +266,11 @@ def _output_layers(plan: Plan) -> set[str]:
             if isinstance(layer, dict) and layer.get("role") == "output"}
 
 
-def audit_upload(fp: IO[bytes], size: int, limits: AuditLimits | None = None,
+def audit_stored(upload: Upload, size: int, limits: AuditLimits | None = None,
                  plan: Plan | None = None) -> dict[str, Any]:
-    """Audit an NPZ or safetensors file of `size` bytes readable from the seekable `fp`.
-
-    Raises UploadRefused when the file cannot be read safely (before any value is read, except
-    damage found only while decompressing a member). Returns the JSON-ready report.
-    """
+    """Audit a file already read by seedbed.formats.upload_in (`size`: its bytes); returns the
+    JSON-ready report. Tensor values are read here, one tensor at a time."""
     limits = limits if limits is not None else AuditLimits()
-    bf16 = {t.tensor for t in plan.tensors if t.dtype == "bfloat16"} if plan else set()
-    upload = open_upload(fp, size, limits, bf16)
     planned = {t.tensor: t for t in plan.tensors} if plan else {}
     budget = _Budget(limits.rank_budget)
     output_layers = frozenset(_output_layers(plan)) if plan else frozenset()

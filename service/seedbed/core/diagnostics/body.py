@@ -5,7 +5,8 @@
                                                          "bound": 0.01}}, ...],
      "batch": 64}
 
-`init` is the same weight override a layer's `init` takes (seedbed.core.spec.WeightOverride),
+`init` is the same weight override a layer's `init` takes
+(seedbed.core.request.overrides.WeightOverride),
 including {"method": "constant", "value": v}; an alternative applies it to the weight tensors
 of every dense, conv, attention and embedding layer (norm scales keep their plan). The first run
 is always the request as given, labelled "recommended".
@@ -21,7 +22,8 @@ from typing import Annotated, Any
 
 from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
 
-from seedbed.core.problems import (
+from seedbed.core.request.overrides import WeightOverride
+from seedbed.core.request.problems import (
     BODY,
     Allowed,
     Problem,
@@ -30,7 +32,6 @@ from seedbed.core.problems import (
     field_error,
     problems_from_validation_error,
 )
-from seedbed.core.spec import WeightOverride
 
 RECOMMENDED = "recommended"
 DEFAULT_BATCH = 64
@@ -84,7 +85,7 @@ class DiagnoseBody(_Strict):
 
 
 def parse_body(data: object) -> DiagnoseBody:
-    """Validate the outer body (the inner request is parsed by seedbed.core.spec)."""
+    """Validate the outer body (the inner request is parsed by seedbed.core.request.parse)."""
     if not isinstance(data, dict):
         raise RequestRejected([Problem(
             BODY, "invalid_type",

@@ -22,7 +22,7 @@ from dataclasses import dataclass, fields
 
 from seedbed.core.diagnostics.network import Network, Step
 from seedbed.core.plan_types import Plan
-from seedbed.core.problems import Problem
+from seedbed.core.request.problems import Problem
 
 # Elementwise cost of an activation (forward and derivative) in multiply-add equivalents.
 ACTIVATION_COST: dict[str, int] = {"linear": 4, "relu": 60, "gelu": 3000}

@@ -9,9 +9,9 @@ from fastapi.responses import JSONResponse
 
 from seedbed.core.catalog import catalog
 from seedbed.core.plan import plan_document
+from seedbed.web.dependencies import load_plan
 from seedbed.web.etag import body_etag, none_match, strong_etag
 from seedbed.web.openapi_doc import error_responses, request_body
-from seedbed.web.plan_loader import load_plan
 from seedbed.web.response_models import CatalogDocument, PlanDocument
 
 router = APIRouter(tags=["weights"])

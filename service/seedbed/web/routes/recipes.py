@@ -25,17 +25,15 @@ from __future__ import annotations
 
 import json
 import threading
-from collections.abc import Callable, Iterator
+from collections.abc import Callable
 from typing import Any, Literal, TypeVar
 
 from fastapi import APIRouter, FastAPI, Path, Query, Request, Response
-from fastapi.responses import StreamingResponse
 from sqlalchemy.exc import SQLAlchemyError
 from starlette.concurrency import run_in_threadpool
 
 from seedbed.core.plan import build_plan
 from seedbed.core.plan_types import Plan
-from seedbed.formats import encode_body
 from seedbed.registry import LazyRegistry, Registry, RegistryConfigError
 from seedbed.registry.keys import AuthenticationError, authenticate, bearer_token
 from seedbed.registry.migrations import SchemaTooNewError
@@ -58,13 +56,10 @@ from seedbed.registry.store import (
     publish_unless_same,
 )
 from seedbed.web.body import read_json_body
-from seedbed.web.documents import response_document
-from seedbed.web.encoding import json_size_of, outgoing_tensors
+from seedbed.web.dependencies import settings_of
 from seedbed.web.errors import ApiError
-from seedbed.web.etag import body_etag, none_match, strong_etag
-from seedbed.web.metrics import ServiceMetrics
+from seedbed.web.etag import body_etag, none_match
 from seedbed.web.openapi_doc import REQUEST_SCHEMA_NAME, error_responses
-from seedbed.web.plan_loader import settings_of
 from seedbed.web.response_models import (
     PublishedRecipe,
     RecipePage,
@@ -72,6 +67,7 @@ from seedbed.web.response_models import (
     StoredRecipe,
     WeightsDocument,
 )
+from seedbed.web.weights_response import WeightsOptions, weights_response
 
 router = APIRouter(tags=["recipes"])
 
@@ -414,18 +410,19 @@ def _version_of(text: str) -> int | None:
 
 
 def _resolved_headers(registry: Registry, record: RecipeVersion, asked: int | None,
-                      etag: str, link: str) -> dict[str, str]:
+                      etag: str | None, link: str) -> dict[str, str]:
     """Caching headers for a version named by number (immutable, strong tag) or by `latest`
-    (short, weak tag), and where the concrete version lives."""
+    (short, weak tag), and where the concrete version lives. Without `etag` the caller sets
+    the ETag (the weights response computes its own)."""
     s = record.summary
     headers = {"X-Seedbed-Recipe": f"{s.name}/{s.version}"}
     if asked is None:
-        headers["ETag"] = etag if etag.startswith("W/") else "W/" + etag
         headers["Cache-Control"] = _cache_control(registry, LATEST_MAX_AGE)
         headers["Content-Location"] = link
     else:
-        headers["ETag"] = etag
         headers["Cache-Control"] = _cache_control(registry, IMMUTABLE)
+    if etag is not None:
+        headers["ETag"] = etag if asked is not None or etag.startswith("W/") else "W/" + etag
     return headers
 
 
@@ -526,53 +523,15 @@ async def recipe_weights(
     record = await _stored(request, registry, name, asked)
     concrete = record.summary.version
     plan = await run_in_threadpool(_replanned, record, settings.limits)
-    etag = strong_etag(
-        "weights", request=plan.canonical_request, algorithm=plan.algorithm, format=format,
-        tensor=None, rows=None,
-    )
-    exact = all(t.reproducible == "exact" for t in plan.tensors)
-    if not exact:
-        # Orthogonal values may differ in the last bits between BLAS builds (as for
-        # POST /v1/weights): only a weak validator is honest, and the stored fingerprints are
-        # this platform's, not a promise for every replica.
-        etag = "W/" + etag
     link = f"{_links(name, concrete)['weights']}?format={format}"
-    headers = {
-        **_resolved_headers(registry, record, asked, etag, link),
-        "X-Seedbed-Algorithm": plan.algorithm,
-    }
-    if none_match(request.headers.get("if-none-match"), etag):
-        return Response(status_code=304, headers=headers)
-    if format == "json":
-        size = await run_in_threadpool(json_size_of, plan, None)
-        if size > settings.max_json_response_bytes:
-            raise ApiError.one(
-                413, "format", "json_too_large",
-                f"this JSON response would be {size} bytes, above the limit of "
-                f"{settings.max_json_response_bytes} (SEEDBED_MAX_JSON_RESPONSE_BYTES); ask for "
-                "format=npz or format=safetensors",
-            )
-    tensors = outgoing_tensors(plan, None, settings.chunk_bytes, settings.generation_threads)
-    # With digests given the formats verify every tensor while streaming and skip their own
-    # hashing pass; the bytes are the same either way.
-    encoded = await run_in_threadpool(
-        lambda: encode_body(format, response_document(plan, None), tensors,
-                            digests=record.fingerprints if exact else None)
-    )
-    headers["Content-Length"] = str(encoded.content_length)
-    headers["Content-Disposition"] = f'attachment; filename="{name}-v{concrete}.{format}"'
-    if request.method == "HEAD":
-        return Response(status_code=200, media_type=encoded.media_type, headers=headers)
-    metrics: ServiceMetrics = request.app.state.metrics
-    return StreamingResponse(
-        _counted(encoded.body, metrics, format, plan.total_count),
-        media_type=encoded.media_type,
+    headers = _resolved_headers(registry, record, asked, None, link)
+    options = WeightsOptions(
+        format,
+        digests=record.fingerprints,
         headers=headers,
+        filename=f"{name}-v{concrete}",
+        weak=asked is None,
     )
+    return await weights_response(request, plan, options)
 
 
-def _counted(body: Iterator[bytes], metrics: ServiceMetrics, fmt: str, values: int
-             ) -> Iterator[bytes]:
-    # Sync generator: StreamingResponse steps it in the threadpool, off the event loop.
-    yield from body
-    metrics.values_served.labels(format=fmt).inc(values)

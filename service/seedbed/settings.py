@@ -1,5 +1,8 @@
-"""Service settings, read once from `SEEDBED_*` environment variables.
+"""Service settings: the one module of the service that reads the environment.
 
+Every `SEEDBED_*` variable is read here and nowhere else (a test walks the source and fails on
+any other module touching os.environ): the web layer's `Settings` (including the audit and
+diagnose budgets) and the raw variables the registry interprets (`registry_environment`).
 Every knob has an embedded default so `seedbed serve` works with no configuration. A bad value
 stops start-up with a message naming the variable and what it accepts, rather than surfacing
 later as a confusing failure under load.
@@ -14,7 +17,7 @@ from dataclasses import dataclass, field
 from typing import Any, TypeVar
 
 from seedbed.core.diagnostics import DiagnosticLimits
-from seedbed.core.limits import Limits
+from seedbed.core.request.limits import Limits
 
 PREFIX = "SEEDBED_"
 DIAGNOSE_PREFIX = PREFIX + "DIAGNOSE_"
@@ -90,13 +93,16 @@ class Settings:
     chunk_bytes: int = 4 << 20
     # Largest weights file POST /v1/audit accepts (read in a spool, never all in memory).
     max_audit_bytes: int = 256 << 20
+    # Largest ONNX model the /v1/onnx/* routes read; it is parsed whole, so this bounds memory.
+    # Models whose weights live in external data files are small: only shapes are needed.
+    max_onnx_bytes: int = 128 << 20
     limits: Limits = field(default_factory=Limits)
     # POST /v1/diagnose budgets, read as SEEDBED_DIAGNOSE_<FIELD> (e.g. SEEDBED_DIAGNOSE_MAX_BATCH).
     diagnostics: DiagnosticLimits = field(default_factory=DiagnosticLimits)
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None) -> Settings:
-        env = os.environ if environ is None else environ
+        env = _environment(environ)
         values: dict[str, Any] = {}
         for name, parse in _PARSERS.items():
             var = PREFIX + name.upper()
@@ -119,6 +125,44 @@ class Settings:
         return cls(**values)
 
 
+def _environment(environ: Mapping[str, str] | None) -> Mapping[str, str]:
+    """The process environment, unless the caller (a test, a tool) passes its own mapping."""
+    return os.environ if environ is None else environ
+
+
+# What the registry is told (seedbed.registry.config interprets them): the database URL, a file
+# holding it, the SQLite directory, read protection and the replicated-deployment switch; and
+# the two standard variables that locate the default data directory.
+REGISTRY_VARIABLES: tuple[str, ...] = (
+    PREFIX + "DATABASE_URL",
+    PREFIX + "DATABASE_URL_FILE",
+    PREFIX + "DATA_DIR",
+    PREFIX + "READ_REQUIRES_KEY",
+    PREFIX + "SHARED_DATABASE",
+    "XDG_DATA_HOME",
+    "HOME",
+)
+
+
+def registry_environment(environ: Mapping[str, str] | None = None) -> dict[str, str]:
+    """The registry's variables that are set, as a plain mapping."""
+    env = _environment(environ)
+    return {var: env[var] for var in REGISTRY_VARIABLES if var in env}
+
+
+def is_set(var: str, environ: Mapping[str, str] | None = None) -> bool:
+    """Whether the environment sets `var` (the `settings` command says where a value came
+    from)."""
+    return var in _environment(environ)
+
+
+def pass_to_workers(values: Mapping[str, object]) -> None:
+    """Put command-line overrides into the environment as SEEDBED_<NAME> variables: worker
+    processes build their own app from the environment, so that is how the values reach them."""
+    for name, value in values.items():
+        os.environ[PREFIX + name.upper()] = str(value)
+
+
 _PARSERS: dict[str, Callable[[str, str], Any]] = {
     "host": _host,
     "port": _int_in(1, 65535),
@@ -130,6 +174,8 @@ _PARSERS: dict[str, Callable[[str, str], Any]] = {
     "generation_threads": _int_in(1, 256),
     "chunk_bytes": _int_in(4096, _GIB),
     "max_audit_bytes": _int_in(1024, 64 * _GIB),
+    # protobuf cannot parse a message of 2 GiB or more
+    "max_onnx_bytes": _int_in(1024, 2 * _GIB - 1),
 }
 
 

@@ -20,9 +20,6 @@ Codes (our own vocabulary; the web layer passes them through unchanged):
 `RequestRejected.too_large` is true when every problem is `too_large`: the request is
 well-formed but too big to serve (HTTP 413). A request that is also malformed gets 422, so
 the caller sees the format errors first.
-
-`parse_request` lives in `seedbed.core.spec` next to the models; it is re-exported here
-because callers reach for it as "the function that turns a body into a request or problems".
 """
 
 from __future__ import annotations
@@ -31,14 +28,10 @@ import types
 import typing
 from collections.abc import Sequence
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any, Literal, Union, get_args, get_origin
+from typing import Any, Literal, Union, get_args, get_origin
 
 from pydantic import BaseModel, ValidationError
 from pydantic_core import PydanticCustomError
-
-if TYPE_CHECKING:
-    from seedbed.core.limits import Limits
-    from seedbed.core.spec import NetworkRequest
 
 ProblemCode = Literal[
     "invalid_type",
@@ -379,10 +372,3 @@ def problems_from_validation_error(root: type[BaseModel], err: ValidationError) 
             seen.add(problem)
             out.append(problem)
     return out
-
-
-def parse_request(data: object, limits: Limits | None = None) -> NetworkRequest:
-    """Validate a parsed JSON body; see `seedbed.core.spec.parse_request`."""
-    from seedbed.core.spec import parse_request as _parse  # spec imports this module
-
-    return _parse(data, limits)

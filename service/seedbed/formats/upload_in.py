@@ -3,13 +3,15 @@
 from __future__ import annotations
 
 from collections.abc import Collection
-from typing import IO
+from typing import IO, Any
 
 from seedbed.core.audit.limits import AuditLimits
-from seedbed.core.audit.npz_reader import read_npz
 from seedbed.core.audit.refusals import UploadRefused
-from seedbed.core.audit.safetensors_reader import looks_like_safetensors, read_safetensors
+from seedbed.core.audit.report import audit_stored
 from seedbed.core.audit.stored import Upload
+from seedbed.core.plan_types import Plan
+from seedbed.formats.npz_in import read_npz
+from seedbed.formats.safetensors_in import looks_like_safetensors, read_safetensors
 
 _ZIP_STARTS = (b"PK\x03\x04", b"PK\x05\x06")  # a first member, or an empty archive
 _NPY_START = b"\x93NUMPY"
@@ -40,3 +42,16 @@ def open_upload(fp: IO[bytes], size: int, limits: AuditLimits,
                         f"the file is neither an NPZ (a zip archive, starting with PK) nor "
                         f"safetensors (an 8-byte header length, then '{{'); it starts with "
                         f"bytes {shown}")
+
+
+def audit_upload(fp: IO[bytes], size: int, limits: AuditLimits | None = None,
+                 plan: Plan | None = None) -> dict[str, Any]:
+    """Read an NPZ or safetensors file of `size` bytes from the seekable `fp` and audit it
+    (seedbed.core.audit.report.audit_stored).
+
+    Raises UploadRefused when the file cannot be read safely (before any value is read, except
+    damage found only while decompressing a member). Returns the JSON-ready report.
+    """
+    limits = limits if limits is not None else AuditLimits()
+    bf16 = {t.tensor for t in plan.tensors if t.dtype == "bfloat16"} if plan else set()
+    return audit_stored(open_upload(fp, size, limits, bf16), size, limits, plan)
