@@ -67,6 +67,7 @@ from seedbed.web.response_models import (
     StoredRecipe,
     WeightsDocument,
 )
+from seedbed.web.routes.weights import DEFAULT_FORMAT
 from seedbed.web.weights_response import WeightsOptions, weights_response
 
 router = APIRouter(tags=["recipes"])
@@ -514,7 +515,8 @@ async def recipe_weights(
     name: str = _NAME,
     version: str = _VERSION,
     format: WeightsFormat = Query(  # noqa: B008 - FastAPI's parameter declaration style
-        "json", description="Container: json, npz or safetensors (as for POST /v1/weights)."
+        DEFAULT_FORMAT,
+        description="Container: npz (default), safetensors or json (as for POST /v1/weights).",
     ),
 ) -> Response:
     settings = settings_of(request)
