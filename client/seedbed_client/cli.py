@@ -156,12 +156,14 @@ def _fetch(args: argparse.Namespace) -> int:
                 tensor=args.tensor,
                 rows=args.rows,
                 progress=bar,
+                origin=args.origin,
             )
         finally:
             if bar is not None:
                 bar.done()
     count = len(saved.manifest.get("tensors", []))
     origin = {
+        "local": "generated on this machine from the service's plan",
         "service": "downloaded",
         "revalidated": "cached, confirmed by the service",
         "cache": "cached; the service was not reachable",
@@ -380,6 +382,11 @@ def register(subparsers: Any) -> None:
     fetch.add_argument("--tensor", metavar="NAME", help="only this tensor")
     fetch.add_argument("--rows", metavar="START:STOP", help="only these rows of --tensor")
     fetch.add_argument("--no-cache", action="store_true", help="neither read nor fill the cache")
+    fetch.add_argument(
+        "--origin", choices=("service", "local"), default="service",
+        help="service (default): download the weights; local: fetch only the plan and make "
+        "every tensor here (npz or safetensors; the same tensors and digests)",
+    )
     fetch.add_argument(
         "--cache-dir",
         metavar="DIR",

@@ -52,6 +52,7 @@ from seedbed_client.local import (
     make_tensors,
     platform_names,
 )
+from seedbed_client.local_files import write_local
 from seedbed_client.records import (
     AuditReport,
     DiagnosisReport,
@@ -576,14 +577,30 @@ class Client:
         tensor: str | None = None,
         rows: object = None,
         progress: ProgressHook | None = None,
+        origin: str = "service",
+        platform_tensors: str = "fetch",
     ) -> SavedWeights:
         """Write the verified response to `path` (format from `format` or the file suffix).
 
         The file appears only once complete and verified (written beside it, then renamed).
+        `origin="local"` writes an npz or safetensors file of tensors made here from the plan
+        (one in memory at a time): the same tensors and digests, its own container.
         """
         target = Path(path)
         fmt = format_for_path(target, format)
         spool = self._setup.spool_dir_for(target)
+        if check_origin(origin) == "local":
+            if tensor is not None:
+                raise SpecInvalid([Problem("tensor", "not_allowed",
+                                           "save with origin='local' writes every tensor; use "
+                                           "tensor(..., origin='local') for one")])
+            local_request = self._request_of(request)
+            plan = self.plan(local_request)
+            manifest, size = write_local(
+                plan, target, fmt, check_platform(platform_tensors),
+                lambda name: self.tensor(local_request, name),
+            )
+            return SavedWeights(target, fmt, size, manifest, "local")
         if isinstance(request, str) and tensor is None:
             got = drive_sync(
                 self._setup.recipe_weights_flow(parse_ref(request), fmt, progress, spool),
@@ -760,10 +777,26 @@ class AsyncClient:
         tensor: str | None = None,
         rows: object = None,
         progress: ProgressHook | None = None,
+        origin: str = "service",
+        platform_tensors: str = "fetch",
     ) -> SavedWeights:
         target = Path(path)
         fmt = format_for_path(target, format)
         spool = self._setup.spool_dir_for(target)
+        if check_origin(origin) == "local":
+            if tensor is not None:
+                raise SpecInvalid([Problem("tensor", "not_allowed",
+                                           "save with origin='local' writes every tensor; use "
+                                           "tensor(..., origin='local') for one")])
+            platform = check_platform(platform_tensors)
+            local_request = await self._request_of(request)
+            plan = await self.plan(local_request)
+            fetched = {name: await self.tensor(local_request, name)
+                       for name in platform_names(plan, None, platform)}
+            manifest, size = await asyncio.to_thread(
+                write_local, plan, target, fmt, platform, lambda name: fetched[name]
+            )
+            return SavedWeights(target, fmt, size, manifest, "local")
         if isinstance(request, str) and tensor is None:
             flow = self._setup.recipe_weights_flow(parse_ref(request), fmt, progress, spool)
             got = await drive_async(flow, self._http)

@@ -172,3 +172,33 @@ def test_diagnose_gate_and_chart(server: RunningServer, tmp_path: Path) -> None:
     gated = run_cli("diagnose", str(tiny), "--batch", "64", *url)
     assert gated.returncode == 5, gated.stdout + gated.stderr
     assert "vanishing" in gated.stdout
+
+
+@pytest.mark.parametrize("fmt", ["npz", "safetensors"])
+def test_fetch_origin_local_writes_the_services_tensors(
+    server: RunningServer, tmp_path: Path, fmt: str
+) -> None:
+    # Read back by the containers' own libraries (numpy, safetensors), compared with a download.
+    from safetensors.numpy import load_file
+
+    url = ["--server", server.base_url]
+    request = _write(tmp_path / "crane.json", harbor_crane_monitor())
+    local, served = tmp_path / f"local.{fmt}", tmp_path / f"served.{fmt}"
+    made = run_cli("fetch", str(request), "-o", str(local), "--origin", "local", "--no-cache", *url)
+    assert made.returncode == 0, made.stdout + made.stderr
+    assert "generated on this machine" in made.stdout
+    got = run_cli("fetch", str(request), "-o", str(served), "--no-cache", *url)
+    assert got.returncode == 0, got.stderr
+    if fmt == "npz":
+        with np.load(local) as a, np.load(served) as b:
+            tensors = [n for n in b.files if n != "seedbed-manifest.json"]
+            assert sorted(a.files) == sorted(b.files)
+            for n in tensors:
+                assert a[n].tobytes() == b[n].tobytes(), n
+    else:
+        a, b = load_file(str(local)), load_file(str(served))
+        assert sorted(a) == sorted(b)
+        for n in b:
+            assert a[n].tobytes() == b[n].tobytes(), n
+    checked = run_cli("verify", str(local), "--against", str(request), *url)
+    assert checked.returncode == 0, checked.stdout + checked.stderr
