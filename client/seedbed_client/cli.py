@@ -37,7 +37,7 @@ from typing import Any, TextIO
 from seedbed_client import cli_checks as checks
 from seedbed_client._version import __version__
 from seedbed_client.client import DEFAULT_URL, ENV_URL, Client, Timeouts
-from seedbed_client.containers import IntegrityError, inspect_body, sniff_format
+from seedbed_client.containers import IntegrityError, inspect_body, page_releaser, sniff_format
 from seedbed_client.errors import (
     SeedbedError,
     ServiceError,
@@ -191,7 +191,7 @@ def verify_file(path: Path, fmt: WeightFormat | None, stream: TextIO) -> int:
     except OSError as exc:
         raise UsageProblem(f"cannot read {str(path)!r}: {exc}") from None
     chosen = fmt or sniff_format(buffer)
-    inspection = inspect_body(buffer, chosen)
+    inspection = inspect_body(buffer, chosen, page_releaser(buffer))
     for t in inspection.tensors:
         mark = "ok " if t.ok else "BAD"
         detail = "" if t.ok else f"  ({t.problem})"
@@ -218,7 +218,8 @@ def _verify(args: argparse.Namespace) -> int:
     source, what = checks.against_source(args.against, _read_request)
     with open(args.file, "rb") as fh:
         buffer = mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ)
-        inspection = inspect_body(buffer, args.format or sniff_format(buffer))
+        chosen = args.format or sniff_format(buffer)
+        inspection = inspect_body(buffer, chosen, page_releaser(buffer))
         with _client(args, cache=True) as client:
             expected = client.expected_digests(source, origin=args.origin)
         return checks.compare_with(inspection, expected, what, sys.stdout)

@@ -279,6 +279,7 @@ def _open_cached(
         else:
             spooled = copy_to_spool(entry.blob_path, spool_dir)
             buffer = map_file(spooled.path)
+            release = page_releaser(buffer)
             digest = spooled.digest()
     except OSError as exc:
         if handle is not None:
