@@ -2,7 +2,7 @@
 
 Reference for the out_in shapes: PyTorch's CPU parameters (common practice: weights stored as
 (out, in/groups, *kernel), recurrent gates stacked along dim 0), used as an oracle through
-`require_oracle("torch")`. Reference for in_out: DESIGN.md's stated arrangement (dense
+`require_oracle("torch")`. Reference for in_out: the arrangement docs/architecture.md states (dense
 (n_in, n_out), conv (*kernel, in/groups, out)), checked element by element with numpy.
 """
 
@@ -188,7 +188,7 @@ def test_in_out_dense_recurrent_and_attention_weights_are_plain_transposes() -> 
             else:
                 assert b.served_shape == a.served_shape and b.served_axes == (0,)
     named = shapes(one_layer(DENSE, "in_out"))
-    assert named == {"fc.weight": (7, 5), "fc.bias": (5,)}  # (n_in, n_out) per DESIGN.md
+    assert named == {"fc.weight": (7, 5), "fc.bias": (5,)}  # (n_in, n_out) per docs/architecture.md
     rec = shapes(one_layer(recurrent("gru"), "in_out"))
     assert rec == {"rnn.input_weight": (5, 21), "rnn.recurrent_weight": (7, 21), "rnn.bias": (21,)}
 
@@ -200,7 +200,7 @@ def test_in_out_conv_is_kernel_then_in_then_out(layer: dict[str, Any]) -> None:
     kernel = tuple(layer["kernel"])
     c_in_g = layer["channels_in"] // layer["groups"]
     assert a.served_shape == a.logical_shape == b.logical_shape
-    assert b.served_shape == (*kernel, c_in_g, layer["channels_out"])  # DESIGN.md
+    assert b.served_shape == (*kernel, c_in_g, layer["channels_out"])  # docs/architecture.md
     logical, served = _values(b)
     # Independent construction: move the output axis last and the input axis before it.
     expected = np.moveaxis(logical, (0, 1), (-1, -2))

@@ -36,7 +36,16 @@ from typing import Any, TextIO
 
 from seedbed_client import cli_checks as checks
 from seedbed_client._version import __version__
-from seedbed_client.client import DEFAULT_URL, ENV_URL, Client, Timeouts
+from seedbed_client.cli_shared import (
+    EXIT_MISMATCH,
+    EXIT_OK,
+    EXIT_SERVICE,
+    EXIT_UNREACHABLE,
+    EXIT_USAGE,
+    UsageProblem,
+)
+from seedbed_client.cli_shared import client_from_args as _client
+from seedbed_client.client import DEFAULT_URL, ENV_URL
 from seedbed_client.containers import IntegrityError, inspect_body, page_releaser, sniff_format
 from seedbed_client.errors import (
     SeedbedError,
@@ -45,21 +54,10 @@ from seedbed_client.errors import (
     SpecInvalid,
 )
 from seedbed_client.progress import ProgressBar
-from seedbed_client.retry import RetryPolicy
 from seedbed_client.wire import FORMATS, WeightFormat
-
-EXIT_OK = 0
-EXIT_MISMATCH = 1
-EXIT_USAGE = 2
-EXIT_SERVICE = 3
-EXIT_UNREACHABLE = 4
 
 Handler = Callable[[argparse.Namespace], int]
 _HANDLER = "seedbed_client_handler"
-
-
-class UsageProblem(Exception):  # noqa: N818 - internal, mirrors SpecInvalid
-    """Bad input found by the command line itself (exit code 2)."""
 
 
 def exit_code_for(exc: BaseException) -> int:
@@ -123,17 +121,6 @@ def _add_service_options(parser: argparse.ArgumentParser) -> None:
         default=5,
         metavar="N",
         help="tries per request on connection errors, cut bodies, 5xx and 429 (default 5)",
-    )
-
-
-def _client(args: argparse.Namespace, *, cache: bool) -> Client:
-    timeout = Timeouts() if args.timeout is None else Timeouts(args.timeout, args.timeout)
-    return Client(
-        args.server,
-        timeout=timeout,
-        retry=RetryPolicy(attempts=args.attempts),
-        cache=cache,
-        cache_dir=getattr(args, "cache_dir", None),
     )
 
 
@@ -493,7 +480,13 @@ def register(subparsers: Any) -> None:
 
     from seedbed_client.torch_cli import register_torch_command
 
-    register_torch_command(subparsers, _add_service_options, _HANDLER)
+    register_torch_command(
+        subparsers,
+        add_service_options=_add_service_options,
+        handler_key=_HANDLER,
+        make_client=lambda args: _client(args, cache=True),
+        usage_error=UsageProblem,
+    )
 
 
 def run(args: argparse.Namespace) -> int:

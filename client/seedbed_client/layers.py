@@ -503,7 +503,7 @@ class ResidualConvBlockSpec(LayerSpec):
 
 def _block_field_problems(block: LayerSpec, where: str) -> Iterator[Problem]:
     # Shorthands expand into layers that carry their own roles and branches.
-    for label in ("role", "branch", "init", "bias_value", "class_prior"):
+    for label in ("role", "branch", "block", "init", "bias_value", "class_prior"):
         if getattr(block, label) is not None:
             yield Problem(
                 f"{where}.{label}",

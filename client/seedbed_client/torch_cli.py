@@ -24,9 +24,15 @@ from typing import Any
 
 def register_torch_command(
     subparsers: Any,
+    *,
     add_service_options: Callable[[argparse.ArgumentParser], None],
     handler_key: str,
+    make_client: Callable[[argparse.Namespace], Any],
+    usage_error: type[Exception],
 ) -> None:
+    """Add `torch-weights` to an argparse subparsers object. The command line passes in its
+    own pieces (service options, client factory, usage error) so this module needs nothing
+    from it."""
     cmd = subparsers.add_parser(
         "torch-weights",
         help="seed a PyTorch model from MODULE:FACTORY and write its state-named weights file",
@@ -51,50 +57,50 @@ def register_torch_command(
         help="plan layers whose activation cannot be inferred as linear instead of failing",
     )
     add_service_options(cmd)
-    cmd.set_defaults(**{handler_key: _run})
+    cmd.set_defaults(**{handler_key: lambda args: _run(args, make_client, usage_error)})
 
 
 def _seed(text: str) -> int | str:
     return int(text) if text.isdigit() else text
 
 
-def _load_factory(target: str) -> Any:
-    from seedbed_client.cli import UsageProblem
-
+def _load_factory(target: str, usage_error: type[Exception]) -> Any:
     module_name, _, attr = target.partition(":")
     if not module_name or not attr:
-        raise UsageProblem(f"target {target!r}: allowed: MODULE:FACTORY, e.g. pkg.models:build")
+        raise usage_error(f"target {target!r}: allowed: MODULE:FACTORY, e.g. pkg.models:build")
     try:
         factory = getattr(importlib.import_module(module_name), attr)
     except (ImportError, AttributeError) as exc:
-        raise UsageProblem(f"target {target!r}: {exc}") from exc
+        raise usage_error(f"target {target!r}: {exc}") from exc
     return factory()
 
 
-def _run(args: argparse.Namespace) -> int:
-    from seedbed_client.cli import EXIT_OK, UsageProblem, _client
-
+def _run(
+    args: argparse.Namespace,
+    make_client: Callable[[argparse.Namespace], Any],
+    usage_error: type[Exception],
+) -> int:
     try:
         from torch import nn
 
         from seedbed_client import torch_adapter as ta
     except ImportError as exc:
-        raise UsageProblem(f"torch-weights needs torch installed ({exc})") from exc
-    model = _load_factory(args.target)
+        raise usage_error(f"torch-weights needs torch installed ({exc})") from exc
+    model = _load_factory(args.target, usage_error)
     if not isinstance(model, nn.Module):
-        raise UsageProblem(f"{args.target} returned {type(model).__name__}, not a torch nn.Module")
+        raise usage_error(f"{args.target} returned {type(model).__name__}, not a torch nn.Module")
     activations: dict[str, str] = {}
     for item in args.activation:
         layer, _, name = item.partition("=")
         if not layer or not name:
-            raise UsageProblem(f"--activation {item!r}: allowed: LAYER=NAME")
+            raise usage_error(f"--activation {item!r}: allowed: LAYER=NAME")
         activations[layer] = name
     policy = None
     if args.policy:
         try:
             policy = json.loads(args.policy)
         except json.JSONDecodeError as exc:
-            raise UsageProblem(f"--policy is not JSON: {exc}") from exc
+            raise usage_error(f"--policy is not JSON: {exc}") from exc
     description = ta.describe_module(
         model,
         seed=_seed(args.seed),
@@ -103,9 +109,9 @@ def _run(args: argparse.Namespace) -> int:
         allow_defaults=args.allow_defaults,
     )
     print(description.table())
-    with _client(args, cache=True) as client:
+    with make_client(args) as client:
         arrays = ta.fetch_for(client, description, "safetensors")
     ta.apply_weights(model, description, arrays)
     keys = ta.write_state_file(model, description, arrays, args.output)
     print(f"wrote {len(keys)} state entries to {args.output}", file=sys.stderr)
-    return EXIT_OK
+    return 0

@@ -167,6 +167,11 @@ def _settings(args: argparse.Namespace) -> int:
           "SEEDBED_DATABASE_URL, default an SQLite file under SEEDBED_DATA_DIR)")
     print(f"registry reads need a key: {'on' if registry.read_requires_key else 'off'} "
           "(SEEDBED_READ_REQUIRES_KEY)")
+    from seedbed_client.generator import kernel
+
+    state = kernel.status() if current.generator_kernel else kernel.set_enabled(False)
+    print(f"generator: {state.describe()}; {current.threads_per_request()} thread(s) per "
+          "request (SEEDBED_GENERATOR_KERNEL, SEEDBED_GENERATION_THREADS)")
     return 0
 
 

@@ -87,8 +87,15 @@ class Settings:
     # base64 inside JSON costs 4/3 of the raw bytes and the client must hold it all to parse it;
     # above this size we point callers to npz or safetensors.
     max_json_response_bytes: int = 64 << 20
-    # Threads the core may use to fill one tensor (per request).
-    generation_threads: int = 1
+    # Threads the core may use to fill one tensor (per request); 0: the machine's cores divided
+    # by the workers, so that workers x threads never exceeds the cores.
+    generation_threads: int = 0
+    # Validated plans kept for repeated requests (least recently used out; 0 turns it off),
+    # within a budget of about 16 bytes per byte of canonical request JSON.
+    plan_cache_entries: int = 256
+    plan_cache_bytes: int = 64 << 20
+    # The compiled generator kernel (same bytes as the numpy reference); off forces numpy.
+    generator_kernel: bool = True
     # Size of the pieces a response is generated and sent in: the memory a stream holds at once.
     chunk_bytes: int = 4 << 20
     # Largest weights file POST /v1/audit accepts (read in a spool, never all in memory).
@@ -99,6 +106,12 @@ class Settings:
     limits: Limits = field(default_factory=Limits)
     # POST /v1/diagnose budgets, read as SEEDBED_DIAGNOSE_<FIELD> (e.g. SEEDBED_DIAGNOSE_MAX_BATCH).
     diagnostics: DiagnosticLimits = field(default_factory=DiagnosticLimits)
+
+    def threads_per_request(self) -> int:
+        """generation_threads, with 0 resolved to the cores left per worker (at least 1)."""
+        if self.generation_threads:
+            return self.generation_threads
+        return max(1, (os.cpu_count() or 1) // self.workers)
 
     @classmethod
     def from_env(cls, environ: Mapping[str, str] | None = None) -> Settings:
@@ -171,7 +184,10 @@ _PARSERS: dict[str, Callable[[str, str], Any]] = {
     "access_log": _flag,
     "max_body_bytes": _int_in(1024, _GIB),
     "max_json_response_bytes": _int_in(1024, 16 * _GIB),
-    "generation_threads": _int_in(1, 256),
+    "generation_threads": _int_in(0, 256),
+    "generator_kernel": _flag,
+    "plan_cache_entries": _int_in(0, 1 << 20),
+    "plan_cache_bytes": _int_in(0, 16 * _GIB),
     "chunk_bytes": _int_in(4096, _GIB),
     "max_audit_bytes": _int_in(1024, 64 * _GIB),
     # protobuf cannot parse a message of 2 GiB or more

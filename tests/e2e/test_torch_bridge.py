@@ -39,6 +39,7 @@ from seedbed_client.torch_adapter import (  # noqa: E402
     seed_module,
     write_state_file,
 )
+from seedbed_client.torch_adapter.export import parameter_values  # noqa: E402
 from support import torch_models as tm  # noqa: E402
 
 # Both sides estimate a std from one batch of 64 samples at widths 16-32: their figures scatter
@@ -70,11 +71,9 @@ CASES: dict[str, tuple[Callable[[], Any], Callable[[], dict[str, Any]], str]] = 
 }
 
 
-def _options(name: str, request: dict[str, Any]) -> dict[str, Any]:
-    out: dict[str, Any] = {}
-    if "depth_policy" in request:
-        out["depth_policy"] = request["depth_policy"]
-    return out
+def _options(request: dict[str, Any]) -> dict[str, Any]:
+    """What the bridge needs besides the module: the request's policy, if any."""
+    return {"depth_policy": request["depth_policy"]} if "depth_policy" in request else {}
 
 
 def _served(http: httpx.Client, request: dict[str, Any]) -> dict[str, np.ndarray]:
@@ -92,7 +91,7 @@ def test_bridge_matches_the_hand_written_request(
     model = factory()
     want = hand_written()
     with Client(base_url, cache_dir=tmp_path / "cache") as sb:
-        report = seed_module(model, sb, seed=want["seed"], **_options(case, want))
+        report = seed_module(model, sb, seed=want["seed"], **_options(want))
     # (a) layer for layer, then the service's own reading of both
     assert report.request["layers"] == want["layers"]
     assert report.request == want
@@ -102,8 +101,6 @@ def test_bridge_matches_the_hand_written_request(
     # (b) every planned parameter holds the service's bytes for the hand-written request
     served = _served(client, want)
     params = dict(model.named_parameters())
-    from seedbed_client.torch_adapter.export import parameter_values
-
     for item in report.copies:
         got = params[item.parameter].detach().numpy()
         if item.zero:
@@ -188,7 +185,7 @@ def test_block_stream_stays_in_the_diagnosed_band(
     model = factory()
     want = hand_written()
     with Client(base_url, cache_dir=tmp_path / "cache") as sb:
-        seed_module(model, sb, seed=want["seed"], **_options(case, want))
+        seed_module(model, sb, seed=want["seed"], **_options(want))
     diag = _diagnosed(client, want)
     if case == "decoder":
         blocks, names = list(model.blocks), [f"blocks.{i}.proj" for i in range(12)]

@@ -19,6 +19,8 @@ from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
+
 LSTM_CHILDREN = ("ii", "if", "ig", "io", "hi", "hf", "hg", "ho")
 GATE_OF_CHILD = {"i": "input", "f": "forget", "g": "cell", "o": "output"}
 
@@ -57,6 +59,8 @@ PASS_THROUGH = frozenset(
     }
 )
 MAP_PRIMITIVES = ("dot_general", "conv_general_dilated")
+# Elementwise steps that are affine when their other operand is a parameter or a constant.
+AFFINE = frozenset({"add", "sub", "mul", "div"})
 
 
 @dataclass
@@ -265,6 +269,10 @@ class JaxprFacts:
             stack.extend(self.eqns[self.producer[v]].invars)
         return True
 
+    def _other_is_constant(self, eqn: Any, var: Any) -> bool:
+        others = [v for v in eqn.invars if v is not var]
+        return len(others) == 1 and (not _is_var(others[0]) or self.from_params_only(others[0]))
+
     def layer_output(self, map_eqn: int) -> tuple[Any, list[int]]:
         """The value after the layer (its bias add included) and the equations it spans."""
         out = self.eqns[map_eqn].outvars[0]
@@ -277,8 +285,30 @@ class JaxprFacts:
                 out = self.eqns[readers[0]].outvars[0]
         return out, spanned
 
+    def _tanh_gelu_end(self, var: Any) -> int | None:
+        """x * 0.5 * (1 + tanh(sqrt(2/pi) (x + 0.044715 x^3))) (jax.nn.gelu's default)."""
+        readers = self.readers.get(var, [])
+        pows = [j for j in readers if self.eqns[j].primitive.name == "integer_pow"
+                and self.eqns[j].params.get("y") == 3]
+        if not pows:
+            return None
+        v, seen_tanh = self.eqns[pows[0]].outvars[0], False
+        for _ in range(8):
+            nxt = self.readers.get(v, [])
+            if len(nxt) != 1:
+                return None
+            eqn = self.eqns[nxt[0]]
+            seen_tanh = seen_tanh or eqn.primitive.name == "tanh"
+            if seen_tanh and eqn.primitive.name == "mul" and var in eqn.invars:
+                return nxt[0]
+            v = eqn.outvars[0]
+        return None
+
     def _gelu_end(self, var: Any) -> int | None:
         """x * 0.5 * erfc(-x / sqrt 2) (jax.nn.gelu, approximate=False) read from `var`."""
+        tanh_form = self._tanh_gelu_end(var)
+        if tanh_form is not None:
+            return tanh_form
         for j in self.readers.get(var, []):
             if self.eqns[j].primitive.name != "neg":
                 continue
@@ -295,14 +325,34 @@ class JaxprFacts:
                     return last[0] if len(last) == 1 else None
         return None
 
+    def _softmax_end(self, var: Any) -> int | None:
+        """exp(x - max x) / sum(exp(x - max x)) (jax.nn.softmax, inlined) read from `var`."""
+        readers = self.readers.get(var, [])
+        prims = {self.eqns[j].primitive.name: j for j in readers}
+        if set(prims) != {"reduce_max", "sub"}:
+            return None
+        shifted = self.readers.get(self.eqns[prims["sub"]].outvars[0], [])
+        if len(shifted) != 1 or self.eqns[shifted[0]].primitive.name != "exp":
+            return None
+        for j in self.readers.get(self.eqns[shifted[0]].outvars[0], []):
+            if self.eqns[j].primitive.name == "div":
+                return j
+        return None
+
     def follow(self, var: Any) -> tuple[str, float | None, str, Any]:
         """(activation, parameter, where it was read, the value after it and pass-throughs)."""
         found: tuple[str, float | None, str] | None = None
         for _ in range(64):
             gelu = self._gelu_end(var)
             if gelu is not None and found is None:
-                found = ("gelu", None, "the erfc GELU pattern")
+                how = "tanh" if self._tanh_gelu_end(var) is not None else "erfc"
+                found = ("gelu", None, f"the {how} GELU pattern")
                 var = self.eqns[gelu].outvars[0]
+                continue
+            soft = self._softmax_end(var) if found is None else None
+            if soft is not None:
+                found = ("softmax", None, "the softmax pattern in the jaxpr")
+                var = self.eqns[soft].outvars[0]
                 continue
             readers = self.readers.get(var, [])
             if len(readers) != 1 or var in self.outputs:
@@ -318,6 +368,8 @@ class JaxprFacts:
                 )
             elif found is None and prim in PRIMITIVE_ACTIVATIONS:
                 found = (PRIMITIVE_ACTIVATIONS[prim], None, f"lax.{prim} in the jaxpr")
+            elif prim in AFFINE and self._other_is_constant(eqn, var):
+                pass  # a stored scale, shift or statistic (BatchNorm with running averages)
             elif prim not in PASS_THROUGH:
                 break
             var = eqn.outvars[0]
@@ -401,8 +453,12 @@ def _literal_values(jaxpr: Any) -> list[float]:
 def _activation_param(name: str, eqn: Any) -> float | None:
     if name == "leaky_relu":
         lits = [float(v.val) for v in eqn.invars if hasattr(v, "val")]
-        return float(str(lits[0])) if lits else 0.01
+        return float(str(np.float32(lits[0]))) if lits else 0.01
     if name == "elu":
+        # alpha arrives as a literal argument of the call, or folded into its body's mul
+        lits = [float(v.val) for v in eqn.invars if hasattr(v, "val")]
+        if lits:
+            return float(str(np.float32(lits[0])))
         inner = eqn.params.get("jaxpr")
         inner = getattr(inner, "jaxpr", inner)
         muls = [

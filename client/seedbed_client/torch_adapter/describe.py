@@ -44,7 +44,9 @@ class _Read:
     notes: list[str]
 
 
-def _read_graph(module: nn.Module, mode: str, example_input: Any) -> _Read:
+def _read_graph(
+    module: nn.Module, mode: str, example_input: Any, input_shape: tuple[int, ...] | None = None
+) -> _Read:
     notes: list[str] = []
     if mode in ("auto", "trace"):
         try:
@@ -60,7 +62,7 @@ def _read_graph(module: nn.Module, mode: str, example_input: Any) -> _Read:
     if mode in ("auto", "hooks"):
         sample, how = example_input, "the caller's sample input"
         if sample is None:
-            built = g.build_sample_input(module)
+            built = g.build_sample_input(module, input_shape)
             if built is not None:
                 sample, how = built
         if sample is not None:
@@ -73,7 +75,10 @@ def _read_graph(module: nn.Module, mode: str, example_input: Any) -> _Read:
                     f"the forward pass on {how} failed ({type(exc).__name__}: {exc})"[:240]
                 )
         else:
-            notes.append("no sample input: pass example_input to read the graph by a forward pass")
+            notes.append(
+                "no sample input: pass example_input or input_shape to read the graph by a "
+                "forward pass"
+            )
         if mode == "hooks":
             raise SpecInvalid([Problem("graph", "not_allowed", notes[-1])])
     notes.append(
@@ -120,6 +125,7 @@ def describe_module(
     layer_options: Mapping[str, Mapping[str, Any]] | None = None,
     depth_policy: Mapping[str, Any] | Any | None = None,
     example_input: Any = None,
+    input_shape: tuple[int, ...] | None = None,
     graph: str = "auto",
     allow_defaults: bool = False,
     root_name: str = "model",
@@ -129,7 +135,8 @@ def describe_module(
     inferred from where (`.table()`).
 
     Activations, residual branches and output roles are read from the module's graph
-    (`graph="auto"`: torch.fx tracing, else a forward pass on `example_input` or on a sample
+    (`graph="auto"`: torch.fx tracing, else a forward pass on `example_input` (a tensor or a
+    tuple of positional inputs), on a sample of the declared `input_shape`, or on a sample
     built from the first layer's declared size, else module order). Overrides are keyed by
     layer name (the module's qualified name; recurrent layers `<name>.l<k>`): `activations`
     (a name or (name, parameter)), `roles`, `branches` (a branch name, or None for none),
@@ -208,7 +215,7 @@ def describe_module(
         names,
     )
     # 2. The graph.
-    read = _read_graph(module, graph, example_input)
+    read = _read_graph(module, graph, example_input, input_shape)
     notes.extend(read.notes)
     flow = read.flow
     calls = flow.module_calls() if flow is not None else {}
@@ -247,6 +254,10 @@ def describe_module(
         elif p.fixed_activation is not None:
             act, f.activation_from = p.fixed_activation, FROM_MODULE
             f.why.append(p.fixed_reason)
+        elif p.needs_activation and p.module == "":
+            # The module is one layer: its output is the network's output.
+            act, f.activation_from = ("linear", None), FROM_MODULE
+            f.why.append("the module is a single layer; its output is the network's output")
         elif p.needs_activation:
             reason = ""
             if flow is not None:
@@ -378,6 +389,16 @@ def _assign_branches(flow: g.Flow, parts: list[Part], facts: list[LayerFacts],
             skip_layers = sorted(
                 {parts[k].layer["name"] for c in add.skip for k in by_call.get(c, [])}
             )
+            feeds = (
+                [parts[k].layer["name"] for k in by_call.get(add.source, [])]
+                if add.source is not None
+                else []
+            )
+            reads_text = (
+                f"; {skip_layers[0]} reads the block's input, the output of {feeds[-1]}"
+                if feeds and skip_layers
+                else ""
+            )
             notes.append(
                 f"residual add with a projection on the skip path ({', '.join(skip_layers)}): "
                 f"seedbed branches add an identity skip, so {parts[members[0]].layer['name']} .. "
@@ -387,6 +408,7 @@ def _assign_branches(flow: g.Flow, parts: list[Part], facts: list[LayerFacts],
                     if last is not None
                     else ""
                 )
+                + reads_text
             )
             if last is not None and parts[last].layer.get("role", "hidden") == "hidden":
                 parts[last].layer["role"], facts[last].role_from = "residual_out", source

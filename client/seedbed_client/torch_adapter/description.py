@@ -54,8 +54,9 @@ class ModuleDescription:
         """The torch module of every request layer, in request order."""
         return [f.module for f in self.facts]
 
-    def table(self) -> str:
-        """Per layer: kind, activation, branch and role, each with where it came from."""
+    def table(self, reasons: bool = False) -> str:
+        """Per layer: kind, activation, branch and role, each with where it came from; with
+        `reasons`, each layer's evidence ("followed by gelu", "feeds a residual add") below."""
         head = ("layer", "kind", "activation", "from", "branch", "from", "role", "from")
         rows = [head] + [
             (
@@ -74,6 +75,12 @@ class ModuleDescription:
         lines = [
             "  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)).rstrip() for r in rows
         ]
+        if reasons:
+            body = [lines[0]]
+            for f, line in zip(self.facts, lines[1:], strict=True):
+                body.append(line)
+                body.extend(f"    {why}" for why in f.why if why)
+            lines = body
         lines.insert(1, "  ".join("-" * w for w in widths))
         lines.append(f"graph read from: {self.graph_source}")
         for planned, aliases in self.ties.items():

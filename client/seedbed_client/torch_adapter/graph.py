@@ -42,13 +42,17 @@ _PASS_CALLS = frozenset(
         "type_as", "getitem", "max_pool1d", "max_pool2d", "max_pool3d", "avg_pool1d",
         "avg_pool2d", "avg_pool3d", "adaptive_avg_pool1d", "adaptive_avg_pool2d",
         "adaptive_avg_pool3d", "adaptive_max_pool1d", "adaptive_max_pool2d",
-        "adaptive_max_pool3d", "mean", "chunk_view", "expand", "expand_as", "detach",
+        "adaptive_max_pool3d", "mean", "expand", "expand_as", "detach", "split", "chunk",
+        "unbind", "tensor_split",
     }
 )  # fmt: skip
 # Calls that only read metadata: no data edge (a position index built from x.size(1) is not
 # a path from x).
 _META_CALLS = frozenset({"size", "dim", "numel", "shape", "get", "device", "dtype", "ndim"})
 _ADD_CALLS = frozenset({"add", "radd", "iadd"})
+# Calls that consume a projection as attention's query, key or value: no elementwise
+# nonlinearity acts on it, so the projection is linear (as the service plans attention).
+_ATTENTION_CALLS = frozenset({"scaled_dot_product_attention"})
 _MUL_CALLS = frozenset({"mul", "rmul", "imul", "multiply", "matmul", "bmm", "einsum", "div"})
 
 
@@ -233,9 +237,8 @@ def read_by_hooks(module: nn.Module, sample: Any) -> Flow:
     for leaf in leaves:
         qualname = names[id(leaf)]
 
-        def before(m: nn.Module, args: Any, kwargs: Any, q: str = qualname) -> None:
+        def before(m: nn.Module, args: Any, kwargs: Any) -> None:
             recorder.inside += 1
-            m._seedbed_reads = (args, kwargs)  # type: ignore[assignment]
 
         def after(m: nn.Module, args: Any, kwargs: Any, output: Any, q: str = qualname) -> None:
             recorder.inside -= 1
@@ -256,19 +259,35 @@ def read_by_hooks(module: nn.Module, sample: Any) -> Flow:
     finally:
         for h in handles:
             h.remove()
-        for leaf in leaves:
-            leaf.__dict__.pop("_seedbed_reads", None)
         module.train(was_training)
     return Flow(recorder.ops, "forward hooks")
 
 
-def build_sample_input(module: nn.Module) -> tuple[Any, str] | None:
-    """A small sample input built from the first parameterised module's declared shape, and a
-    sentence saying how; None when the first module does not declare one."""
+def build_sample_input(
+    module: nn.Module, shape: tuple[int, ...] | None = None
+) -> tuple[Any, str] | None:
+    """A small sample input, and a sentence saying how it was built: of the caller's declared
+    `shape` (token ids when the first parameterised module is an embedding, else standard
+    normal values), or from the first parameterised module's declared size; None when neither
+    says enough."""
     gen = torch.Generator().manual_seed(0)
     dtype = next((p.dtype for p in module.parameters()), torch.float32)
+    if shape is not None:
+        first = next(
+            (
+                m
+                for m in module.modules()
+                if is_leaf_module(m) and next(m.parameters(), None) is not None
+            ),
+            None,
+        )
+        if isinstance(first, nn.Embedding):
+            ids = torch.randint(0, first.num_embeddings, shape, generator=gen)
+            return ids, f"token ids of the declared shape {tuple(shape)}"
+        x = torch.randn(shape, generator=gen, dtype=dtype)
+        return x, f"a standard normal batch of the declared shape {tuple(shape)}"
     for qualname, m in module.named_modules():
-        shape: tuple[int, ...] | None = None
+        shape = None
         if isinstance(m, nn.Embedding):
             ids = torch.randint(0, m.num_embeddings, (2, 8), generator=gen)
             return ids, f"token ids (2, 8) below {qualname}'s vocabulary of {m.num_embeddings}"
@@ -333,6 +352,8 @@ def following(flow: Flow, op_index: int, modules: Mapping[str, nn.Module],
                 stack.extend(flow.users[u.index])
             elif u.target in _ADD_CALLS:
                 found.add(("add", u.index))
+            elif u.target in _ATTENTION_CALLS:
+                found.add(("attention", u.target))
             elif u.target in _MUL_CALLS and len(u.inputs) >= 2:
                 found.add(("mul", u.target))
             elif u.target in _MUL_CALLS:
@@ -364,6 +385,8 @@ def following(flow: Flow, op_index: int, modules: Mapping[str, nn.Module],
         )
     if "add" in kinds:
         reasons.append("a residual add")
+    if "attention" in kinds:
+        reasons.append("scaled dot-product attention")
     if "output" in kinds:
         reasons.append("the network output")
     return Following(("linear", None), "feeds " + " and ".join(reasons), "",
@@ -382,6 +405,9 @@ class ResidualAdd:
     op: int
     branch: tuple[int, ...]
     skip: tuple[int, ...]
+    # The latest layer call whose output feeds both paths (None: the network input or no
+    # layer): what a projection skip reads.
+    source: int | None = None
 
 
 def residual_adds(flow: Flow, layer_modules: frozenset[str]) -> tuple[list[ResidualAdd], list[str]]:
@@ -426,7 +452,8 @@ def residual_adds(flow: Flow, layer_modules: frozenset[str]) -> tuple[list[Resid
                 adds.append(ResidualAdd(op.index, members, ()))
             continue
         branch, skip = (side_a, side_b) if len(side_a) >= len(side_b) else (side_b, side_a)
-        adds.append(ResidualAdd(op.index, branch, skip))
+        upstream = [c for c in layer_calls if c == origin or flow.is_ancestor(c, origin)]
+        adds.append(ResidualAdd(op.index, branch, skip, max(upstream) if upstream else None))
     return adds, notes
 
 

@@ -10,9 +10,10 @@ from dataclasses import replace
 from typing import Any
 
 from seedbed.core.activations import describe_activation
+from seedbed.core.choice import Choice
 from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.policies import apply_policy
-from seedbed.core.recommend import Choice, override_weight, recommend_weight, vector_choice
+from seedbed.core.recommend import override_weight, recommend_weight, vector_choice
 from seedbed.core.request.limits import Limits
 from seedbed.core.request.network import NetworkRequest, canonical_request
 from seedbed.core.request.parse import parse

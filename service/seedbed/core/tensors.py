@@ -50,6 +50,7 @@ from seedbed.core.request.names import layer_name_problems
 from seedbed.core.request.network import NetworkRequest
 from seedbed.core.request.problems import Problem, RequestRejected
 from seedbed.core.request.vocabulary import GATES, Layout
+from seedbed_client import wire_facts
 
 __all__ = [
     "ATTENTION_PROJECTIONS",
@@ -60,7 +61,7 @@ __all__ = [
     "tensor_slots",
 ]
 
-ATTENTION_PROJECTIONS: tuple[str, ...] = ("query", "key", "value", "output")
+ATTENTION_PROJECTIONS: tuple[str, ...] = wire_facts.ATTENTION_PROJECTIONS
 
 
 @dataclass(frozen=True)

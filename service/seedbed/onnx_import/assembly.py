@@ -9,12 +9,13 @@ concatenation of its parts, each byte-identical to the unfused seedbed tensor.
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Callable, Iterator
 
 import numpy as np
 
 from seedbed.core.plan_types import Plan
-from seedbed.core.render import render_rows, to_little_endian_bytes
+from seedbed.core.render import iter_tensor_bytes, render_rows, to_little_endian_bytes
 from seedbed.onnx_import.translation import Binding
 from seedbed_client.framework_layouts import (
     FRAMEWORK_GATE_ORDERS,
@@ -59,5 +60,19 @@ def binding_array(
     raise ValueError(f"unknown conversion {conversion!r}")
 
 
-def binding_bytes(plan: Plan, binding: Binding) -> Iterator[bytes]:
+def binding_bytes(plan: Plan, binding: Binding, chunk_bytes: int = 4 << 20) -> Iterator[bytes]:
+    """The initializer's raw little-endian bytes in pieces. The two arrangements that hold the
+    large tensors (embedding tables, projection matrices) are streamed in bounded pieces: `same`
+    is seedbed's own order, `transposed` is seedbed's in_out layout of a 2-D tensor. The others
+    (kernels of transposed convs, recurrent stacks) are assembled whole."""
+    if binding.conversion in ("same", "transposed"):
+        t = plan.tensor(binding.sources[0])
+        if binding.conversion == "transposed":
+            if len(t.logical_shape) != 2:
+                raise ValueError(f"{binding.initializer}: transposed needs a 2-D source")
+            t = dataclasses.replace(
+                t, shape=(t.logical_shape[1], t.logical_shape[0]), served_axes=(1, 0)
+            )
+        yield from iter_tensor_bytes(plan, t, chunk_bytes=chunk_bytes)
+        return
     yield to_little_endian_bytes(binding_array(plan, binding), plan.dtype)

@@ -2,14 +2,15 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from seedbed.core.request.limits import Limits
 from seedbed.core.plan import build_plan, plan_document
 from seedbed.core.plan_types import Plan
+from seedbed.core.request.limits import Limits
 from seedbed.onnx_import.loading import LoadedModel, parse_model
+from seedbed.onnx_import.refusals import ModelRefused
 from seedbed.onnx_import.translation import Translation, translate
 
 NOTICE = (
@@ -43,11 +44,26 @@ class ImportedModel:
 
 
 def import_model(
-    data: bytes, max_bytes: int, seed: int | str, keep: Iterable[str], limits: Limits
+    data: bytes,
+    max_bytes: int,
+    seed: int | str,
+    keep: Iterable[str],
+    limits: Limits,
+    activations: Mapping[str, tuple[str, float | None]] | None = None,
 ) -> ImportedModel:
     """Raises ModelRefused for the file, RequestRejected when the inferred request is refused
     by the same checks as POST /v1/plan."""
     loaded = parse_model(data, max_bytes)
-    translation = translate(loaded, seed, keep)
+    try:
+        translation = translate(loaded, seed, keep, activations)
+    except (IndexError, KeyError, TypeError, ValueError, ZeroDivisionError) as exc:
+        if isinstance(exc, ModelRefused):
+            raise
+        # An uploaded graph is untrusted input: a shape or attribute no reader expected (an
+        # attribute of the wrong type, an empty dims list ...) is the file's fault, not a 500.
+        raise ModelRefused(
+            "malformed_graph",
+            f"the graph holds a node seedbed cannot read: {type(exc).__name__}: {str(exc)[:200]}",
+        ) from None
     plan = build_plan(translation.request, limits)
     return ImportedModel(loaded, translation, plan)

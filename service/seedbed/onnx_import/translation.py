@@ -17,8 +17,9 @@ the layouts each reader relies on are cited beside its tests.
 
 from __future__ import annotations
 
+import difflib
 import re
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from math import prod
 from typing import Any
@@ -99,6 +100,19 @@ ARITHMETIC: frozenset[str] = frozenset(
     }
 )
 CELLS = {"LSTM": "lstm", "GRU": "gru", "RNN": "simple"}
+# Required inputs of the operators read here (ONNX operator specification).
+MIN_INPUTS = {
+    "Gemm": 2,
+    "MatMul": 2,
+    "Conv": 2,
+    "ConvTranspose": 2,
+    "Gather": 2,
+    "LSTM": 3,
+    "GRU": 3,
+    "RNN": 3,
+    "LayerNormalization": 2,
+    "BatchNormalization": 5,
+}
 # ONNX operator specification, LSTM (opset 7..22): W is [iofc], B is [Wb, Rb]; GRU: W is [zrh]
 # = update, reset, hidden (the candidate). The shared table holds them in seedbed's gate names.
 RECURRENT_GATES: dict[str, tuple[str, ...]] = {
@@ -277,6 +291,15 @@ class _Reader:
             reader = getattr(self, f"_read_{node.op_type.lower()}", None)
             if node.domain not in ("", "ai.onnx") or reader is None:
                 continue
+            need = MIN_INPUTS.get(node.op_type, 1)
+            if len(node.input) < need or len(node.output) < 1:
+                raise self.refuse(
+                    i,
+                    "malformed_node",
+                    f"has {len(node.input)} inputs and "
+                    f"{len(node.output)} outputs; the operator specification "
+                    f"needs at least {need} inputs and one output",
+                )
             layer = reader(i, node)
             if layer is not None:
                 self.layers.append(layer)
@@ -707,8 +730,11 @@ class _Reader:
             # is centred (beta 1/2) with the slope as its parameter.
             beta = float(_attr(node, "beta", 0.5))
             if abs(beta - 0.5) > 1e-6:
-                raise self.refuse(j, "unsupported_attribute", f"beta is {beta}; only the "
-                                  "centred ramp (beta 0.5) has a gain seedbed knows")
+                raise self.refuse(
+                    j,
+                    "unsupported_attribute",
+                    f"beta is {beta}; only the centred ramp (beta 0.5) has a gain seedbed knows",
+                )
             layer.activation_param = _float32_text(_attr(node, "alpha", 0.2))
         elif node.op_type == "Selu":
             # Selu (opset 6) defaults are float32 roundings of Klambauer et al. (2017)'s closed
@@ -799,6 +825,22 @@ class _Reader:
                 self.notes.append(f"initializer {name!r} is read by no node; left as it is")
             else:
                 refused.append(f"{name!r} (read by {', '.join(sorted(set(readers)))})")
+        for j, node in enumerate(self.nodes):
+            # A float tensor held by a Constant node (some exporters fold weights into one)
+            # or inside a control-flow subgraph is as trainable as an initializer.
+            if node.op_type == "Constant" and node.output and node.output[0] not in self.keep:
+                size = _constant_size(node)
+                if size > 1:
+                    readers = sorted(
+                        {self.nodes[k].op_type for k in self.consumers.get(node.output[0], [])}
+                    )
+                    refused.append(
+                        f"{node.output[0]!r} (a Constant node of {size} floats, "
+                        f"read by {', '.join(readers) or 'nothing'})"
+                    )
+            for held in _subgraph_weights(node):
+                if held not in self.keep:
+                    refused.append(f"{held!r} (inside the subgraph of {self.label(j)})")
         if refused:
             raise ModelRefused(
                 "unsupported_weights",
@@ -808,6 +850,56 @@ class _Reader:
                 names=tuple(r.split("'")[1] for r in refused),
             )
         return kept, constants
+
+
+def _apply_overrides(reader: _Reader, activations: Mapping[str, tuple[str, float | None]]) -> None:
+    by_name = {layer.name: layer for layer in reader.layers}
+    for key, (name, param) in activations.items():
+        layer = by_name.get(key)
+        if layer is None:
+            close = difflib.get_close_matches(key, list(by_name), n=1, cutoff=0.5)
+            hint = f"; did you mean {close[0]!r}?" if close else ""
+            raise ModelRefused(
+                "unknown_layer",
+                f"activation names layer {key!r}, which the "
+                f"graph does not have{hint} Layers: "
+                f"{', '.join(list(by_name)[:30])}",
+                field="activation",
+            )
+        if layer.fields["kind"] == "recurrent" and layer.fields["cell"] != "simple":
+            raise ModelRefused(
+                "not_allowed",
+                f"{key!r} is a gated {layer.op} cell: its gate "
+                "functions are fixed, it takes no activation",
+                field="activation",
+            )
+        layer.activation, layer.activation_param = name, param
+        layer.activation_from = "caller override"
+
+
+def _constant_size(node: onnx.NodeProto) -> int:
+    """How many floats a Constant node holds (0 when it holds something else)."""
+    for a in node.attribute:
+        if a.name == "value" and a.t.data_type in FLOAT_TYPES:
+            return prod(a.t.dims)
+        if a.name == "value_floats":
+            return len(a.floats)
+    return 0
+
+
+def _subgraph_weights(node: onnx.NodeProto) -> list[str]:
+    """Float initializers and float Constant outputs inside a node's subgraphs (If, Loop,
+    Scan bodies), at any depth: the walk above does not read them, so they are refused."""
+    found: list[str] = []
+    graphs = [a.g for a in node.attribute if a.type == onnx.AttributeProto.GRAPH]
+    graphs += [g for a in node.attribute if a.type == onnx.AttributeProto.GRAPHS for g in a.graphs]
+    for graph in graphs:
+        found += [t.name for t in graph.initializer if t.data_type in FLOAT_TYPES]
+        for inner in graph.node:
+            if inner.op_type == "Constant" and _constant_size(inner) > 1:
+                found.append(inner.output[0])
+            found += _subgraph_weights(inner)
+    return found
 
 
 def _float32_text(value: float) -> float:
@@ -838,10 +930,22 @@ def _unique(name: str, used: set[str]) -> str:
     return candidate
 
 
-def translate(loaded: LoadedModel, seed: int | str, keep: Iterable[str] = ()) -> Translation:
-    """The seedbed request for the model, and one binding per initializer it fills."""
+def translate(
+    loaded: LoadedModel,
+    seed: int | str,
+    keep: Iterable[str] = (),
+    activations: Mapping[str, tuple[str, float | None]] | None = None,
+) -> Translation:
+    """The seedbed request for the model, and one binding per initializer it fills.
+
+    `activations` replaces what was read for the named layers (layer -> (name, parameter));
+    a key that names no layer is refused with the layer names."""
     keep_set = frozenset(keep)
-    unknown = sorted(keep_set - set(loaded.initializers))
+    known = set(loaded.initializers)
+    for node in loaded.model.graph.node:
+        known.update(node.output if node.op_type == "Constant" else ())
+        known.update(_subgraph_weights(node))
+    unknown = sorted(keep_set - known)
     if unknown:
         raise ModelRefused(
             "unknown_initializer",
@@ -852,6 +956,7 @@ def translate(loaded: LoadedModel, seed: int | str, keep: Iterable[str] = ()) ->
     reader = _Reader(loaded, keep_set)
     reader.read_layers()
     if not reader.layers:
+        reader.leftovers(set())  # weights held where seedbed does not read are named first
         raise ModelRefused(
             "no_weights",
             "the graph has no operator whose weights seedbed reads "
@@ -864,6 +969,7 @@ def translate(loaded: LoadedModel, seed: int | str, keep: Iterable[str] = ()) ->
     for layer in reader.layers:
         reader.follow(layer)
     reader.mark_residuals()
+    _apply_overrides(reader, activations or {})
     for layer in reader.layers:
         if layer.branch and layer.role == "output":
             layer.role = "hidden"

@@ -14,8 +14,9 @@ from seedbed.core.diagnostics import DiagnosticLimits
 from seedbed.core.plan import build_plan
 from seedbed.core.plan_types import Plan
 from seedbed.settings import Settings
-from seedbed.web.body import read_json_body
+from seedbed.web.json_body import read_json_body
 from seedbed.web.metrics import ServiceMetrics
+from seedbed.web.plan_cache import CachedPlan, PlanCache, request_key
 
 
 def settings_of(request: Request) -> Settings:
@@ -41,10 +42,34 @@ def diagnostic_limits_of(request: Request) -> DiagnosticLimits:
     return limits if isinstance(limits, DiagnosticLimits) else DiagnosticLimits()
 
 
-async def load_plan(request: Request) -> Plan:
-    """The plan of the request's JSON body: body limits, strict JSON, the core's checks."""
+def plan_cache_of(request: Request) -> PlanCache | None:
+    cache: PlanCache | None = getattr(request.app.state, "plan_cache", None)
+    return cache
+
+
+# A cached plan is charged this many bytes per byte of canonical request JSON: the plan, its
+# document and the encoded body are a few times the request's size.
+_BYTES_PER_REQUEST_BYTE = 16
+
+
+async def load_cached_plan(request: Request) -> CachedPlan:
+    """The request's plan, from the plan cache when an equal request was planned before."""
     settings = settings_of(request)
     data = await read_json_body(request, settings.max_body_bytes)
+    cache = plan_cache_of(request)
+    if cache is None or cache.max_entries <= 0:
+        return CachedPlan(await run_in_threadpool(build_plan, data, settings.limits))
+    key, size = request_key(data)
+    found = cache.get(key)
+    if found is not None:
+        return found
     # Validation of thousands of layers is plain Python work: keep it off the event loop.
     plan: Plan = await run_in_threadpool(build_plan, data, settings.limits)
-    return plan
+    entry = CachedPlan(plan)
+    cache.put(key, entry, size * _BYTES_PER_REQUEST_BYTE)
+    return entry
+
+
+async def load_plan(request: Request) -> Plan:
+    """The plan of the request's JSON body: body limits, strict JSON, the core's checks."""
+    return (await load_cached_plan(request)).plan

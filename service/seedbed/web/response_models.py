@@ -233,6 +233,11 @@ class _ReadinessBase(BaseModel):
     tensors_checked: int = Field(ge=0)
     mismatches: list[str] = Field(description="<probe>/<tensor> keys whose bytes differ.")
     seconds: float = Field(ge=0)
+    generator: str = Field(
+        description="What generates the values in this process: 'compiled (...)' for the C "
+        "kernel, 'reference (...)' for the numpy implementation with the reason (same bytes, "
+        "slower)."
+    )
 
 
 class ReadyReport(_ReadinessBase):

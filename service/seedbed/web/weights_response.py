@@ -19,6 +19,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
+from typing import Any
 
 from fastapi import Request, Response
 from fastapi.responses import StreamingResponse
@@ -33,6 +34,7 @@ from seedbed.web.documents import block_entry, response_document
 from seedbed.web.errors import ApiError
 from seedbed.web.etag import none_match, strong_etag
 from seedbed.web.metrics import ServiceMetrics
+from seedbed.web.read_ahead import read_ahead
 
 # Bytes a safetensors response may hold between its hashing pass and its data pass. One 4096 x
 # 4096 float32 tensor fits; a 1 GiB response still raises memory by less than the 128 MiB the
@@ -112,7 +114,9 @@ def outgoing_tensors(
             shape = tuple(block_shape(t, start, stop))
             entry = block_entry(t, shape, start, stop)
         nbytes = math.prod(shape) * t.itemsize
-        chunks = generate if hold is None else _held_once(generate, nbytes, hold)
+        # Tensors of several pieces generate the next piece while this one is hashed and sent.
+        source = read_ahead(generate) if nbytes >= 2 * chunk_bytes else generate
+        chunks = source if hold is None else _held_once(source, nbytes, hold)
         return OutgoingTensor(
             name=t.tensor,
             dtype=t.dtype,
@@ -127,8 +131,23 @@ def outgoing_tensors(
     return [producer(selection.tensor, selection.start, selection.stop)]
 
 
-def json_size_of(plan: Plan, selection: Selection | None) -> int:
+@dataclass(frozen=True)
+class Rearranged:
+    """A plan's values served under a framework's own names and layouts (ONNX initializers):
+    `tensors()` builds the outgoing tensors, `document` is added to the response document and
+    `etag_parts` to what the ETag hashes (the arrangement changes the bytes)."""
+
+    tensors: Callable[[], list[OutgoingTensor]]
+    document: Mapping[str, Any]
+    etag_parts: Mapping[str, Any]
+
+
+def json_size_of(plan: Plan, selection: Selection | None,
+                 rearranged: Rearranged | None = None) -> int:
     """Exact size of the JSON response, computed without generating any value."""
+    if rearranged is not None:
+        doc = {**response_document(plan, None), **rearranged.document}
+        return int(json_size(doc, rearranged.tensors()))
     tensors = outgoing_tensors(plan, selection, 1 << 20, 1)
     doc = response_document(plan, None if selection is None else selection.describe())
     return int(json_size(doc, tensors))
@@ -136,10 +155,13 @@ def json_size_of(plan: Plan, selection: Selection | None) -> int:
 
 def encode_weights(
     plan: Plan, selection: Selection | None, fmt: str, chunk_bytes: int, threads: int,
-    digests: Mapping[str, str] | None = None,
+    digests: Mapping[str, str] | None = None, rearranged: Rearranged | None = None,
 ) -> EncodedBody:
     """The encoded body. With `digests` (sha256 per tensor, known in advance) the formats verify
     every tensor while streaming and skip their own hashing pass; the bytes are the same."""
+    if rearranged is not None:
+        doc = {**response_document(plan, None), **rearranged.document}
+        return encode_body(fmt, doc, rearranged.tensors(), digests=digests)
     hold = _HoldBudget(HOLD_BUDGET_BYTES) if fmt == "safetensors" and digests is None else None
     tensors = outgoing_tensors(plan, selection, chunk_bytes, threads, hold)
     doc = response_document(plan, None if selection is None else selection.describe())
@@ -210,6 +232,7 @@ class WeightsOptions:
     filename      the attachment's name without extension
     selectable    whether the route takes tensor= (the 413 advice mentions it only then)
     weak          a weak ETag even for exact tensors (a URL whose body may change: `latest`)
+    rearranged    the values under a framework's names and layouts instead of seedbed's
     """
 
     format: str
@@ -219,6 +242,7 @@ class WeightsOptions:
     filename: str = "weights"
     selectable: bool = False
     weak: bool = False
+    rearranged: Rearranged | None = None
 
 
 async def weights_response(request: Request, plan: Plan, options: WeightsOptions) -> Response:
@@ -232,6 +256,7 @@ async def weights_response(request: Request, plan: Plan, options: WeightsOptions
         format=fmt,
         tensor=None if selection is None else selection.tensor.tensor,
         rows=None if selection is None else [selection.start, selection.stop],
+        **({} if options.rearranged is None else {"arranged": options.rearranged.etag_parts}),
     )
     served = plan.tensors if selection is None else (selection.tensor,)
     exact = all(t.reproducible == "exact" for t in served)
@@ -245,7 +270,7 @@ async def weights_response(request: Request, plan: Plan, options: WeightsOptions
         return Response(status_code=304, headers=headers)
     if fmt == "json":
         # Serialising thousands of manifest entries to measure them is CPU work: off the loop.
-        size = await run_in_threadpool(json_size_of, plan, selection)
+        size = await run_in_threadpool(json_size_of, plan, selection, options.rearranged)
         if size > settings.max_json_response_bytes:
             advice = "ask for format=npz or format=safetensors"
             if options.selectable:
@@ -260,8 +285,8 @@ async def weights_response(request: Request, plan: Plan, options: WeightsOptions
     digests = options.digests if exact else None
     # safetensors hashes every tensor before its first byte: that pass must not block the loop.
     encoded = await run_in_threadpool(
-        encode_weights, plan, selection, fmt, settings.chunk_bytes, settings.generation_threads,
-        digests,
+        encode_weights, plan, selection, fmt, settings.chunk_bytes, settings.threads_per_request(),
+        digests, options.rearranged,
     )
     headers["Content-Length"] = str(encoded.content_length)
     headers["Content-Disposition"] = f'attachment; filename="{options.filename}.{fmt}"'

@@ -113,3 +113,16 @@ def test_branch_rules_the_client_can_check() -> None:
     fields = [p.field for p in caught.value.problems]
     assert fields == ["layers[0].branch", "layers[3].branch", "layers[4].role"]
     assert not _service_accepts(net._dict())
+
+
+@pytest.mark.parametrize(
+    "extra",
+    [{"role": "output"}, {"branch": "x"}, {"block": "x"}, {"class_prior": 0.5}],
+    ids=lambda e: next(iter(e)),
+)
+def test_block_shorthands_refuse_layer_only_fields_like_the_service(extra: dict[str, Any]) -> None:
+    block = TransformerBlockSpec("enc", 8, 2, 16, **extra)
+    net = NetworkSpec(seed=1).add(block)
+    field = next(iter(extra))
+    assert [p.field for p in net.problems()] == [f"layers[0].{field}"]
+    assert not _service_accepts(net._dict())

@@ -218,12 +218,14 @@ def test_lstm_gate_order_direction_axis_and_forget_bias(http: TestClient) -> Non
     assert [row["layer"] for row in doc["inference"]] == [["tide.forward", "tide.reverse"]]
 
 
-def test_gru_gate_order(http: TestClient) -> None:
+@pytest.mark.parametrize("linear_before_reset", [0, 1])
+def test_gru_gate_order(http: TestClient, linear_before_reset: int) -> None:
     # GRU (opset 14), linear_before_reset 0: z = s(Wz x + Rz h + Wbz + Rbz), r likewise,
     # h~ = tanh(Wh x + (r * h) Rh^T + Rbh + Wbh), H = (1 - z) h~ + z h; blocks are [z, r, h].
     h = 4
     model = _model(
-        [helper.make_node("GRU", ["x", "W", "R", "B"], ["y"], "gust", hidden_size=h)],
+        [helper.make_node("GRU", ["x", "W", "R", "B"], ["y"], "gust", hidden_size=h,
+                                     linear_before_reset=linear_before_reset)],
         [_io("x", 2, 1, 3)],
         _io("y", 2, 1, 1, h),
         [_zeros("W", 1, 3 * h, 3), _zeros("R", 1, 3 * h, h), _zeros("B", 1, 6 * h)],
@@ -239,7 +241,9 @@ def test_gru_gate_order(http: TestClient) -> None:
         rr, rz, rh = np.split(r, 3)
         z = _sigmoid(wz + rz @ hs)
         reset = _sigmoid(wr + rr @ hs)
-        cand = np.tanh(wh + rh @ (reset * hs))
+        # linear_before_reset 1: h~ = tanh(Wh x + r * (h Rh^T + Rbh) + Wbh); Rbh is zero here
+        inner = reset * (rh @ hs) if linear_before_reset else rh @ (reset * hs)
+        cand = np.tanh(wh + inner)
         hs = (1 - z) * cand + z * hs
         np.testing.assert_allclose(y[t, 0, 0], hs, rtol=1e-5, atol=1e-6)
 

@@ -181,3 +181,101 @@ def test_external_data_initializers_need_only_shapes(http: TestClient) -> None:
     assert seeded.status_code == 200
     (init,) = onnx.load_from_string(seeded.content).graph.initializer
     assert init.data_location == TensorProto.DEFAULT and len(init.raw_data) == 48
+
+
+def test_weights_in_constant_nodes_and_subgraphs_are_refused_then_kept(
+    http: TestClient,
+) -> None:
+    folded = numpy_helper.from_array(np.full((4, 3), 0.5, np.float32), "folded_value")
+    nodes = [
+        helper.make_node("Constant", [], ["folded"], value=folded),
+        helper.make_node("MatMul", ["x", "folded"], ["y"], "squash"),
+    ]
+    model = _graph(nodes, [])
+    err = _error(post_model(http, "plan", model), 422, "unsupported_weights")
+    assert "'folded' (a Constant node of 12 floats, read by MatMul)" in err["message"]
+    kept = post_model(http, "model", _graph(nodes, []), keep=["folded"])
+    assert kept.status_code == 422  # nothing else to fill: no_weights, not a silent success
+    assert kept.json()["error"]["code"] == "no_weights"
+
+    body = helper.make_graph(
+        [helper.make_node("MatMul", ["x", "inner.w"], ["z"])],
+        "branch",
+        [],
+        [helper.make_tensor_value_info("z", TensorProto.FLOAT, [2, 3])],
+        [_w("inner.w", 4, 3)],
+    )
+    cond = numpy_helper.from_array(np.array(True), "flag")
+    nodes = [
+        helper.make_node("Gemm", ["x", "W"], ["h"], "outer", transB=1),
+        helper.make_node("If", ["flag"], ["y"], "choose", then_branch=body, else_branch=body),
+    ]
+    model = _graph(nodes, [_w("W", 3, 4), cond], check=False)
+    err = _error(post_model(http, "plan", model), 422, "unsupported_weights")
+    assert "inside the subgraph of If node 'choose'" in err["message"]
+    assert post_model(http, "plan", model, keep=["inner.w"]).status_code == 200
+
+
+def test_activation_override_replaces_what_was_read(http: TestClient) -> None:
+    r = post_model(http, "plan", mlp(), activation=["probe=leaky_relu:0.1", "mix=selu"])
+    assert r.status_code == 200, r.text
+    rows = {row["layer"]: row for row in r.json()["inference"]}
+    assert rows["probe"]["activation_param"] == 0.1
+    assert rows["mix"]["activation"] == "selu"
+    assert rows["mix"]["activation_from"] == "caller override"
+    err = _error(post_model(http, "plan", mlp(), activation=["mx=relu"]), 422, "unknown_layer")
+    assert "did you mean 'mix'" in err["message"]
+    _error(post_model(http, "plan", mlp(), activation=["probe"]), 422, "invalid_value")
+    _error(post_model(http, "plan", mlp(), activation=["probe=swirl"]), 422, "invalid_value")
+
+
+def test_lstm_variants_seedbed_does_not_plan_are_refused(http: TestClient) -> None:
+    def lstm(**attrs: Any) -> bytes:
+        inputs = ["x3", "W", "R", "B", "", "", "", "P" if "peep" in attrs else ""]
+        attrs.pop("peep", None)
+        graph = helper.make_graph(
+            [helper.make_node("LSTM", inputs, ["y"], "cell", hidden_size=2, **attrs)],
+            "cell",
+            [helper.make_tensor_value_info("x3", TensorProto.FLOAT, [1, 1, 3])],
+            [helper.make_tensor_value_info("y", TensorProto.FLOAT, [1, 1, 1, 2])],
+            [_w("W", 1, 8, 3), _w("R", 1, 8, 2), _w("B", 1, 16), _w("P", 1, 6)],
+        )
+        model = helper.make_model(graph, opset_imports=[helper.make_opsetid("", 17)])
+        return model.SerializeToString()
+
+    err = _error(post_model(http, "plan", lstm(peep=True)), 422, "unsupported_weights")
+    assert "peephole" in err["message"]
+    assert post_model(http, "plan", lstm(peep=True), keep=["P"]).status_code == 200
+    _error(post_model(http, "plan", lstm(input_forget=1)), 422, "unsupported_attribute")
+    _error(
+        post_model(http, "plan", lstm(activations=["Sigmoid", "Relu", "Relu"])),
+        422,
+        "unsupported_attribute",
+    )
+
+
+def test_damaged_nodes_never_give_a_server_error(http: TestClient) -> None:
+    # Every readable model of the suite, damaged node by node: inputs dropped, attributes of
+    # the wrong type, dims emptied. Each answer is 200 or a coded 4xx, never a 5xx.
+    from .onnx_graphs import gpt_block, recurrent
+
+    rng = np.random.default_rng(20261204)
+    for build in (mlp, conv_net, recurrent, gpt_block):
+        original = onnx.load_from_string(build())
+        for k in range(len(original.graph.node)):
+            for damage in ("drop_input", "bad_attribute", "empty_dims"):
+                model = onnx.ModelProto()
+                model.CopyFrom(original)
+                node = model.graph.node[k]
+                if damage == "drop_input" and node.input:
+                    del node.input[int(rng.integers(len(node.input)))]
+                elif damage == "bad_attribute" and node.attribute:
+                    a = node.attribute[0]
+                    a.type, a.s = onnx.AttributeProto.STRING, b"twelve"
+                elif damage == "empty_dims" and model.graph.initializer:
+                    del model.graph.initializer[k % len(model.graph.initializer)].dims[:]
+                keep = ["causal"] if build is gpt_block else []
+                r = post_model(http, "model", model.SerializeToString(), keep=keep)
+                assert r.status_code < 500, (build.__name__, k, damage, r.text)
+                if r.status_code >= 400:
+                    assert r.json()["error"]["code"]

@@ -192,3 +192,21 @@ def test_same_upload_same_bytes(http: TestClient) -> None:
     assert first.content == second.content and first.headers["etag"] == second.headers["etag"]
     meta = {p.key: p.value for p in onnx.load_from_string(first.content).metadata_props}
     assert meta["seedbed.seed"] == "20261204"
+
+
+def test_json_weights_body_matches_its_documented_schema_and_etag(http: TestClient) -> None:
+    from seedbed.web.routes.onnx_models import OnnxWeightsDoc
+
+    r = post_model(http, "weights", recurrent(), format="json")
+    assert r.status_code == 200
+    doc = OnnxWeightsDoc.model_validate(r.json())
+    assert [t.tensor for t in doc.tensors][:3] == ["tide.W", "tide.R", "tide.B"]
+    again = http.post(
+        "/v1/onnx/weights",
+        content=recurrent(),
+        params={"seed": "20261204", "format": "json"},
+        headers={"content-type": "application/octet-stream", "if-none-match": r.headers["etag"]},
+    )
+    assert again.status_code == 304
+    other = post_model(http, "weights", recurrent(), format="npz")
+    assert other.headers["etag"] != r.headers["etag"]

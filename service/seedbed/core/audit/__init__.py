@@ -6,8 +6,8 @@ describes the network, its scale against the recommended one.
 Layout: the readers live next to the writers, in seedbed.formats: upload_in.py recognises the
 file and dispatches to npz_in.py / safetensors_in.py (every refusal happens there, as
 UploadRefused, before any value is read); multipart_in.py parses multipart/form-data uploads
-incrementally. Here: stats.py, twins.py and rank.py analyse one tensor; matching.py compares
-with a plan; report.py assembles findings (findings.py) and the summary.
+incrementally. Here: stats.py, identical_units.py and rank.py analyse one tensor; matching.py
+compares with a plan; report.py assembles findings (findings.py) and the summary.
 """
 
 from seedbed.core.audit.findings import Finding

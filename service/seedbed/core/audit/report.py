@@ -2,7 +2,7 @@
 
 `audit_stored` takes a file already read by seedbed.formats.upload_in (which refuses what it
 cannot read safely before looking at any value), loads one tensor at a time and analyses it:
-statistics (stats.py), twin units (twins.py), numerical rank (rank.py) and, when a request
+statistics (stats.py), twin units (identical_units.py), numerical rank (rank.py) and, when a request
 describes the network, the comparison with its plan (matching.py).
 """
 
@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from seedbed.core.audit.findings import SEVERITY_ORDER, Finding
+from seedbed.core.audit.identical_units import TwinGroups, twin_units
 from seedbed.core.audit.limits import AuditLimits
 from seedbed.core.audit.matching import (
     compare_with_plan,
@@ -24,7 +25,6 @@ from seedbed.core.audit.matching import (
 from seedbed.core.audit.rank import numerical_rank, work_of
 from seedbed.core.audit.stats import ValueStats, value_stats
 from seedbed.core.audit.stored import FLOAT_ROUNDOFF, StoredTensor, Upload
-from seedbed.core.audit.twins import TwinGroups, twin_units
 from seedbed.core.plan_types import Plan, TensorPlan
 
 NOTICE = (

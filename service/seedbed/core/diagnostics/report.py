@@ -16,8 +16,8 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
 
-from seedbed.core.diagnostics.body import RECOMMENDED, AlternativeSpec, parse_body
 from seedbed.core.diagnostics.budget import DiagnosticLimits, cost_problems, run_cost
+from seedbed.core.diagnostics.diagnose_request import RECOMMENDED, AlternativeSpec, parse_body
 from seedbed.core.diagnostics.engine import INPUT_SEED, LayerRecord, Simulation, simulate
 from seedbed.core.diagnostics.network import Network, build_network
 from seedbed.core.diagnostics.unit_stats import SATURATION_RULES

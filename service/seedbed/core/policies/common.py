@@ -11,7 +11,7 @@ from typing import Any
 
 import mpmath
 
-from seedbed.core.recommend import Choice
+from seedbed.core.choice import Choice
 from seedbed.core.request.branches import Branch
 from seedbed.core.request.layers import AnyLayer
 from seedbed.core.request.network import NetworkRequest

@@ -6,8 +6,8 @@ from __future__ import annotations
 
 import math
 
+from seedbed.core.choice import Choice
 from seedbed.core.policies.common import PolicyOutcome, _fmt, _Net, _normal, _policy_field
-from seedbed.core.recommend import Choice
 from seedbed.core.references import cite, short_cite
 from seedbed.core.request.policy_models import (
     SCALED_RESIDUAL_BASE_STD,

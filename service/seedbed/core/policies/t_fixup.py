@@ -4,6 +4,7 @@ Initialization" (Algorithm 1 [from memory]).
 
 from __future__ import annotations
 
+from seedbed.core.choice import Choice
 from seedbed.core.policies.common import (
     PolicyOutcome,
     _fmt,
@@ -19,7 +20,6 @@ from seedbed.core.policies.transformer_stacks import (
     _stacks,
     _transformer_branches,
 )
-from seedbed.core.recommend import Choice
 from seedbed.core.references import cite, short_cite
 from seedbed.core.request.branches import Branch
 from seedbed.core.request.layers import EmbeddingLayer

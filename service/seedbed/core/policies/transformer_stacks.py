@@ -5,8 +5,8 @@ from __future__ import annotations
 from collections.abc import Callable
 from dataclasses import dataclass
 
+from seedbed.core.choice import Choice
 from seedbed.core.policies.common import Change, _Net, _policy_field
-from seedbed.core.recommend import Choice
 from seedbed.core.request.branches import Branch
 from seedbed.core.request.policy_models import (
     DeepNormPolicy,

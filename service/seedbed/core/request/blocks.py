@@ -16,7 +16,7 @@ plan, generation, diagnostics, web — sees only the six basic kinds.
 from __future__ import annotations
 
 import re
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
 from typing import TYPE_CHECKING, Annotated, Any, ClassVar, Literal, Union
 
 from pydantic import (
@@ -53,16 +53,16 @@ from seedbed.core.request.problems import (
     Allowed,
     Problem,
     RequestRejected,
-    describe_input,
     field_error,
 )
+from seedbed_client import wire_facts
 
 BlockNorm = Literal["pre", "post"]
 # Names of the layers and branches of one copy of a block: "<block>.<copy>.<part>".
-TRANSFORMER_LAYER_PARTS: tuple[str, ...] = ("attn_norm", "attn", "mlp_norm", "mlp_in", "mlp_out")
-TRANSFORMER_BRANCH_PARTS: tuple[str, ...] = ("attn_branch", "mlp_branch")
-CONV_LAYER_PARTS: tuple[str, ...] = ("conv1", "conv2", "norm1", "norm2")
-CONV_BRANCH_PART = "branch"
+TRANSFORMER_LAYER_PARTS: tuple[str, ...] = wire_facts.TRANSFORMER_LAYER_PARTS
+TRANSFORMER_BRANCH_PARTS: tuple[str, ...] = wire_facts.TRANSFORMER_BRANCH_PARTS
+CONV_LAYER_PARTS: tuple[str, ...] = wire_facts.CONV_LAYER_PARTS
+CONV_BRANCH_PART: str = wire_facts.CONV_BRANCH_PART
 
 
 class BlockBase(StrictModel):
@@ -240,9 +240,8 @@ BLOCK_MODELS: dict[str, type[BlockBase]] = {
     "transformer_block": TransformerBlock,
     "residual_conv_block": ResidualConvBlock,
 }
-AnyBlock = TransformerBlock | ResidualConvBlock
 
-LayerOrBlockSpec = Annotated[
+LayerOrBlockItem = Annotated[
     Union[  # noqa: UP007
         DenseLayer, ConvLayer, EmbeddingLayer, RecurrentLayer, AttentionLayer, NormLayer,
         TransformerBlock, ResidualConvBlock,
@@ -277,7 +276,7 @@ if TYPE_CHECKING:
     LayerList = list[AnyLayer]
 else:
     LayerList = Annotated[
-        list[LayerOrBlockSpec], Field(min_length=1), AfterValidator(_expand_blocks)
+        list[LayerOrBlockItem], Field(min_length=1), AfterValidator(_expand_blocks)
     ]
 
 
@@ -286,61 +285,22 @@ else:
 
 
 def _is_block(item: object) -> bool:
-    """A raw layer item that names a block kind (kind may be any JSON value here)."""
-    if not isinstance(item, Mapping):
-        return False
-    kind = item.get("kind")
-    return isinstance(kind, str) and kind in BLOCK_MODELS
+    return wire_facts.is_block_item(item)
 
 
 def _raw_count(item: object) -> int:
-    """Layers a raw layer item stands for, from its numbers alone (1 for anything unclear).
-
-    Anything malformed counts as one layer here and is reported by validation afterwards.
-    """
-    if not isinstance(item, Mapping) or not _is_block(item):
-        return 1
-    repeat = item.get("repeat", 1)
-    if isinstance(repeat, bool) or not isinstance(repeat, int) or repeat < 1:
-        repeat = 1
-    if item["kind"] == "transformer_block":
-        return repeat * len(TRANSFORMER_LAYER_PARTS)
-    return repeat * (2 if item.get("norm") is None else len(CONV_LAYER_PARTS))
-
-
-def _number(n: object) -> str:
-    """A count for a message; huge integers by their magnitude (str() of one may be refused)."""
-    if isinstance(n, int) and not isinstance(n, bool) and n.bit_length() > 80:
-        return f"about 10^{int(n.bit_length() * 0.30103)}"
-    return describe_input(n).removeprefix("the integer ")
+    return wire_facts.raw_layer_count(item)
 
 
 def check_expanded_count(data: object, limits: Limits) -> None:
-    """Refuse a body whose layers, after expanding block shorthands, exceed the layer limit.
-
-    Looks only at each block's kind, repeat and norm (no expansion, no validation), so a
-    repeat of 10**9 costs one multiplication. Call after `limits.check_layer_count`.
-    """
+    """Refuse a body whose layers, after expanding block shorthands, exceed the layer limit
+    (seedbed_client.wire_facts.expanded_count_refusal: the client runs the same check before
+    sending). Call after `limits.check_layer_count`."""
     if not isinstance(data, dict) or not isinstance(data.get("layers"), list):
         return
-    counts = [_raw_count(item) for item in data["layers"]]
-    total = sum(counts)
-    if total <= limits.max_layers:
-        return
-    biggest = max(range(len(counts)), key=counts.__getitem__)
-    item = data["layers"][biggest]
-    repeat = _number(item.get("repeat", 1))
-    what = (
-        f"; layers[{biggest}] (a {item['kind']} with repeat {repeat}) alone expands to "
-        f"{_number(counts[biggest])}"
-        if counts[biggest] > 1
-        else ""
-    )
-    field = f"layers[{biggest}].repeat" if counts[biggest] > limits.max_layers else "layers"
-    raise RequestRejected([Problem(
-        field, "too_large",
-        f"the layers expand to {_number(total)} layers{what}; the limit is {limits.max_layers} "
-        "layers per request, counted after expanding block shorthands")])  # fmt: skip
+    refusal = wire_facts.expanded_count_refusal(data["layers"], limits.max_layers)
+    if refusal is not None:
+        raise RequestRejected([Problem(*refusal)])
 
 
 def _activation(block: BlockBase) -> dict[str, Any]:

@@ -6,7 +6,7 @@ seedbed.core.request.blocks).
 
 from __future__ import annotations
 
-from typing import Annotated, Any, Literal, Union
+from typing import Annotated, Any, Literal
 
 from pydantic import ConfigDict, Field, ValidationInfo, field_validator, model_validator
 
@@ -384,14 +384,6 @@ class NormLayer(LayerBase):
         )
 
 
-LayerSpec = Annotated[
-    Union[DenseLayer, ConvLayer, EmbeddingLayer, RecurrentLayer, AttentionLayer, NormLayer],  # noqa: UP007
-    Field(discriminator="kind"),
-    Allowed(
-        "a layer object with name, kind (dense, conv, embedding, recurrent, attention, norm) "
-        "and the kind's size fields"
-    ),
-]
 LAYER_MODELS: dict[str, type[LayerBase]] = {
     "dense": DenseLayer,
     "conv": ConvLayer,

@@ -21,11 +21,12 @@ from dataclasses import dataclass, fields
 from pydantic import ValidationInfo
 
 from seedbed.core.request.problems import Problem, RequestRejected
+from seedbed_client import wire_facts
 
 # Cap on any single size in a request. 2**31 - 1 is the largest dimension every framework and
 # file format indexes with a signed 32-bit integer, and it keeps the product of a conv shape
 # (at most five sizes) far below anything that would make integer arithmetic slow.
-MAX_SIZE = 2**31 - 1
+MAX_SIZE = wire_facts.MAX_SIZE
 
 
 @dataclass(frozen=True)
@@ -48,11 +49,11 @@ class Limits:
       characters is generous for dotted module paths and keeps headers small.
     """
 
-    max_layers: int = 4096
-    max_tensor_elements: int = 1 << 28
-    max_request_elements: int = 1 << 30
-    max_orthogonal_dim: int = 8192
-    max_name_length: int = 128
+    max_layers: int = wire_facts.DEFAULT_MAX_LAYERS
+    max_tensor_elements: int = wire_facts.DEFAULT_MAX_TENSOR_ELEMENTS
+    max_request_elements: int = wire_facts.DEFAULT_MAX_REQUEST_ELEMENTS
+    max_orthogonal_dim: int = wire_facts.DEFAULT_MAX_ORTHOGONAL_DIM
+    max_name_length: int = wire_facts.DEFAULT_MAX_NAME_LENGTH
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -65,21 +66,15 @@ def check_layer_count(data: object, limits: Limits) -> None:
     """Refuse a body whose raw `layers` list is longer than allowed, before any item is read.
 
     Only the length of the list is looked at; anything else wrong with the body is left to
-    validation (which runs only when this passes).
+    validation (which runs only when this passes). The client runs the same check
+    (seedbed_client.wire_facts.layer_count_refusal).
     """
     if isinstance(data, dict):
         layers = data.get("layers")
-        if isinstance(layers, list | tuple) and len(layers) > limits.max_layers:
-            raise RequestRejected(
-                [
-                    Problem(
-                        "layers",
-                        "too_large",
-                        f"the request has {len(layers)} layers; the limit is "
-                        f"{limits.max_layers} per request",
-                    )
-                ]
-            )
+        if isinstance(layers, list | tuple):
+            refusal = wire_facts.layer_count_refusal(layers, limits.max_layers)
+            if refusal is not None:
+                raise RequestRejected([Problem(*refusal)])
 
 
 def limits_from_context(info: ValidationInfo) -> Limits:

@@ -16,7 +16,7 @@ from pydantic_core import InitErrorDetails, PydanticCustomError
 
 from seedbed.core.request.blocks import LayerList
 from seedbed.core.request.fields import StrictModel
-from seedbed.core.request.policy_models import POLICY_MODELS, POLICY_NAMES, POLICY_TEXT, DepthPolicy
+from seedbed.core.request.policy_models import POLICY_MODELS, POLICY_NAMES, POLICY_TEXT, PolicyField
 from seedbed.core.request.problems import (
     BODY,
     Allowed,
@@ -94,7 +94,7 @@ class NetworkRequest(StrictModel):
         "(transformer_block, residual_conv_block) expand into named basic layers.",
         examples=[_EXAMPLE_REQUEST["layers"][:2], _EXAMPLE_BLOCKS["layers"][1:2]],
     )
-    depth_policy: Annotated[DepthPolicy, Allowed(POLICY_TEXT)] | None = Field(
+    depth_policy: Annotated[PolicyField, Allowed(POLICY_TEXT)] | None = Field(
         default=None,
         description="A depth- or width-aware rule applied on top of the recommendations: "
         f"{', '.join(POLICY_NAMES)}. Omit it for the plain recommendations.",

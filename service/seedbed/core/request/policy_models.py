@@ -9,11 +9,10 @@ from pydantic import ConfigDict, Field, ValidationInfo, field_validator, model_v
 
 from seedbed.core.request.fields import NAME_TEXT, Positive, Size, StrictModel, checked_name
 from seedbed.core.request.problems import Allowed, field_error
+from seedbed_client import wire_facts
 
 Architecture = Literal["encoder", "decoder", "encoder_decoder"]
-POLICY_NAMES: tuple[str, ...] = (
-    "fixup", "skip_gate", "scaled_residual", "deepnorm", "t_fixup", "width_transfer"
-)  # fmt: skip
+POLICY_NAMES: tuple[str, ...] = wire_facts.POLICY_NAMES
 # The base std of GPT-2-style initialisation: common practice, not a derived value.
 SCALED_RESIDUAL_BASE_STD = 0.02
 
@@ -167,11 +166,8 @@ POLICY_MODELS: dict[str, type[StrictModel]] = {
     "t_fixup": TFixupPolicy,
     "width_transfer": WidthTransferPolicy,
 }
-AnyPolicy = (
-    FixupPolicy | SkipGatePolicy | ScaledResidualPolicy | DeepNormPolicy | TFixupPolicy
-    | WidthTransferPolicy
-)  # fmt: skip
-DepthPolicy = Annotated[
+# The `depth_policy` field's models: depth-aware rules and width transfer alike.
+PolicyField = Annotated[
     Union[  # noqa: UP007
         FixupPolicy, SkipGatePolicy, ScaledResidualPolicy, DeepNormPolicy, TFixupPolicy,
         WidthTransferPolicy,

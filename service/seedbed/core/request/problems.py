@@ -33,6 +33,8 @@ from typing import Any, Literal, Union, get_args, get_origin
 from pydantic import BaseModel, ValidationError
 from pydantic_core import PydanticCustomError
 
+from seedbed_client import wire_facts
+
 ProblemCode = Literal[
     "invalid_type",
     "invalid_value",
@@ -46,7 +48,7 @@ ProblemCode = Literal[
 PROBLEM_CODES: frozenset[str] = frozenset(get_args(ProblemCode))
 
 # The path used when the whole body is at fault (not a JSON object, ...).
-BODY = "(body)"
+BODY = wire_facts.BODY_FIELD
 
 
 @dataclass(frozen=True)
@@ -98,25 +100,7 @@ def field_error(code: ProblemCode, message: str, field: str | None = None) -> Py
 
 def describe_input(value: object) -> str:
     """Name a JSON value briefly, in JSON's terms (true, null, object ...), without huge reprs."""
-    if value is None:
-        return "null"
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, int):
-        # str() of a gigantic int is slow and may raise (Python's int-to-str digit limit).
-        if value.bit_length() > 80:
-            return f"an integer of about {int(value.bit_length() * 0.30103) + 1} digits"
-        return f"the integer {value}"
-    if isinstance(value, float):
-        return f"the number {value!r}"
-    if isinstance(value, str):
-        shown = value if len(value) <= 40 else value[:37] + "..."
-        return f"the string {shown!r}"
-    if isinstance(value, list | tuple):
-        return f"a list of {len(value)} items"
-    if isinstance(value, dict):
-        return "an object"
-    return f"a value of type {type(value).__name__}"
+    return wire_facts.describe_json_value(value)
 
 
 # ---------------------------------------------------------------------------------------------

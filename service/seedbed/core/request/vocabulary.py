@@ -7,7 +7,10 @@ sibling modules are built from these.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from typing import Literal
+
+from seedbed_client import wire_facts
 
 DType = Literal["float32", "float64", "float16", "bfloat16"]
 Layout = Literal["out_in", "in_out"]
@@ -47,9 +50,9 @@ GAIN_MAX = 1e6
 # 8.3 * std would not fit the dtype.
 NORMAL_EXTREME = 8.3
 
-LSTM_GATES: tuple[str, ...] = ("input", "forget", "cell", "output")
-GRU_GATES: tuple[str, ...] = ("reset", "update", "candidate")
-GATES: dict[str, tuple[str, ...]] = {"simple": ("candidate",), "lstm": LSTM_GATES, "gru": GRU_GATES}
+GATES: Mapping[str, tuple[str, ...]] = wire_facts.GATES
+LSTM_GATES: tuple[str, ...] = GATES["lstm"]
+GRU_GATES: tuple[str, ...] = GATES["gru"]
 
 RANDOM_METHODS = frozenset({"symmetric_uniform", "glorot", "he", "lecun"})
 FAN_METHODS = frozenset({"symmetric_uniform", "he", "lecun"})  # glorot's fan is fixed: mean

@@ -28,8 +28,8 @@ from seedbed.core.diagnostics import (
     diagnose,
     diagnosis_document,
 )
-from seedbed.web.body import read_json_body
 from seedbed.web.dependencies import diagnostic_limits_of, settings_of
+from seedbed.web.json_body import read_json_body
 from seedbed.web.openapi_doc import REQUEST_SCHEMA_NAME, error_responses
 from seedbed.web.response_models import DiagnosisDocument
 
@@ -143,7 +143,7 @@ async def diagnose_signal(
     data = await read_json_body(request, settings.max_body_bytes)
     budget = diagnostic_limits_of(request)
     document = await run_in_threadpool(_document, data, settings.limits, budget,
-                                       settings.generation_threads)
+                                       settings.threads_per_request())
     if chart == "svg":
         return Response(chart_svg(document), media_type=SVG_MEDIA_TYPE)
     if chart == "html":

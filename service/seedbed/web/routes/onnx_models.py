@@ -14,22 +14,21 @@ from collections.abc import Iterator
 from typing import Any, Literal
 
 from fastapi import APIRouter, Query, Request, Response
-from fastapi.responses import JSONResponse, StreamingResponse
+from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.concurrency import run_in_threadpool
 
 from seedbed.core.request.problems import RequestRejected
-from seedbed.formats import EncodedBody, FormatInputError, OutgoingTensor, encode_body
+from seedbed.formats import FormatInputError, OutgoingTensor
 from seedbed.formats.multipart_in import FormError, FormPartsParser, PartInfo, boundary_of
 from seedbed.onnx_import import ModelRefused
 from seedbed.onnx_import.assembly import binding_bytes
 from seedbed.onnx_import.pipeline import ImportedModel, import_model
 from seedbed.onnx_import.rewrite import seeded_model
 from seedbed.web.dependencies import settings_of
-from seedbed.web.documents import response_document
 from seedbed.web.errors import ApiError, Fault
-from seedbed.web.etag import strong_etag
 from seedbed.web.openapi_doc import error_responses
+from seedbed.web.weights_response import Rearranged, WeightsOptions, weights_response
 
 router = APIRouter(tags=["onnx"])
 
@@ -60,6 +59,41 @@ _KEEP_QUERY = Query(
     "here.",
     examples=[["attention_mask"]],
 )
+
+
+_ACTIVATION_QUERY = Query(
+    default_factory=list,
+    description="Replace the activation read for a layer: LAYER=NAME or LAYER=NAME:PARAM "
+    "(repeat the parameter), e.g. mlp.fc=gelu or probe=leaky_relu:0.1. The layer names are the "
+    "review's; the inference table then says `caller override`.",
+    examples=[["mlp.fc=gelu"]],
+)
+
+
+def _activation_overrides(items: list[str]) -> dict[str, tuple[str, float | None]]:
+    out: dict[str, tuple[str, float | None]] = {}
+    for item in items:
+        layer, sep, rest = item.partition("=")
+        name, colon, param = rest.partition(":")
+        value: float | None = None
+        try:
+            value = float(param) if colon else None
+        except ValueError:
+            sep = ""
+        if not sep or not layer or not name or (value is not None and value != value):
+            raise ApiError.one(
+                422,
+                "activation",
+                "invalid_value",
+                f"activation {item[:80]!r} is not LAYER=NAME or "
+                "LAYER=NAME:PARAM (e.g. probe=leaky_relu:0.1)",
+            )
+        if layer in out:
+            raise ApiError.one(
+                422, "activation", "duplicate_name", f"activation names layer {layer!r} twice"
+            )
+        out[layer] = (name, value)
+    return out
 
 
 def _too_large(seen: str, limit: int) -> ApiError:
@@ -170,12 +204,21 @@ def _seed_value(text: str) -> int | str:
     return text
 
 
-async def _imported(request: Request, seed: str, keep: list[str]) -> ImportedModel:
+async def _imported(
+    request: Request, seed: str, keep: list[str], activation: list[str]
+) -> ImportedModel:
+    overrides = _activation_overrides(activation)
     data = await read_model(request)
     settings = settings_of(request)
     try:
         imported: ImportedModel = await run_in_threadpool(
-            import_model, data, settings.max_onnx_bytes, _seed_value(seed), keep, settings.limits
+            import_model,
+            data,
+            settings.max_onnx_bytes,
+            _seed_value(seed),
+            keep,
+            settings.limits,
+            overrides,
         )
     except ModelRefused as exc:
         field = exc.field if exc.field != "keep" else "keep"
@@ -323,13 +366,16 @@ _ERRORS = error_responses(
     openapi_extra=_UPLOAD,
 )
 async def review_onnx(
-    request: Request, seed: str = _SEED_QUERY, keep: list[str] = _KEEP_QUERY
+    request: Request,
+    seed: str = _SEED_QUERY,
+    keep: list[str] = _KEEP_QUERY,
+    activation: list[str] = _ACTIVATION_QUERY,
 ) -> JSONResponse:
-    imported = await _imported(request, seed, keep)
+    imported = await _imported(request, seed, keep, activation)
     return JSONResponse(imported.review())
 
 
-def _outgoing(imported: ImportedModel) -> list[OutgoingTensor]:
+def _outgoing(imported: ImportedModel, chunk_bytes: int = 4 << 20) -> list[OutgoingTensor]:
     plan = imported.plan
     out = []
     for binding in imported.translation.bindings:
@@ -343,7 +389,7 @@ def _outgoing(imported: ImportedModel) -> list[OutgoingTensor]:
         nbytes *= plan.tensors[0].itemsize
 
         def chunks(b: Any = binding) -> Iterator[bytes]:
-            return binding_bytes(plan, b)
+            return binding_bytes(plan, b, chunk_bytes)
 
         out.append(
             OutgoingTensor(
@@ -356,16 +402,6 @@ def _outgoing(imported: ImportedModel) -> list[OutgoingTensor]:
             )
         )
     return out
-
-
-def _encode(imported: ImportedModel, fmt: str) -> EncodedBody:
-    doc = response_document(imported.plan, None)
-    doc["onnx"] = {
-        "request": imported.translation.request,
-        "kept": list(imported.translation.kept),
-        "constants": list(imported.translation.constants),
-    }
-    return encode_body(fmt, doc, _outgoing(imported))
 
 
 @router.post(
@@ -394,14 +430,14 @@ async def onnx_weights(
     request: Request,
     seed: str = _SEED_QUERY,
     keep: list[str] = _KEEP_QUERY,
+    activation: list[str] = _ACTIVATION_QUERY,
     format: WeightsFormat = Query(  # noqa: B008 - FastAPI's parameter declaration style
         "json", description="Container: json, npz or safetensors, as for POST /v1/weights."
     ),
 ) -> Response:
-    imported = await _imported(request, seed, keep)
-    settings = settings_of(request)
+    imported = await _imported(request, seed, keep, activation)
     try:
-        encoded = await run_in_threadpool(_encode, imported, format)
+        _outgoing(imported)  # initializer names a container cannot hold are refused here
     except FormatInputError as exc:
         raise ApiError.one(
             422,
@@ -409,33 +445,20 @@ async def onnx_weights(
             "unservable_name",
             f"{exc}; ask for POST /v1/onnx/model, which keeps any name",
         ) from None
-    if format == "json" and encoded.content_length > settings.max_json_response_bytes:
-        raise ApiError.one(
-            413,
-            "format",
-            "json_too_large",
-            f"this JSON response would be {encoded.content_length} bytes, above "
-            f"the limit of {settings.max_json_response_bytes} "
-            "(SEEDBED_MAX_JSON_RESPONSE_BYTES); ask for format=npz or "
-            "format=safetensors",
-        )
-    plan = imported.plan
-    etag = strong_etag(
-        "onnx-weights",
-        request=plan.canonical_request,
-        algorithm=plan.algorithm,
-        format=format,
-        bindings=[b.document() for b in imported.translation.bindings],
+    translation = imported.translation
+    rearranged = Rearranged(
+        tensors=lambda: _outgoing(imported, settings_of(request).chunk_bytes),
+        document={
+            "onnx": {
+                "request": translation.request,
+                "kept": list(translation.kept),
+                "constants": list(translation.constants),
+            }
+        },
+        etag_parts={"onnx_bindings": [b.document() for b in translation.bindings]},
     )
-    if any(t.reproducible != "exact" for t in plan.tensors):
-        etag = "W/" + etag  # orthogonal values may differ in the last bits between BLAS builds
-    headers = {
-        "ETag": etag,
-        "X-Seedbed-Algorithm": plan.algorithm,
-        "Content-Length": str(encoded.content_length),
-        "Content-Disposition": f'attachment; filename="weights.{format}"',
-    }
-    return StreamingResponse(encoded.body, media_type=encoded.media_type, headers=headers)
+    options = WeightsOptions(format=format, filename="weights", rearranged=rearranged)
+    return await weights_response(request, imported.plan, options)
 
 
 @router.post(
@@ -456,9 +479,12 @@ async def onnx_weights(
     openapi_extra=_UPLOAD,
 )
 async def onnx_model(
-    request: Request, seed: str = _SEED_QUERY, keep: list[str] = _KEEP_QUERY
+    request: Request,
+    seed: str = _SEED_QUERY,
+    keep: list[str] = _KEEP_QUERY,
+    activation: list[str] = _ACTIVATION_QUERY,
 ) -> Response:
-    imported = await _imported(request, seed, keep)
+    imported = await _imported(request, seed, keep, activation)
     try:
         body: bytes = await run_in_threadpool(
             seeded_model, imported.loaded.model, imported.plan, imported.translation.bindings

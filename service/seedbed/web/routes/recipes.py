@@ -55,10 +55,10 @@ from seedbed.registry.store import (
     list_versions,
     publish_unless_same,
 )
-from seedbed.web.body import read_json_body
 from seedbed.web.dependencies import settings_of
 from seedbed.web.errors import ApiError
 from seedbed.web.etag import body_etag, none_match
+from seedbed.web.json_body import read_json_body
 from seedbed.web.openapi_doc import REQUEST_SCHEMA_NAME, error_responses
 from seedbed.web.response_models import (
     PublishedRecipe,
@@ -302,7 +302,7 @@ async def publish_recipe(request: Request) -> Response:
         raise _refused(exc) from None
     body = await read_json_body(request, settings.max_body_bytes)
     prepared: PreparedRecipe = await run_in_threadpool(
-        prepare_recipe, body, settings.limits, settings.generation_threads
+        prepare_recipe, body, settings.limits, settings.threads_per_request()
     )
     try:
         summary, created = await _db(publish_unless_same, registry.engine, prepared, token)

@@ -202,3 +202,85 @@ def test_table_shows_every_layer_with_its_sources() -> None:
     ]
     assert lines[3].split()[:4] == ["b", "dense", "relu", "forward"]
     assert "graph read from: forward hooks" in lines
+
+
+class FusedAttentionBlock(nn.Module):
+    """Hand-written attention with one fused projection split into q, k, v (a common way to
+    write GPT-style blocks), torch's scaled_dot_product_attention, and a residual add."""
+
+    def __init__(self, dim: int = 16, heads: int = 2) -> None:
+        super().__init__()
+        self.heads = heads
+        self.norm = nn.LayerNorm(dim)
+        self.qkv = nn.Linear(dim, 3 * dim)
+        self.out = nn.Linear(dim, dim)
+
+    def forward(self, x: torch.Tensor) -> torch.Tensor:
+        b, t, d = x.shape
+        q, k, v = self.qkv(self.norm(x)).split(d, dim=2)
+        q, k, v = (z.view(b, t, self.heads, d // self.heads).transpose(1, 2) for z in (q, k, v))
+        y = F.scaled_dot_product_attention(q, k, v, is_causal=True)
+        return x + self.out(y.transpose(1, 2).contiguous().view(b, t, d))
+
+
+@pytest.mark.parametrize("graph", ["trace", "hooks"])
+def test_fused_projection_into_attention_is_linear_and_in_the_branch(graph: str) -> None:
+    report = describe_module(
+        FusedAttentionBlock(), seed=1, graph=graph, example_input=torch.randn(2, 5, 16)
+    )
+    layers = {layer["name"]: layer for layer in report.request["layers"]}
+    assert layers["qkv"]["activation"] == "linear"
+    assert {layers[n]["branch"] for n in ("norm", "qkv", "out")} == {"out.skip"}
+    assert layers["out"]["role"] == "residual_out"
+
+
+def test_declared_input_shape_builds_the_sample_for_the_forward_pass() -> None:
+    # The sample built from the embedding's size has 8 positions; this decoder's mask needs 16.
+    with pytest.raises(SpecInvalid, match="forward pass"):
+        describe_module(tm.TimetableDecoder(blocks=1), seed=1, graph="hooks")
+    report = describe_module(
+        tm.TimetableDecoder(blocks=1), seed=1, graph="hooks", input_shape=(2, 16)
+    )
+    assert report.graph_source == "forward hooks"
+    assert any("declared shape (2, 16)" in n for n in report.notes)
+    assert report.request["layers"] == tm.decoder_request(blocks=1)["layers"]
+
+
+class TiedWithBias(nn.Module):
+    def __init__(self) -> None:
+        super().__init__()
+        self.emb = nn.Embedding(20, 6)
+        self.head = nn.Linear(6, 20)
+        self.head.weight = self.emb.weight
+
+    def forward(self, ids: torch.Tensor) -> torch.Tensor:
+        return self.head(self.emb(ids))
+
+
+def test_tied_head_with_a_bias_gets_a_zero_bias_and_a_note() -> None:
+    report = describe_module(TiedWithBias(), seed=1)
+    assert [layer["name"] for layer in report.request["layers"]] == ["emb"]
+    zero = [c for c in report.copies if c.parameter == "head.bias"]
+    assert len(zero) == 1 and zero[0].zero
+    assert any(
+        "head: weight tied to emb.weight" in n and "bias set to zero" in n for n in report.notes
+    )
+
+
+def test_projection_skip_is_reported_with_what_it_reads() -> None:
+    report = describe_module(tm.KilnNet(), seed=1)
+    (note,) = [n for n in report.notes if "projection on the skip path" in n]
+    assert "(stage.1.down.0, stage.1.down.1)" in note
+    assert "stage.1.down.0 reads the block's input, the output of stage.0.bn3" in note
+    layers = {layer["name"]: layer for layer in report.request["layers"]}
+    assert (
+        "branch" not in layers["stage.1.conv1"]
+        and layers["stage.1.conv3"]["role"] == "residual_out"
+    )
+
+
+def test_table_with_reasons_shows_the_evidence() -> None:
+    text = describe_module(tm.GaugeModel(), seed=1).table(reasons=True)
+    assert "    followed by tanh" in text
+    assert "    feeds a residual add" in text
+    assert "    feeds the network output" in text
