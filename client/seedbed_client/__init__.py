@@ -5,6 +5,8 @@
     net = NetworkSpec(seed=7).add(DenseSpec("body", 32, 16, activation="relu"))
     with Client("http://127.0.0.1:8600") as client:
         weights = client.weights(net, format="safetensors")   # name -> numpy array, verified
+        pinned = client.weights("vent-control@latest")         # a team recipe's weights
+        local = client.weights(net, origin="local")            # plan only; bytes made here
 
 The framework adapter lives in `seedbed_client.torch_adapter` (extra "torch"); the command
 line in `seedbed_client.cli` (`python -m seedbed_client --help`).
@@ -52,11 +54,22 @@ from seedbed_client.layers import (
     request_problems,
 )
 from seedbed_client.limits import RequestLimits, limit_problems
+from seedbed_client.records import (
+    AuditFinding,
+    AuditReport,
+    DiagnosisReport,
+    DiagnosisRun,
+    PublishedRecipe,
+    RecipeSummary,
+    StoredRecipe,
+)
 from seedbed_client.retry import RetryPolicy
 
 __all__ = [
     "AsyncClient",
     "AttentionSpec",
+    "AuditFinding",
+    "AuditReport",
     "BFloat16AsBits",
     "BadRequest",
     "CacheCorrupted",
@@ -64,6 +77,8 @@ __all__ = [
     "ConvSpec",
     "DenseSpec",
     "DepthPolicy",
+    "DiagnosisReport",
+    "DiagnosisRun",
     "EmbeddingSpec",
     "InitOverride",
     "Inspection",
@@ -73,6 +88,8 @@ __all__ = [
     "NormSpec",
     "NotFound",
     "Problem",
+    "PublishedRecipe",
+    "RecipeSummary",
     "RecurrentSpec",
     "RequestInvalid",
     "RequestLimits",
@@ -84,6 +101,7 @@ __all__ = [
     "ServiceError",
     "ServiceUnavailable",
     "SpecInvalid",
+    "StoredRecipe",
     "TensorCheck",
     "Timeouts",
     "TransformerBlockSpec",

@@ -2,11 +2,16 @@
 
 Layout under the cache directory:
 
-    v1/blobs/<sha256 of the body>      a response body exactly as received (shared by keys
-                                       whose bodies are identical)
-    v1/entries/<key>.json              which blob answers a request key, its ETag and format;
-                                       the file's modification time is its last use
-    v1/tmp/                            blobs being written; renamed into blobs/ when complete
+    v2/by-content/<sha256 of the body>   a response body exactly as received (shared by keys
+                                         whose bodies are identical)
+    v2/by-request/<key>.json             which body answers a request key, its ETag, format
+                                         and labels (a recipe's service, name and version);
+                                         the file's modification time is its last use
+    v2/partial/                          bodies being written; renamed into by-content/ when
+                                         complete
+
+A cache written by earlier clients (`v1/`, whose folders were named otherwise) is moved into
+this layout the first time a client opens it: its folders are renamed, nothing is copied.
 
 The key is the SHA-256 of the canonical request JSON plus the format and tensor/rows selection
 (`wire.WeightsCall.cache_key`). Every write is a temporary file renamed into place, the blob
@@ -85,6 +90,7 @@ class CacheEntry:
     size: int
     entry_path: Path
     blob_path: Path
+    labels: Mapping[str, Any] | None = None
 
 
 class WeightCache:
@@ -95,10 +101,24 @@ class WeightCache:
             raise ValueError(f"cache_max_bytes must be a whole number >= 0, got {max_bytes!r}")
         self.directory = Path(directory).expanduser()
         self.max_bytes = max_bytes
-        root = self.directory / "v1"
-        self._blobs = root / "blobs"
-        self._entries = root / "entries"
-        self._tmp = root / "tmp"
+        root = self.directory / "v2"
+        self._blobs = root / "by-content"
+        self._entries = root / "by-request"
+        self._tmp = root / "partial"
+        self._migrate_v1(root)
+
+    def _migrate_v1(self, root: Path) -> None:
+        """Adopt a v1 cache by renaming its folders (entries name bodies the same way)."""
+        old = self.directory / "v1"
+        if root.exists() or not old.is_dir():
+            return
+        # Another process may be migrating too: whoever renames first wins, the rest find v2.
+        with contextlib.suppress(OSError):
+            root.mkdir(parents=True, exist_ok=True)
+            for before, after in (("blobs", self._blobs), ("entries", self._entries)):
+                if (old / before).is_dir() and not after.exists():
+                    os.replace(old / before, after)
+            shutil.rmtree(old, ignore_errors=True)
 
     # --- reading -------------------------------------------------------------------------------
 
@@ -106,7 +126,8 @@ class WeightCache:
         path = self._entries / f"{key}.json"
         try:
             doc = json.loads(path.read_text(encoding="utf-8"))
-            blob = str(doc["blob"])
+            blob = str(doc["content"] if "content" in doc else doc["blob"])
+            labels = doc.get("labels")
             entry = CacheEntry(
                 key=key,
                 blob=blob,
@@ -115,6 +136,7 @@ class WeightCache:
                 size=int(doc["size"]),
                 entry_path=path,
                 blob_path=self._blobs / blob,
+                labels=labels if isinstance(labels, dict) else None,
             )
         except FileNotFoundError:
             return None
@@ -130,7 +152,7 @@ class WeightCache:
     def touch(self, entry: CacheEntry, etag: str | None = None) -> None:
         """Mark an entry used now (LRU order); record a new ETag if the service sent one."""
         if etag is not None and etag != entry.etag:
-            self._write_entry(entry.key, entry.blob, entry.format, etag, entry.size)
+            self._write_entry(entry.key, entry.blob, entry.format, etag, entry.size, entry.labels)
             return
         # A read-only or vanished entry only loses its place in the LRU order.
         with contextlib.suppress(OSError):
@@ -150,16 +172,24 @@ class WeightCache:
         digest: str,
         fmt: str,
         etag: str | None,
+        *,
+        labels: Mapping[str, Any] | None = None,
+        move: bool = False,
     ) -> CacheEntry | None:
         """Keep a verified body (in memory, or a file that is copied) under `key`.
 
-        `digest` is the body's sha256, its name in blobs/. Returns None when the body alone is
-        larger than the cap (nothing is stored then).
+        `digest` is the body's sha256, its name in by-content/. With `move`, a file on the same
+        file system is renamed in instead of copied. Returns None when the body alone is larger
+        than the cap (nothing is stored then).
         """
         size = body.stat().st_size if isinstance(body, Path) else len(body)
         if size > self.max_bytes:
             return None
         target = self._blobs / digest
+        if move and isinstance(body, Path) and not target.is_file():
+            target.parent.mkdir(parents=True, exist_ok=True)
+            with contextlib.suppress(OSError):  # another file system: copy below instead
+                os.replace(body, target)
         if not target.is_file():  # an identical body may be stored already under another key
             self._tmp.mkdir(parents=True, exist_ok=True)
             target.parent.mkdir(parents=True, exist_ok=True)
@@ -177,13 +207,43 @@ class WeightCache:
             except BaseException:
                 Path(name).unlink(missing_ok=True)
                 raise
-        self._write_entry(key, digest, fmt, etag, size)
+        self._write_entry(key, digest, fmt, etag, size, labels)
         self.evict(keep=key)
         return self.lookup(key)
 
-    def _write_entry(self, key: str, blob: str, fmt: str, etag: str | None, size: int) -> None:
+    def partial_dir(self) -> Path:
+        """Where downloads bound for this cache are written (same file system as by-content/)."""
+        self._tmp.mkdir(parents=True, exist_ok=True)
+        return self._tmp
+
+    def newest_labelled(self, **labels: Any) -> CacheEntry | None:
+        """The entry with these labels and the highest `version` label (recipes offline)."""
+        best: CacheEntry | None = None
+        for _, path, _ in self._all_entries():
+            entry = self.lookup(path.name.removesuffix(".json"))
+            got = entry.labels if entry is not None else None
+            if entry is None or got is None or any(got.get(k) != v for k, v in labels.items()):
+                continue
+            version = got.get("version")
+            if not isinstance(version, int):
+                continue
+            if best is None or version > int((best.labels or {}).get("version", 0)):
+                best = entry
+        return best
+
+    def _write_entry(
+        self,
+        key: str,
+        blob: str,
+        fmt: str,
+        etag: str | None,
+        size: int,
+        labels: Mapping[str, Any] | None = None,
+    ) -> None:
         self._entries.mkdir(parents=True, exist_ok=True)
-        doc: dict[str, Any] = {"blob": blob, "etag": etag, "format": fmt, "size": size}
+        doc: dict[str, Any] = {"content": blob, "etag": etag, "format": fmt, "size": size}
+        if labels:
+            doc["labels"] = dict(labels)
         fd, name = tempfile.mkstemp(prefix="entry-", suffix=".tmp", dir=self._entries)
         try:
             with os.fdopen(fd, "w", encoding="utf-8") as fh:
@@ -201,7 +261,8 @@ class WeightCache:
         out = []
         for path in self._entries.glob("*.json"):
             try:
-                blob = str(json.loads(path.read_text(encoding="utf-8"))["blob"])
+                doc = json.loads(path.read_text(encoding="utf-8"))
+                blob = str(doc["content"] if "content" in doc else doc["blob"])
                 out.append((path.stat().st_mtime, path, blob))
             except (OSError, ValueError, KeyError, TypeError):
                 path.unlink(missing_ok=True)
@@ -241,7 +302,7 @@ class WeightCache:
                 total -= sizes[blob]
 
     def size_bytes(self) -> int:
-        """Bytes held in blobs now."""
+        """Bytes held in by-content/ now."""
         if not self._blobs.is_dir():
             return 0
         return sum(p.stat().st_size for p in self._blobs.glob("*") if p.is_file())

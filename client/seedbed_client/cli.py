@@ -1,8 +1,14 @@
-"""Command line: `fetch`, `verify` and `show`, under `seedbed` or `python -m seedbed_client`.
+"""Command line: `fetch`, `verify`, `show`, `recipes`, `audit`, `diagnose`, under `seedbed` or
+`python -m seedbed_client`.
 
     seedbed fetch request.json -o weights.safetensors     download, verify, write atomically
+    seedbed fetch --recipe hive@latest -o hive.npz        a published recipe's weights
     seedbed verify weights.safetensors                    recompute every sha256 offline
+    seedbed verify w.npz --against request.json           ... and compare with what it should be
     seedbed show request.json                             the plan as a readable table
+    seedbed recipes list | show NAME@3 | publish NAME request.json
+    seedbed audit start.npz --request request.json        exit 5 on an error-level finding
+    seedbed diagnose request.json --chart depth.svg       exit 5 unless the request is stable
 
 Exit codes (the same for every subcommand):
     0  ok
@@ -12,6 +18,7 @@ Exit codes (the same for every subcommand):
        client refuses before sending
     3  the service answered with an error (4xx, or 5xx after every retry)
     4  the service could not be reached (after every retry)
+    5  audit / diagnose: the check ran and found an error-level problem (a CI gate)
 
 The server is `--server`, else SEEDBED_URL, else http://127.0.0.1:8600.
 """
@@ -27,6 +34,7 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any, TextIO
 
+from seedbed_client import cli_checks as checks
 from seedbed_client._version import __version__
 from seedbed_client.cli_shared import (
     EXIT_MISMATCH,
@@ -38,7 +46,7 @@ from seedbed_client.cli_shared import (
 )
 from seedbed_client.cli_shared import client_from_args as _client
 from seedbed_client.client import DEFAULT_URL, ENV_URL
-from seedbed_client.containers import inspect_body, sniff_format
+from seedbed_client.containers import inspect_body, page_releaser, sniff_format
 from seedbed_client.errors import (
     IntegrityError,
     SeedbedError,
@@ -121,7 +129,9 @@ def _add_service_options(parser: argparse.ArgumentParser) -> None:
 
 
 def _fetch(args: argparse.Namespace) -> int:
-    request = _read_request(args.request)
+    if (args.request is None) == (args.recipe is None):
+        raise UsageProblem("give a request file or --recipe NAME@VERSION (one of them)")
+    request: Any = args.recipe if args.request is None else _read_request(args.request)
     out: TextIO = sys.stderr
     show_bar = args.progress == "always" or (args.progress == "auto" and out.isatty())
     bar = ProgressBar(out, always=args.progress == "always") if show_bar else None
@@ -134,18 +144,23 @@ def _fetch(args: argparse.Namespace) -> int:
                 tensor=args.tensor,
                 rows=args.rows,
                 progress=bar,
+                origin=args.origin,
             )
         finally:
             if bar is not None:
                 bar.done()
     count = len(saved.manifest.get("tensors", []))
     origin = {
+        "local": "generated on this machine from the service's plan",
         "service": "downloaded",
         "revalidated": "cached, confirmed by the service",
         "cache": "cached; the service was not reachable",
     }[saved.source]
+    if saved.note:
+        print(f"seedbed: warning: {saved.note}", file=sys.stderr)
+    recipe = f" of {saved.recipe}" if saved.recipe else ""
     print(
-        f"{saved.path}: {saved.format}, {saved.size} bytes, {count} tensor"
+        f"{saved.path}{recipe}: {saved.format}, {saved.size} bytes, {count} tensor"
         f"{'s' if count != 1 else ''} verified ({origin}); algorithm "
         f"{saved.manifest.get('algorithm', '?')}"
     )
@@ -164,7 +179,7 @@ def verify_file(path: Path, fmt: WeightFormat | None, stream: TextIO) -> int:
     except OSError as exc:
         raise UsageProblem(f"cannot read {str(path)!r}: {exc}") from None
     chosen = fmt or sniff_format(buffer)
-    inspection = inspect_body(buffer, chosen)
+    inspection = inspect_body(buffer, chosen, page_releaser(buffer))
     for t in inspection.tensors:
         mark = "ok " if t.ok else "BAD"
         detail = "" if t.ok else f"  ({t.problem})"
@@ -185,7 +200,61 @@ def verify_file(path: Path, fmt: WeightFormat | None, stream: TextIO) -> int:
 
 
 def _verify(args: argparse.Namespace) -> int:
-    return verify_file(Path(args.file), args.format, sys.stdout)
+    code = verify_file(Path(args.file), args.format, sys.stdout)
+    if args.against is None or code != EXIT_OK:
+        return code
+    source, what = checks.against_source(args.against, _read_request)
+    with open(args.file, "rb") as fh:
+        buffer = mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ)
+        chosen = args.format or sniff_format(buffer)
+        inspection = inspect_body(buffer, chosen, page_releaser(buffer))
+        with _client(args, cache=True) as client:
+            expected = client.expected_digests(source, origin=args.origin)
+        return checks.compare_with(inspection, expected, what, sys.stdout)
+
+
+# --- recipes, audit, diagnose ------------------------------------------------------------------
+
+
+def _recipes(args: argparse.Namespace) -> int:
+    with _client(args, cache=True) as client:
+        if args.action == "list":
+            return checks.recipes_list(client, sys.stdout)
+        if args.action == "show":
+            return checks.recipe_show(client, args.ref, sys.stdout, plan_table,
+                                      checks.terminal_width(None))
+        request = _read_request(args.request)
+        return checks.recipe_publish(client, args.ref, request, args.description,
+                                     args.key_file, sys.stdout)
+
+
+def _audit(args: argparse.Namespace) -> int:
+    request = None if args.request is None else _read_request(args.request)
+    with _client(args, cache=False) as client:
+        report = client.audit(args.file, request)
+    if args.json:
+        print(json.dumps(report.document, indent=2, sort_keys=True))
+        return EXIT_OK if report.passed else checks.EXIT_FINDINGS
+    return checks.print_audit(report, sys.stdout)
+
+
+def _diagnose(args: argparse.Namespace) -> int:
+    request = _read_request(args.request)
+    try:
+        alternatives = checks.read_alternatives(args.alternatives)
+    except argparse.ArgumentTypeError as exc:
+        raise UsageProblem(str(exc)) from None
+    with _client(args, cache=False) as client:
+        report = client.diagnose(request, alternatives, batch=args.batch)
+        if args.chart:
+            kind = "html" if args.chart.lower().endswith((".html", ".htm")) else "svg"
+            chart = client.diagnosis_chart(request, alternatives, batch=args.batch, kind=kind)
+            Path(args.chart).write_text(chart, encoding="utf-8")
+            print(f"chart written to {args.chart}", file=sys.stderr)
+    if args.json:
+        print(json.dumps(report.document, indent=2, sort_keys=True))
+        return EXIT_OK if report.passed else checks.EXIT_FINDINGS
+    return checks.print_diagnosis(report, sys.stdout)
 
 
 # --- show ------------------------------------------------------------------------------------
@@ -293,12 +362,20 @@ def register(subparsers: Any) -> None:
         "OUTPUT (written beside it and renamed, so a partial file never appears). The format "
         "comes from --format or OUTPUT's suffix. Uses the local cache unless --no-cache.",
     )
-    fetch.add_argument("request", help="request JSON file, or - for standard input")
+    fetch.add_argument("request", nargs="?", help="request JSON file, or - for standard input")
+    fetch.add_argument("--recipe", metavar="NAME@VERSION",
+                       help="a published recipe instead of a request file (NAME@latest, or a "
+                       "bare NAME, is the newest version)")
     fetch.add_argument("-o", "--output", required=True, help="file to write")
     fetch.add_argument("--format", choices=FORMATS, help="json, npz or safetensors")
     fetch.add_argument("--tensor", metavar="NAME", help="only this tensor")
     fetch.add_argument("--rows", metavar="START:STOP", help="only these rows of --tensor")
     fetch.add_argument("--no-cache", action="store_true", help="neither read nor fill the cache")
+    fetch.add_argument(
+        "--origin", choices=("service", "local"), default="service",
+        help="service (default): download the weights; local: fetch only the plan and make "
+        "every tensor here (npz or safetensors; the same tensors and digests)",
+    )
     fetch.add_argument(
         "--cache-dir",
         metavar="DIR",
@@ -325,7 +402,71 @@ def register(subparsers: Any) -> None:
     verify.add_argument(
         "--format", choices=FORMATS, help="the file's format (default: recognised from its bytes)"
     )
+    verify.add_argument(
+        "--against", metavar="REQUEST.json|NAME@VERSION",
+        help="also check every tensor against what it should be: a request (planned by the "
+        "service, digests computed here) or a published recipe (its stored fingerprints)",
+    )
+    verify.add_argument(
+        "--origin", choices=("local", "service"), default="local",
+        help="with a request: compute the expected digests here (local, default) or download "
+        "the service's weights (service)",
+    )
+    _add_service_options(verify)
     verify.set_defaults(**{_HANDLER: _verify})
+
+    recipes = subparsers.add_parser(
+        "recipes", help="list, show and publish team recipes",
+        description="Team recipes: list the names, show one version (NAME@VERSION, "
+        "NAME@latest, or NAME for the newest) with its plan, or publish a request file under a "
+        "name. Publishing takes the key from SEEDBED_PUBLISH_KEY, --key-file or "
+        "SEEDBED_PUBLISH_KEY_FILE; never from the command line.",
+    )
+    actions = recipes.add_subparsers(dest="action", metavar="ACTION", required=True)
+    actions.add_parser("list", help="every recipe name with its newest version")
+    show_recipe = actions.add_parser("show", help="one version and its plan")
+    show_recipe.add_argument("ref", metavar="NAME[@VERSION]")
+    publish = actions.add_parser("publish", help="publish a request file under a name")
+    publish.add_argument("ref", metavar="NAME")
+    publish.add_argument("request", help="request JSON file, or - for standard input")
+    publish.add_argument("--description", default="", help="what this version is for")
+    publish.add_argument("--key-file", metavar="PATH",
+                         help="file holding the publishing key (default SEEDBED_PUBLISH_KEY, "
+                         "else the file SEEDBED_PUBLISH_KEY_FILE names)")
+    # On each action only: argparse lets a sub-parser's defaults overwrite its parent's values.
+    for sub in actions.choices.values():
+        _add_service_options(sub)
+    recipes.set_defaults(**{_HANDLER: _recipes})
+
+    audit = subparsers.add_parser(
+        "audit", help="audit a weights file; exit 5 on an error-level finding",
+        description="Send an NPZ or safetensors file to the service's audit and print its "
+        "findings. Exit code 5 when any finding is an error (usable as a CI gate), 0 "
+        "otherwise. The audit checks a starting point, not a trained model.",
+    )
+    audit.add_argument("file", help="the weights file")
+    audit.add_argument("--request", metavar="REQUEST.json",
+                       help="the request describing the network, to compare with its plan")
+    audit.add_argument("--json", action="store_true", help="print the whole report as JSON")
+    _add_service_options(audit)
+    audit.set_defaults(**{_HANDLER: _audit})
+
+    diagnose = subparsers.add_parser(
+        "diagnose", help="simulate signal propagation; exit 5 unless the request is stable",
+        description="Run the service's diagnosis of a request (and alternatives) and print a "
+        "verdict per run. Exit code 5 when the request as given is not stable. Estimates from "
+        "one synthetic batch, not a promise that training succeeds.",
+    )
+    diagnose.add_argument("request", help="request JSON file, or - for standard input")
+    diagnose.add_argument("--alternatives", metavar="FILE",
+                          help='JSON: {"label": init override, ...} or [{"label", "init"}]')
+    diagnose.add_argument("--batch", type=_attempts, metavar="N", help="synthetic batch size")
+    diagnose.add_argument("--chart", metavar="FILE",
+                          help="also save the chart (SVG; HTML when FILE ends in .html)")
+    diagnose.add_argument("--json", action="store_true",
+                          help="print the whole diagnosis as JSON")
+    _add_service_options(diagnose)
+    diagnose.set_defaults(**{_HANDLER: _diagnose})
 
     show = subparsers.add_parser(
         "show",
@@ -370,7 +511,7 @@ def build_parser() -> argparse.ArgumentParser:
         prog="python -m seedbed_client",
         description="seedbed client: fetch, verify and inspect seeded initial weights.",
         epilog="Exit codes: 0 ok, 1 verification failed, 2 usage or bad input, 3 service "
-        "error, 4 service unreachable.",
+        "error, 4 service unreachable, 5 audit/diagnose found an error.",
     )
     parser.add_argument("--version", action="version", version=f"seedbed-client {__version__}")
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)

@@ -15,16 +15,19 @@ from __future__ import annotations
 import ast
 import base64
 import binascii
+import contextlib
 import hashlib
 import json
+import mmap
 import struct
 import warnings
 import zipfile
 import zlib
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from math import prod
-from typing import Any
+from pathlib import Path
+from typing import Any, BinaryIO
 
 import numpy as np
 
@@ -93,6 +96,7 @@ class TensorCheck:
     raw: memoryview
     sha256: str
     problem: str | None  # None when shape, dtype, length and digest all agree
+    offset: int | None = None  # where its bytes start in the body (None: decoded, not stored)
 
     @property
     def ok(self) -> bool:
@@ -130,18 +134,28 @@ def sniff_format(buffer: Any) -> WeightFormat:
     return "safetensors"
 
 
-def inspect_body(buffer: Any, fmt: WeightFormat) -> Inspection:
-    """Parse `buffer` as `fmt` and check each tensor; IntegrityError if it cannot be parsed."""
+# Tensors are hashed this many bytes at a time, so a mapped body's pages can be let go behind.
+HASH_PIECE = 8 << 20
+
+
+def inspect_body(
+    buffer: Any, fmt: WeightFormat, release: Callable[[int, int], None] | None = None
+) -> Inspection:
+    """Parse `buffer` as `fmt` and check each tensor; IntegrityError if it cannot be parsed.
+
+    `release(offset, length)` is called after each piece of a stored tensor is hashed: for a
+    memory-mapped body it drops the pages just read, so checking a 1 GiB file does not hold
+    1 GiB resident (`page_releaser`)."""
     view = memoryview(buffer).cast("B")
     if fmt == "safetensors":
         manifest, found = _read_safetensors(view)
     elif fmt == "npz":
-        manifest, found = _read_npz(view)
+        manifest, found = _read_npz(view, release)
     elif fmt == "json":
         manifest, found = _read_json(view)
     else:
         raise ValueError(f"unknown format {fmt!r}")
-    return Inspection(fmt, manifest, _check_all(manifest, found, fmt))
+    return Inspection(fmt, manifest, _check_all(manifest, found, fmt, release))
 
 
 def require_intact(inspection: Inspection, what: str = "the response") -> None:
@@ -153,6 +167,45 @@ def require_intact(inspection: Inspection, what: str = "the response") -> None:
             f"{what} does not match its manifest: {detail}{more}; no data was returned",
             [t.name for t in failed],
         )
+
+
+def page_releaser(mapped: Any) -> Callable[[int, int], None] | None:
+    """A `release` for inspect_body over an mmap (Linux and macOS), else None."""
+    advice = getattr(mmap, "MADV_DONTNEED", None)
+    if not isinstance(mapped, mmap.mmap) or advice is None:
+        return None
+    page = mmap.PAGESIZE
+
+    def release(offset: int, length: int) -> None:
+        start = offset - offset % page
+        end = min(len(mapped), offset + length)
+        end -= end % page  # whole pages only; a shared edge page stays until its neighbour goes
+        if end > start:
+            # A read-only file mapping: the pages stay in the page cache, only our RSS shrinks.
+            with contextlib.suppress(OSError, ValueError):
+                mapped.madvise(advice, start, end - start)
+
+    return release
+
+
+def mapped_arrays(inspection: Inspection, path: Path | BinaryIO) -> dict[str, np.ndarray]:
+    """Each verified tensor as a private, writable memory map of its bytes in `path` (a path or
+    an open file).
+
+    Nothing is read until used, and each array has its own mapping, released with the array:
+    a caller that copies tensors one by one and drops them holds about one at a time. Writes
+    go to private copies of the pages and never reach the file. Tensors the container does not
+    store as plain bytes (compressed members, JSON) are copied instead."""
+    require_intact(inspection)
+    out: dict[str, np.ndarray] = {}
+    for t in inspection.tensors:
+        dtype = numpy_dtype(t.dtype)
+        if t.offset is None or not t.shape or prod(t.shape) == 0:
+            out[t.name] = np.frombuffer(t.raw, dtype=dtype).reshape(t.shape).copy()
+            continue
+        mapped = np.memmap(path, dtype=dtype, mode="c", offset=t.offset, shape=t.shape)
+        out[t.name] = mapped.view(np.ndarray)
+    return out
 
 
 def to_arrays(inspection: Inspection) -> dict[str, np.ndarray]:
@@ -175,6 +228,7 @@ class _Found:
     raw: memoryview
     dtype_tag: str  # the container's own spelling: F32, <f4, or the manifest dtype for json
     shape: tuple[int, ...] | None
+    offset: int | None = None  # position of `raw` in the body, when stored there as is
 
 
 def _manifest_of(value: Any, where: str) -> dict[str, Any]:
@@ -238,7 +292,7 @@ def _read_safetensors(view: memoryview) -> tuple[dict[str, Any], dict[str, _Foun
                 f"tensor {name!r} lies at bytes {start}..{end} of a data section of "
                 f"{len(data)} bytes: the body is truncated or damaged"
             )
-        found[name] = _Found(data[start:end], code, shape)
+        found[name] = _Found(data[start:end], code, shape, 8 + n + start)
     return manifest, found
 
 
@@ -250,7 +304,7 @@ def _local_data_start(view: memoryview, info: zipfile.ZipInfo) -> int:
     return at + 30 + name_len + extra_len
 
 
-def _npy_payload(member: memoryview, name: str) -> _Found:
+def _npy_payload(member: memoryview, name: str, base: int | None = None) -> _Found:
     """Split one .npy member into its header fields and its data bytes (NPY format 1.0-3.0)."""
     if bytes(member[:6]) != b"\x93NUMPY" or len(member) < 10:
         raise IntegrityError(f"zip member {name!r} is not an .npy array")
@@ -270,7 +324,8 @@ def _npy_payload(member: memoryview, name: str) -> _Found:
         raise IntegrityError(f"the .npy header of {name!r} cannot be read") from None
     if fortran:
         raise IntegrityError(f"{name!r} is stored in Fortran order; seedbed stores C order")
-    return _Found(member[start:], str(descr), tuple(int(s) for s in shape))
+    offset = None if base is None else base + start
+    return _Found(member[start:], str(descr), tuple(int(s) for s in shape), offset)
 
 
 class _ViewFile:
@@ -298,7 +353,9 @@ class _ViewFile:
         return chunk
 
 
-def _read_npz(view: memoryview) -> tuple[dict[str, Any], dict[str, _Found]]:
+def _read_npz(
+    view: memoryview, release: Callable[[int, int], None] | None = None
+) -> tuple[dict[str, Any], dict[str, _Found]]:
     try:
         archive = zipfile.ZipFile(_ViewFile(view))
     except (zipfile.BadZipFile, OSError, ValueError, struct.error) as exc:
@@ -308,14 +365,16 @@ def _read_npz(view: memoryview) -> tuple[dict[str, Any], dict[str, _Found]]:
         if NPZ_MANIFEST not in members:
             raise IntegrityError(f"the NPZ archive has no {NPZ_MANIFEST} member")
         blobs: dict[str, memoryview] = {}
+        starts: dict[str, int] = {}
         for name, info in members.items():
             if info.compress_type == zipfile.ZIP_STORED:
                 start = _local_data_start(view, info)
                 blob = view[start : start + info.file_size]
                 if len(blob) != info.file_size:
                     raise IntegrityError(f"zip member {name!r} is cut short")
-                if zlib.crc32(blob) & 0xFFFFFFFF != info.CRC:
+                if _crc32(blob, start, release) != info.CRC:
                     raise IntegrityError(f"zip member {name!r} fails its CRC-32 check")
+                starts[name] = start
             else:  # not how seedbed writes archives, but a re-packed download may be compressed
                 try:
                     blob = memoryview(archive.read(name))
@@ -329,7 +388,7 @@ def _read_npz(view: memoryview) -> tuple[dict[str, Any], dict[str, _Found]]:
     for name, blob in blobs.items():
         if not name.endswith(".npy"):
             raise IntegrityError(f"unexpected member {name!r} in the NPZ archive")
-        found[name[: -len(".npy")]] = _npy_payload(blob, name)
+        found[name[: -len(".npy")]] = _npy_payload(blob, name, starts.get(name))
     return manifest, found
 
 
@@ -353,8 +412,32 @@ def _read_json(view: memoryview) -> tuple[dict[str, Any], dict[str, _Found]]:
     return manifest, found
 
 
+def _crc32(blob: memoryview, start: int, release: Callable[[int, int], None] | None) -> int:
+    crc = 0
+    for at in range(0, len(blob), HASH_PIECE):
+        piece = blob[at : at + HASH_PIECE]
+        crc = zlib.crc32(piece, crc)
+        if release is not None:
+            release(start + at, len(piece))
+    return crc & 0xFFFFFFFF
+
+
+def _digest(item: _Found, release: Callable[[int, int], None] | None) -> str:
+    sha = hashlib.sha256()
+    raw = item.raw
+    for at in range(0, len(raw), HASH_PIECE):
+        piece = raw[at : at + HASH_PIECE]
+        sha.update(piece)
+        if release is not None and item.offset is not None:
+            release(item.offset + at, len(piece))
+    return sha.hexdigest()
+
+
 def _check_all(
-    manifest: dict[str, Any], found: dict[str, _Found], fmt: WeightFormat
+    manifest: dict[str, Any],
+    found: dict[str, _Found],
+    fmt: WeightFormat,
+    release: Callable[[int, int], None] | None = None,
 ) -> list[TensorCheck]:
     listed = [e["tensor"] for e in manifest["tensors"]]
     extra = sorted(set(found) - set(listed))
@@ -369,9 +452,11 @@ def _check_all(
         if item is None:
             checks.append(TensorCheck(name, entry, memoryview(b""), "", "missing from the body"))
             continue
-        digest = hashlib.sha256(item.raw).hexdigest()
+        digest = _digest(item, release)
         checks.append(
-            TensorCheck(name, entry, item.raw, digest, _problem(entry, item, digest, fmt))
+            TensorCheck(
+                name, entry, item.raw, digest, _problem(entry, item, digest, fmt), item.offset
+            )
         )
     return checks
 

@@ -14,14 +14,15 @@ from __future__ import annotations
 import hashlib
 import json
 import random
+import tempfile
 import time
 from collections.abc import Callable, Generator, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Literal
+from typing import Any, BinaryIO, Literal
 
 from seedbed_client.cache import CacheEntry, WeightCache
-from seedbed_client.containers import Inspection, inspect_body, require_intact
+from seedbed_client.containers import Inspection, inspect_body, page_releaser, require_intact
 from seedbed_client.errors import (
     CacheCorrupted,
     IntegrityError,
@@ -37,11 +38,12 @@ from seedbed_client.spool import (
     ProgressHook,
     copy_to_spool,
     map_file,
+    map_handle,
     read_file,
 )
-from seedbed_client.wire import WeightsCall
+from seedbed_client.wire import RecipeWeightsCall, WeightsCall
 
-Source = Literal["service", "cache", "revalidated"]
+Source = Literal["service", "cache", "revalidated", "local"]
 
 
 @dataclass(frozen=True)
@@ -108,6 +110,9 @@ class Delivery:
     etag: str | None
     source: Source
     path: Path | None  # with spool_dir: the spool file holding exactly this body
+    # Without spool_dir: an open handle on the verified body file (in the cache, or a temporary
+    # file already unlinked), for arrays to map instead of holding the body in memory.
+    handle: BinaryIO | None = None
 
     @property
     def manifest(self) -> dict[str, Any]:
@@ -200,20 +205,54 @@ def json_flow(
     method: str, path: str, body: bytes | None, ctx: FlowContext
 ) -> Generator[Effect, Outcome, Any]:
     """POST /v1/plan, GET /v1/catalog: one JSON document, retried, no cache."""
-    extra = {"content-type": "application/json"} if body is not None else {}
-    headers = _headers(ctx, accept="application/json", **extra)
-    _, reply = yield from exchange(lambda: Send(method, path, {}, headers, body), ctx.retry, ctx)
-    _raise_for(reply)
+    _, doc = yield from document_flow(method, path, body, ctx)
+    return doc
+
+
+def document_flow(
+    method: str,
+    path: str,
+    body: bytes | None,
+    ctx: FlowContext,
+    *,
+    params: Mapping[str, str] | None = None,
+    content_type: str = "application/json",
+    accept: str = "application/json",
+    ok: tuple[int, ...] = (200,),
+    more_headers: Mapping[str, str] | None = None,
+    retry: RetryPolicy | None = None,
+) -> Generator[Effect, Outcome, tuple[Reply, Any]]:
+    """One small document (JSON, or text when `accept` is not JSON), retried, no cache.
+
+    Returns the reply and the parsed body; any status outside `ok` raises the service's error.
+    """
+    extra = {"content-type": content_type} if body is not None else {}
+    headers = _headers(ctx, accept=accept, **extra, **(more_headers or {}))
+    query = dict(params or {})
+    _, reply = yield from exchange(
+        lambda: Send(method, path, query, headers, body), retry or ctx.retry, ctx
+    )
+    if reply.status not in ok:
+        raise service_error(reply.status, _json_reply(reply), reply.headers.get("x-request-id"))
+    if "json" not in accept:
+        return reply, reply.content.decode("utf-8", errors="replace")
     try:
-        return json.loads(reply.content)
+        return reply, json.loads(reply.content)
     except ValueError:
-        raise IntegrityError(f"{path} answered 200 with a body that is not JSON") from None
+        raise IntegrityError(
+            f"{path} answered {reply.status} with a body that is not JSON"
+        ) from None
 
 
 # --- weights ---------------------------------------------------------------------------------
 
 
-def _open_cached(entry: CacheEntry, call: WeightsCall, spool_dir: Path | None) -> Delivery:
+def _open_cached(
+    entry: CacheEntry,
+    call: WeightsCall | RecipeWeightsCall,
+    spool_dir: Path | None,
+    landing_dir: Path,
+) -> Delivery:
     """Load a cached body and verify it whole (content address) and per tensor (manifest).
 
     Into memory, or (for `save`) into a spool file in `spool_dir`: what is verified is the copy
@@ -222,53 +261,96 @@ def _open_cached(entry: CacheEntry, call: WeightsCall, spool_dir: Path | None) -
     if entry.format != call.format:
         raise IntegrityError(f"the cached entry is {entry.format}, its key says {call.format}")
     spooled: FileSink | None = None
+    handle: BinaryIO | None = None
+    release = None
     try:
-        if spool_dir is None:
+        if spool_dir is None and call.format == "json":
             buffer: Any = read_file(entry.blob_path)
             digest = hashlib.sha256(buffer).hexdigest()
+        elif spool_dir is None:
+            # Arrays will map the body: map a private copy (unlinked once open), so that nothing
+            # done to the cache file later can change arrays already handed out.
+            spooled = copy_to_spool(entry.blob_path, landing_dir)
+            handle = open(spooled.path, "rb")  # noqa: SIM115 - handed to the caller
+            spooled.path.unlink()
+            digest = spooled.digest()
+            buffer = map_handle(handle)
+            release = page_releaser(buffer)
         else:
             spooled = copy_to_spool(entry.blob_path, spool_dir)
             buffer = map_file(spooled.path)
+            release = page_releaser(buffer)
             digest = spooled.digest()
     except OSError as exc:
+        if handle is not None:
+            handle.close()
         raise IntegrityError(f"the cached body is unreadable: {exc}") from None
     try:
         if digest != entry.blob:
             raise IntegrityError("the cached body does not match its content address")
-        inspection = inspect_body(buffer, call.format)
+        inspection = inspect_body(buffer, call.format, release)
         require_intact(inspection, "the cached copy")
     except IntegrityError:
         if spooled is not None:
             spooled.abandon()
+        if handle is not None:
+            handle.close()
         raise
-    path = spooled.path if spooled is not None else None
-    return Delivery(inspection, buffer, entry.etag, "cache", path)
+    path = spooled.path if spooled is not None and handle is None else None
+    return Delivery(inspection, buffer, entry.etag, "cache", path, handle)
 
 
-def _finish_download(send: Send, reply: Reply, call: WeightsCall, ctx: FlowContext) -> Delivery:
+def _finish_download(
+    send: Send,
+    reply: Reply,
+    call: WeightsCall | RecipeWeightsCall,
+    ctx: FlowContext,
+    keep_file: bool,
+) -> Delivery:
+    """Verify a received body. `keep_file` (save): the spool file is the caller's to rename;
+    otherwise a spooled body moves into the cache (or is unlinked) and stays open for mapping."""
     sink = send.sink
     etag = reply.headers.get("etag")
     path: Path | None = None
+    handle: BinaryIO | None = None
+    release = None
     if isinstance(sink, MemorySink):
         buffer: Any = sink.buffer()
     elif isinstance(sink, FileSink):
         path = sink.close()
-        buffer = map_file(path)
+        handle = open(path, "rb")  # noqa: SIM115 - handed to the caller
+        buffer = map_handle(handle)
+        release = page_releaser(buffer)
     else:  # a driver must route a 200 body to the sink it was given
         raise RuntimeError("a weights body arrived without a sink")
     try:
-        inspection = inspect_body(buffer, call.format)
+        inspection = inspect_body(buffer, call.format, release)
         require_intact(inspection)
     except IntegrityError:
+        if handle is not None:
+            handle.close()
         sink.abandon()
         raise
     if ctx.cache is not None:
-        ctx.cache.store(call.cache_key, path or buffer, sink.digest(), call.format, etag)
-    return Delivery(inspection, buffer, etag, "service", path)
+        # Copied, not moved: arrays map this private file, which nothing else can change.
+        ctx.cache.store(
+            call.cache_key, path or buffer, sink.digest(), call.format, etag, labels=call.labels
+        )
+    if keep_file:
+        if handle is not None:
+            handle.close()
+        return Delivery(inspection, buffer, etag, "service", path)
+    if path is not None:
+        path.unlink(missing_ok=True)  # the open handle keeps the data readable
+    return Delivery(inspection, buffer, etag, "service", None, handle)
+
+
+def _temp_dir() -> Path:
+    return Path(tempfile.gettempdir())
 
 
 def weights_flow(
-    call: WeightsCall,
+    call: WeightsCall | RecipeWeightsCall,
     ctx: FlowContext,
     *,
     progress: ProgressHook | None = None,
@@ -285,25 +367,34 @@ def weights_flow(
     entry: CacheEntry | None = None
     cached: Delivery | None = None
     damage: IntegrityError | None = None
+    landing = spool_dir or (cache.partial_dir() if cache is not None else _temp_dir())
     if cache is not None:
         entry = cache.lookup(call.cache_key)
         if entry is not None:
             try:
-                cached = _open_cached(entry, call, spool_dir)
+                cached = _open_cached(entry, call, spool_dir, landing)
             except IntegrityError as exc:
                 cache.discard(entry)
                 entry, damage = None, exc
 
-    more = {"content-type": "application/json"}
+    if cached is not None and call.immutable:
+        # A numbered recipe version never changes: a verified copy is the answer, unasked.
+        assert entry is not None and cache is not None
+        cache.touch(entry)
+        return cached
+    more = {"content-type": "application/json"} if call.body is not None else {}
     if cached is not None and cached.etag:
         more["if-none-match"] = cached.etag
     headers = _headers(ctx, **more)
 
+    # Binary bodies always go to a file (beside the target for save, else in the cache's
+    # partial/ folder or the temp dir) and are mapped, never held whole in memory; JSON bodies
+    # are bounded by the service's JSON limit and decoded in memory anyway.
+    in_memory = spool_dir is None and call.format == "json"
+
     def make() -> Send:
-        sink: BodySink = (
-            MemorySink(progress) if spool_dir is None else FileSink(spool_dir, progress)
-        )
-        return Send("POST", "/v1/weights", call.params, headers, call.body, sink)
+        sink: BodySink = MemorySink(progress) if in_memory else FileSink(landing, progress)
+        return Send(call.method, call.path, call.params, headers, call.body, sink)
 
     # Revalidating a verified copy is a single try: when it fails the copy is the answer.
     policy = NO_RETRY if cached is not None else ctx.retry
@@ -324,11 +415,14 @@ def weights_flow(
         if cached is None or entry is None or cache is None:
             raise IntegrityError("the service answered 304 Not Modified to a plain request")
         cache.touch(entry, reply.headers.get("etag"))
-        return Delivery(cached.inspection, cached.buffer, cached.etag, "revalidated", cached.path)
+        return Delivery(cached.inspection, cached.buffer, cached.etag, "revalidated", cached.path,
+                        cached.handle)
     if cached is not None and cached.path is not None:
         Path(cached.path).unlink(missing_ok=True)  # superseded by the new answer
+    if cached is not None and cached.handle is not None:
+        cached.handle.close()
     _raise_for(reply)
-    return _finish_download(send, reply, call, ctx)
+    return _finish_download(send, reply, call, ctx, keep_file=spool_dir is not None)
 
 
 def run_flow_step(flow: Flow, outcome: Outcome) -> tuple[bool, Any]:
@@ -349,6 +443,7 @@ __all__ = [
     "Reply",
     "Send",
     "Wait",
+    "document_flow",
     "exchange",
     "json_flow",
     "run_flow_step",

@@ -1,8 +1,9 @@
 """Where a response body goes while it arrives: memory, or a temporary file beside its target.
 
-A sink counts and hashes what it receives and reports progress. Arrays returned to callers are
-always built on memory the client owns (`MemorySink`, `read_file`); files (`FileSink`) are for
-`save`, which writes a download next to its destination and renames it once verified.
+A sink counts and hashes what it receives and reports progress. Binary bodies go to files
+(`FileSink`): beside the destination for `save`, which renames it once verified, else in the
+cache's partial/ folder, from where the verified body is renamed into the cache and mapped.
+JSON bodies are collected in memory (`MemorySink`).
 """
 
 from __future__ import annotations
@@ -13,7 +14,7 @@ import os
 import tempfile
 from collections.abc import Callable
 from pathlib import Path
-from typing import Protocol
+from typing import BinaryIO, Protocol
 
 ProgressHook = Callable[[int, int | None], None]  # (bytes received, total or None)
 
@@ -108,6 +109,14 @@ def map_file(path: Path) -> mmap.mmap | bytes:
         if size == 0:
             return b""
         return mmap.mmap(fh.fileno(), 0, access=mmap.ACCESS_READ)
+
+
+def map_handle(handle: BinaryIO) -> mmap.mmap | bytes:
+    """A read-only map of an open file (it stays valid after the file is renamed or unlinked)."""
+    size = os.fstat(handle.fileno()).st_size
+    if size == 0:
+        return b""
+    return mmap.mmap(handle.fileno(), 0, access=mmap.ACCESS_READ)
 
 
 def read_file(path: Path) -> bytearray:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any, Literal, Protocol, runtime_checkable
@@ -133,6 +134,12 @@ class WeightsCall:
     tensor: str | None
     rows: tuple[int, int] | None
 
+    method = "POST"
+    path = "/v1/weights"
+    # Answers to a request are revalidated with the service (If-None-Match) when it answers.
+    immutable = False
+    labels: Mapping[str, Any] | None = None
+
     @property
     def params(self) -> dict[str, str]:
         params: dict[str, str] = {"format": self.format}
@@ -183,3 +190,85 @@ def weights_call(
             [Problem("tensor", "invalid_value", f"got {tensor!r}; allowed: a tensor name")]
         )
     return WeightsCall(canonical_json(data), check_format(fmt), tensor, selection)
+
+
+# --- recipes ---------------------------------------------------------------------------------
+
+RECIPE_NAME = re.compile(r"[a-z0-9][a-z0-9._-]{0,99}")
+LATEST = "latest"
+
+
+@dataclass(frozen=True)
+class RecipeRef:
+    """`name@version` or `name@latest` (a bare name means latest)."""
+
+    name: str
+    version: int | None  # None: the newest version, resolved on each call
+
+    def __str__(self) -> str:
+        return f"{self.name}@{LATEST if self.version is None else self.version}"
+
+    @property
+    def path_version(self) -> str:
+        return LATEST if self.version is None else str(self.version)
+
+
+def parse_ref(text: object, field: str = "recipe") -> RecipeRef:
+    """`name@3`, `name@latest` or `name` as a RecipeRef; SpecInvalid naming the rule otherwise."""
+    rule = (
+        "allowed: NAME@VERSION, NAME@latest or NAME, with NAME matching "
+        "[a-z0-9][a-z0-9._-]{0,99} and VERSION a whole number >= 1"
+    )
+    if not isinstance(text, str):
+        raise SpecInvalid([Problem(field, "invalid_type", f"got {type(text).__name__}; {rule}")])
+    name, _, version = text.partition("@")
+    if not RECIPE_NAME.fullmatch(name):
+        raise SpecInvalid([Problem(field, "invalid_value", f"got {text!r}; {rule}")])
+    if version in ("", LATEST):
+        return RecipeRef(name, None)
+    if not (version.isascii() and version.isdigit()) or version.startswith("0"):
+        raise SpecInvalid([Problem(field, "invalid_value", f"got {text!r}; {rule}")])
+    return RecipeRef(name, int(version))
+
+
+def looks_like_ref(value: object) -> bool:
+    """A string in a request's place is a recipe reference (requests are dicts or specs)."""
+    return isinstance(value, str)
+
+
+@dataclass(frozen=True)
+class RecipeWeightsCall:
+    """GET /v1/recipes/NAME/VERSION/weights of one numbered version: immutable, cached forever.
+
+    The cache key includes the service's URL: a name@version means something only in the
+    registry that assigned it.
+    """
+
+    service: str
+    name: str
+    version: int
+    format: WeightFormat
+
+    method = "GET"
+    body: bytes | None = None
+    immutable = True
+    tensor: str | None = None
+    rows: tuple[int, int] | None = None
+
+    @property
+    def path(self) -> str:
+        return f"/v1/recipes/{self.name}/{self.version}/weights"
+
+    @property
+    def params(self) -> dict[str, str]:
+        return {"format": self.format}
+
+    @property
+    def labels(self) -> dict[str, Any]:
+        return {"service": self.service, "recipe": self.name, "version": self.version}
+
+    @property
+    def cache_key(self) -> str:
+        digest = hashlib.sha256(b"seedbed-client-recipe-v1\n")
+        digest.update(canonical_json({**self.labels, "format": self.format}))
+        return digest.hexdigest()

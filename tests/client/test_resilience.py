@@ -28,7 +28,7 @@ from .conftest import FAST_RETRY, FaultyProxy, dead_url
 
 
 def _blobs(cache_dir: Path) -> list[Path]:
-    return sorted((cache_dir / "v1" / "blobs").iterdir())
+    return sorted((cache_dir / "v2" / "by-content").iterdir())
 
 
 def _flip_byte(path: Path, offset_from_end: int = 3) -> None:
@@ -110,7 +110,7 @@ def test_corrupted_cache_with_the_service_unreachable_raises(
         with pytest.raises(CacheCorrupted) as caught:
             client.weights(request, format="safetensors")
         assert isinstance(caught.value.__cause__, ServiceUnavailable)
-    assert not list((cache_dir / "v1" / "entries").glob("*.json"))  # the entry is gone
+    assert not list((cache_dir / "v2" / "by-request").glob("*.json"))  # the entry is gone
 
 
 def test_a_cut_connection_raises_integrity_error_and_returns_nothing(
@@ -126,10 +126,11 @@ def test_a_cut_connection_raises_integrity_error_and_returns_nothing(
             client.weights(single_dense(64, 64), format=fmt)
         assert "body bytes" in str(caught.value) or "ended after" in str(caught.value)
     assert cutter.connections == 3 * FAST_RETRY.attempts  # each cut was retried, then refused
-    assert not (cache_dir / "v1" / "entries").exists() or not list(
-        (cache_dir / "v1" / "entries").iterdir()
+    assert not (cache_dir / "v2" / "by-request").exists() or not list(
+        (cache_dir / "v2" / "by-request").iterdir()
     )
-    leftovers = list((cache_dir / "v1" / "tmp").glob("*")) if (cache_dir / "v1").exists() else []
+    partial = cache_dir / "v2" / "partial"
+    leftovers = list(partial.glob("*")) if partial.exists() else []
     assert leftovers == []  # partial downloads are removed, not kept
 
 

@@ -121,19 +121,22 @@ def test_concurrent_publishes_through_all_replicas_get_distinct_versions(
     lock = threading.Lock()
     start = threading.Barrier(6)
 
-    def worker(server: RunningServer) -> None:
+    def worker(server: RunningServer, lane: int) -> None:
         with httpx.Client(base_url=server.base_url, timeout=60) as client:
             start.wait()
             for i in range(5):
+                # Distinct requests: one identical to the newest version would reuse it.
+                seed = 100 * lane + i
                 r = client.post("/v1/recipes", headers=_auth(token),
-                                json={"name": "gearbox", "request": {**TURBINE, "seed": i}})
+                                json={"name": "gearbox", "request": {**TURBINE, "seed": seed}})
                 with lock:
                     if r.status_code == 201:
                         got.append(r.json()["version"])
                     else:
                         failures.append(r.text)
 
-    threads = [threading.Thread(target=worker, args=(s,)) for s in replicas for _ in range(2)]
+    threads = [threading.Thread(target=worker, args=(s, 2 * k + j))
+               for k, s in enumerate(replicas) for j in range(2)]
     for t in threads:
         t.start()
     for t in threads:
@@ -153,8 +156,10 @@ def test_a_key_revoked_once_is_refused_by_every_replica(
     finally:
         registry.close()
     body = {"name": "nacelle", "request": TURBINE}
-    for server in replicas:
-        assert httpx.post(server.base_url + "/v1/recipes", headers=_auth(doomed), json=body,
+    for i, server in enumerate(replicas):
+        # Distinct requests: the newest version's own request would be answered 200, unchanged.
+        fresh = {"name": "nacelle", "request": {**TURBINE, "seed": 60061 + i}}
+        assert httpx.post(server.base_url + "/v1/recipes", headers=_auth(doomed), json=fresh,
                           timeout=60).status_code == 201
     env = {k: v for k, v in os.environ.items() if not k.startswith("SEEDBED_")}
     env.update(database)

@@ -31,6 +31,7 @@ from typing import Any
 
 import numpy as np
 
+from seedbed_client.client import DEFAULT_FORMAT
 from seedbed_client.errors import Problem, SpecInvalid
 from seedbed_client.flax_adapter.reading import JaxprFacts, TreeLayer, read_tree
 from seedbed_client.framework_layouts import SEEDBED_GATE_ORDERS, change_layout, split_gates
@@ -371,11 +372,13 @@ def seed_params(
     client: Any,
     *,
     seed: int | str,
-    format: str = "safetensors",
+    format: str = DEFAULT_FORMAT,
+    origin: str = "service",
     **options: Any,
 ) -> tuple[Any, TreeDescription]:
     """Describe the tree, fetch its weights (verified by the client), and return the filled
-    tree with the description (`.table()` shows what was inferred and from where)."""
+    tree with the description (`.table()` shows what was inferred and from where).
+    `origin="local"` fetches the plan only and makes the same bytes in this process."""
     description = describe_params(variables, seed=seed, **options)
-    arrays = client.weights(description.request, format=format)
+    arrays = client.weights(description.request, format=format, origin=origin)
     return fill_params(variables, description, arrays), description

@@ -25,7 +25,7 @@ import numpy as np
 import torch
 from torch import nn
 
-from seedbed_client.client import Client
+from seedbed_client.client import DEFAULT_FORMAT, Client
 from seedbed_client.errors import Problem, ServiceError, SpecInvalid
 from seedbed_client.torch_adapter.calibrate import apply_calibration, calibrate_module
 from seedbed_client.torch_adapter.describe import describe_module
@@ -60,13 +60,26 @@ def apply_weights(
 ) -> None:
     """Copy served arrays into the module's parameters in place, one tensor at a time."""
     params = dict(module.named_parameters())
+    # Downloaded arrays are memory maps, one per tensor: dropping each after its last use lets
+    # its pages go, so copying holds about one tensor at a time (when the caller passed its only
+    # reference, as seed_module does).
+    pending = dict(arrays)
+    del arrays
+    uses: dict[str, int] = {}
+    for item in description.copies:
+        for source in item.sources:
+            uses[source] = uses.get(source, 0) + 1
     with torch.no_grad():
         for item in description.copies:
             target = params[item.parameter]
             if item.zero:
                 target.zero_()
                 continue
-            values = as_torch(parameter_values(item, arrays), target.dtype)
+            values = as_torch(parameter_values(item, pending), target.dtype)
+            for source in item.sources:
+                uses[source] -= 1
+                if uses[source] == 0:
+                    pending.pop(source, None)
             if tuple(values.shape) != tuple(target.shape):
                 raise SpecInvalid(
                     [
@@ -85,12 +98,13 @@ def apply_weights(
 
 
 def fetch_for(
-    client: Client, description: ModuleDescription, format: str
+    client: Client, description: ModuleDescription, format: str, origin: str = "service"
 ) -> Mapping[str, np.ndarray]:
     """The served arrays for a description; service errors about `layers[i]` also name the
-    module (a note on the exception), and the plan's multipliers land in the description."""
+    module (a note on the exception), and the plan's multipliers land in the description.
+    `origin="local"` fetches the plan only and makes the same bytes in this process."""
     try:
-        arrays = client.weights(description.request, format=format)
+        arrays = client.weights(description.request, format=format, origin=origin)
     except ServiceError as exc:
         modules = description.layer_modules()
         where = [
@@ -118,10 +132,13 @@ def seed_module(
     client: Client,
     *,
     seed: int | str,
-    format: str = "safetensors",
+    format: str = DEFAULT_FORMAT,
+    origin: str = "service",
     **options: Any,
 ) -> ModuleDescription:
     """Describe `module`, fetch its weights (verified), and copy them in place.
+
+    `origin="local"` asks the service for the plan only and generates the values here.
 
     `options` go to `describe_module` (activations, roles, branches, layer_options,
     depth_policy, example_input, graph, allow_defaults, root_name, allow_untouched). Returns
@@ -129,6 +146,6 @@ def seed_module(
     depth or width policy asks the training script to apply.
     """
     description = describe_module(module, seed=seed, **options)
-    arrays = fetch_for(client, description, format)
-    apply_weights(module, description, arrays)
+    # Not bound to a name: apply_weights holds the only reference and lets each tensor go.
+    apply_weights(module, description, fetch_for(client, description, format, origin))
     return description

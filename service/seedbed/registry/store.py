@@ -90,15 +90,68 @@ def _next_version(conn: Connection, name: str) -> int:
     return int(conn.execute(stmt).scalar_one())
 
 
+class _SameAsNewest(Exception):  # noqa: N818 - control flow inside publish_unless_same
+    def __init__(self, summary: VersionSummary) -> None:
+        self.summary = summary
+
+
 def publish(engine: Engine, prepared: PreparedRecipe, token: str) -> VersionSummary:
-    """Store a new version of `prepared.name`, published with `token`'s key.
+    """Store a new version of `prepared.name`, published with `token`'s key, even when its
+    request equals the newest version's (POST /v1/recipes uses `publish_unless_same`).
 
     The key is checked again inside the writing transaction (and its row locked on PostgreSQL),
     so a key revoked a moment earlier cannot publish; raises keys.AuthenticationError then.
     """
+    return _publish(engine, prepared, token, reuse=False)[0]
+
+
+def publish_unless_same(
+    engine: Engine, prepared: PreparedRecipe, token: str
+) -> tuple[VersionSummary, bool]:
+    """(version, created): a new version, or the newest one unchanged when it stores the same
+    canonical request under the same algorithm (the description is not compared: a version
+    never changes, and a second version with the same bytes would only blur which to pin).
+
+    Race-free: the comparison happens after the name's counter row is taken (row-locked on
+    PostgreSQL, BEGIN IMMEDIATE on SQLite), so of two identical concurrent publishes the second
+    sees the first's version and the counter increment is rolled back with its transaction.
+    """
+    return _publish(engine, prepared, token, reuse=True)
+
+
+def _newest_if_same(conn: Connection, prepared: PreparedRecipe, version: int
+                    ) -> VersionSummary | None:
+    if version <= 1:
+        return None
+    row = conn.execute(
+        select(*_SUMMARY_COLUMNS, recipe_versions.c.request_json).where(
+            recipe_versions.c.name == prepared.name, recipe_versions.c.version == version - 1
+        )
+    ).first()
+    if row is None or row.request_json != prepared.request_json:
+        return None
+    if row.algorithm != prepared.algorithm:
+        return None
+    return _summary(row)
+
+
+def _publish(engine: Engine, prepared: PreparedRecipe, token: str, *, reuse: bool
+             ) -> tuple[VersionSummary, bool]:
+    try:
+        return _publish_in_transaction(engine, prepared, token, reuse), True
+    except _SameAsNewest as same:  # raised inside the transaction, so it was rolled back
+        return same.summary, False
+
+
+def _publish_in_transaction(engine: Engine, prepared: PreparedRecipe, token: str, reuse: bool
+                            ) -> VersionSummary:
     with writing(engine) as conn:
         publisher = identify(conn, token, lock=True)
         version = _next_version(conn, prepared.name)
+        if reuse:
+            existing = _newest_if_same(conn, prepared, version)
+            if existing is not None:
+                raise _SameAsNewest(existing)
         published = now_utc()
         digest = content_digest(
             name=prepared.name, version=version, description=prepared.description,
@@ -172,8 +225,18 @@ _FULL_COLUMNS = (
 )
 
 
-def get_version(engine: Engine, name: str, version: int) -> RecipeVersion:
+def get_version(engine: Engine, name: str, version: int | None) -> RecipeVersion:
+    """One stored version; `version=None` is the newest (what the `latest` alias resolves to)."""
     with reading(engine) as conn:
+        if version is None:
+            newest = conn.execute(
+                select(func.max(recipe_versions.c.version)).where(recipe_versions.c.name == name)
+            ).scalar()
+            if newest is None:
+                raise RecipeNotFoundError(
+                    f"no recipe named {name!r}; GET /v1/recipes lists the names"
+                )
+            version = int(newest)
         row = conn.execute(
             select(*_FULL_COLUMNS).where(
                 recipe_versions.c.name == name, recipe_versions.c.version == version

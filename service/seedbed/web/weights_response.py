@@ -231,6 +231,7 @@ class WeightsOptions:
     headers       extra response headers, sent with 304 answers too (Cache-Control ...)
     filename      the attachment's name without extension
     selectable    whether the route takes tensor= (the 413 advice mentions it only then)
+    weak          a weak ETag even for exact tensors (a URL whose body may change: `latest`)
     rearranged    the values under a framework's names and layouts instead of seedbed's
     """
 
@@ -240,6 +241,7 @@ class WeightsOptions:
     headers: Mapping[str, str] = field(default_factory=dict)
     filename: str = "weights"
     selectable: bool = False
+    weak: bool = False
     rearranged: Rearranged | None = None
 
 
@@ -258,7 +260,7 @@ async def weights_response(request: Request, plan: Plan, options: WeightsOptions
     )
     served = plan.tensors if selection is None else (selection.tensor,)
     exact = all(t.reproducible == "exact" for t in served)
-    if not exact:
+    if not exact or options.weak:
         # Orthogonal values may differ in the last bits between BLAS builds, so two replicas
         # can send different bytes under the same tag: only a weak validator is honest then
         # (and stored fingerprints are one platform's, not a promise for every replica).

@@ -51,7 +51,7 @@ REQUEST = {
 def served() -> tuple[dict, dict]:
     with TestClient(create_app()) as http:
         plan = http.post("/v1/plan", json=REQUEST)
-        weights = http.post("/v1/weights", json=REQUEST)
+        weights = http.post("/v1/weights", params={"format": "json"}, json=REQUEST)
     assert plan.status_code == 200, plan.text
     assert weights.status_code == 200, weights.text
     return plan.json(), json.loads(weights.content)

@@ -57,6 +57,7 @@ PUBLIC_MODULES = [
     "seedbed_client.retry",
     "seedbed_client.cache",
     "seedbed_client.containers",
+    "seedbed_client.records",
 ]
 
 
@@ -88,7 +89,13 @@ _INTERNAL: dict[str, set[str]] = {
     "seedbed_client.limits": {"layer_tensors"},
     "seedbed_client.retry": {"RetryBudget", "retry_after_seconds"},
     "seedbed_client.cache": {"CacheEntry", "default_max_bytes"},
-    "seedbed_client.containers": {"numpy_dtype", "require_intact", "to_arrays"},
+    "seedbed_client.containers": {
+        "mapped_arrays",
+        "numpy_dtype",
+        "page_releaser",
+        "require_intact",
+        "to_arrays",
+    },
 }
 
 
@@ -278,8 +285,8 @@ def test_a_crash_while_storing_leaves_no_entry(
         _store(cache, "k", b"body")
     monkeypatch.undo()
     assert cache.lookup("k") is None
-    assert list((tmp_path / "v1" / "entries").iterdir()) == []  # no temporary entry left
-    assert list((tmp_path / "v1" / "tmp").iterdir()) == []
+    assert list((tmp_path / "v2" / "by-request").iterdir()) == []  # no temporary entry left
+    assert list((tmp_path / "v2" / "partial").iterdir()) == []
 
 
 # --- containers ------------------------------------------------------------------------------

@@ -193,11 +193,14 @@ def test_weights_every_format(client: TestClient, fmt: str) -> None:
     assert again.headers["etag"] == got.headers["etag"]
 
 
-def test_default_format_is_json_and_formats_agree(client: TestClient) -> None:
+def test_default_format_is_npz_and_formats_agree(client: TestClient) -> None:
+    # npz is the one default of service, client, command line and adapters (docs/formats.md).
     default = client.post("/v1/weights", json=GREENHOUSE)
-    assert default.headers["content-type"].startswith("application/json")
-    _, from_json = read_json_weights(default.content)
-    _, from_npz = read_npz_weights(client.post("/v1/weights?format=npz", json=GREENHOUSE).content)
+    assert default.headers["content-type"].startswith("application/zip")
+    _, from_npz = read_npz_weights(default.content)
+    _, from_json = read_json_weights(
+        client.post("/v1/weights?format=json", json=GREENHOUSE).content
+    )
     for name in from_json:
         assert from_json[name].tobytes() == from_npz[name].tobytes()
 

@@ -116,7 +116,7 @@ CASES = [
         query="?tensor=buzz.weight&rows=3"),
     Bad("rows-negative", 422, "invalid_value", "rows", body=HIVE,
         query="?tensor=buzz.weight&rows=-1:2"),
-    Bad("json-too-large", 413, "json_too_large", "format", body={
+    Bad("json-too-large", 413, "json_too_large", "format", query="?format=json", body={
         **HIVE, "layers": [{**HIVE["layers"][0], "n_in": 90, "n_out": 100}]}),
     # --- routing ---
     Bad("unknown-path", 404, "not_found", "(path)", method="GET", path="/v2/weights"),

@@ -28,7 +28,7 @@ def test_weights_manifest_carries_policy_and_multipliers(client: TestClient) -> 
                     "mlp_dim": 32, "norm": "post", "repeat": 2}],
     }
     plan = client.post("/v1/plan", json=request).json()
-    weights = client.post("/v1/weights", json=request).json()
+    weights = client.post("/v1/weights?format=json", json=request).json()
     assert weights["depth_policy"] == plan["depth_policy"]
     assert weights["multipliers"] == plan["multipliers"]
     alphas = [m for m in weights["multipliers"] if "alpha" in json.dumps(m)]
@@ -39,4 +39,4 @@ def test_weights_manifest_carries_policy_and_multipliers(client: TestClient) -> 
 
 def test_plain_request_has_no_policy_keys(client: TestClient) -> None:
     request = {"seed": 1, "layers": [{"name": "a", "kind": "dense", "n_in": 3, "n_out": 2}]}
-    assert "depth_policy" not in client.post("/v1/weights", json=request).json()
+    assert "depth_policy" not in client.post("/v1/weights?format=json", json=request).json()

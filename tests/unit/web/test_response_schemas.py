@@ -190,7 +190,7 @@ def test_plan_entry_schema_is_exact_about_its_fields(
 def test_json_weights_bodies_conform(client: TestClient, document: dict[str, Any],
                                      name: str) -> None:
     schema = response_schema(document, "/v1/weights", "post", 200)
-    got = client.post("/v1/weights", json=REQUESTS[name])
+    got = client.post("/v1/weights", params={"format": "json"}, json=REQUESTS[name])
     assert got.status_code == 200, got.text
     body = got.json()
     schema.check(body)
@@ -206,7 +206,8 @@ def test_json_weights_bodies_conform(client: TestClient, document: dict[str, Any
 
 def test_json_weights_block_conforms(client: TestClient, document: dict[str, Any]) -> None:
     schema = response_schema(document, "/v1/weights", "post", 200)
-    got = client.post("/v1/weights", params={"tensor": "probe.1.weight", "rows": "2:9"},
+    got = client.post("/v1/weights",
+                      params={"format": "json", "tensor": "probe.1.weight", "rows": "2:9"},
                       json=KILN)
     assert got.status_code == 200, got.text
     body = got.json()
@@ -312,16 +313,21 @@ def test_recipe_bodies_conform(client: TestClient, document: dict[str, Any],
                             json={"name": "kiln-probe", "request": KILN,
                                   "description": "firing-curve baseline"})
     assert published.status_code == 201, published.text
-    client.post("/v1/recipes", headers=auth, json={"name": "kiln-probe", "request": KILN})
+    # The same request again reuses version 1 (200); a changed one makes version 2.
+    again = client.post("/v1/recipes", headers=auth, json={"name": "kiln-probe", "request": KILN})
+    client.post("/v1/recipes", headers=auth,
+                json={"name": "kiln-probe", "request": {**KILN, "seed": 2}})
     client.post("/v1/recipes", headers=auth, json={"name": "deep-enc", "request": DEEP_ENCODER})
     cases = [
         ("/v1/recipes", "post", 201, published),
+        ("/v1/recipes", "post", 200, again),
+        ("/v1/recipes/{name}/{version}", "get", 200, client.get("/v1/recipes/kiln-probe/latest")),
         ("/v1/recipes", "get", 200, client.get("/v1/recipes", params={"limit": 1})),
         ("/v1/recipes/{name}", "get", 200, client.get("/v1/recipes/kiln-probe")),
         ("/v1/recipes/{name}/{version}", "get", 200, client.get("/v1/recipes/kiln-probe/2")),
         ("/v1/recipes/{name}/{version}", "get", 200, client.get("/v1/recipes/deep-enc/1")),
         ("/v1/recipes/{name}/{version}/weights", "get", 200,
-         client.get("/v1/recipes/deep-enc/1/weights")),
+         client.get("/v1/recipes/deep-enc/1/weights?format=json")),
     ]
     for path, method, status, got in cases:
         assert got.status_code == status, (path, got.text)

@@ -1,10 +1,14 @@
 """Team recipes: publish a request under a name, fetch any version and its weights by URL.
 
     POST /v1/recipes                              publish (Authorization: Bearer <key>) -> 201
+                                                  (200: same request as the newest version)
     GET  /v1/recipes                              names with their latest version
     GET  /v1/recipes/{name}                       the versions of one name
     GET  /v1/recipes/{name}/{version}             stored request, plan, fingerprints, publisher
     GET  /v1/recipes/{name}/{version}/weights     the weights, cacheable for a year
+
+`latest` goes wherever a version number does; it is resolved on each request and answered
+with a weak ETag and a short freshness lifetime, naming the concrete version it resolved to.
 
 Every GET also answers HEAD. A stored version never changes, so its documents carry strong
 ETags and `immutable` caching; a version's weights are byte-identical to POST /v1/weights of its
@@ -49,7 +53,7 @@ from seedbed.registry.store import (
     get_version,
     list_recipes,
     list_versions,
-    publish,
+    publish_unless_same,
 )
 from seedbed.web.dependencies import settings_of
 from seedbed.web.errors import ApiError
@@ -63,6 +67,7 @@ from seedbed.web.response_models import (
     StoredRecipe,
     WeightsDocument,
 )
+from seedbed.web.routes.weights import DEFAULT_FORMAT
 from seedbed.web.weights_response import WeightsOptions, weights_response
 
 router = APIRouter(tags=["recipes"])
@@ -269,12 +274,17 @@ def _summary_doc(s: VersionSummary) -> dict[str, Any]:
         "Needs `Authorization: Bearer <key>`. Validates the request exactly as POST /v1/weights "
         "does, stores it in canonical form with its plan and each tensor's SHA-256, and answers "
         "201 with the version the server assigned (1, 2, 3 ... per name; never reused, never "
-        "changed). Publishing the same request again makes a new version."
+        "changed). Publishing a request identical (in canonical form, under the same "
+        "algorithm) to the newest version's answers 200 with that version instead of minting "
+        "a new one."
     ),
     status_code=201,
     responses={
         201: {"model": PublishedRecipe,
               "description": "Published; `Location` is the new version's URL."},
+        200: {"model": PublishedRecipe,
+              "description": "The newest version already stores this request: that version, "
+                             "unchanged; `Location` is its URL."},
         **_AUTH_DOC,
         **error_responses(400, 413, 415, 422),
         **_UNAVAILABLE_DOC,
@@ -295,14 +305,14 @@ async def publish_recipe(request: Request) -> Response:
         prepare_recipe, body, settings.limits, settings.threads_per_request()
     )
     try:
-        summary = await _db(publish, registry.engine, prepared, token)
+        summary, created = await _db(publish_unless_same, registry.engine, prepared, token)
     except AuthenticationError as exc:  # revoked while we were hashing
         raise _refused(exc) from None
     doc = {**_summary_doc(summary), "fingerprints": prepared.fingerprints}
     location = _links(summary.name, summary.version)["self"]
     return Response(
         _json_bytes(doc),
-        status_code=201,
+        status_code=201 if created else 200,
         media_type="application/json",
         headers={"Location": location, "Cache-Control": "no-store"},
     )
@@ -367,7 +377,8 @@ async def recipe_versions(request: Request, name: str = _NAME) -> Response:
     return _json_response(request, _json_bytes(doc), {"Cache-Control": MUTABLE})
 
 
-async def _stored(request: Request, registry: Registry, name: str, version: int) -> RecipeVersion:
+async def _stored(request: Request, registry: Registry, name: str, version: int | None
+                  ) -> RecipeVersion:
     _checked_name(name)
     await _check_reader(request, registry)
     try:
@@ -377,14 +388,53 @@ async def _stored(request: Request, registry: Registry, name: str, version: int)
         raise ApiError.one(404, field, "recipe_not_found", str(exc)) from None
 
 
-_VERSION = Path(description="The version number (1, 2, 3 ...).", ge=1, le=2**31 - 1)
+LATEST = "latest"
+# `latest` moves with every publish: caches may keep it briefly, then must ask again.
+LATEST_MAX_AGE = "max-age=30"
+_MAX_VERSION = 2**31 - 1
+_VERSION_RULE = f"a version number 1..{_MAX_VERSION}, or {LATEST!r} for the newest version"
+# Checked by hand (_version_of) for an error that states the rule; the schema shows it too.
+_VERSION = Path(description=f"The version: {_VERSION_RULE}.",
+                json_schema_extra={"pattern": "^(latest|[1-9][0-9]{0,9})$"})
+
+
+def _version_of(text: str) -> int | None:
+    """The version a path names: a number, or None for `latest`."""
+    if text == LATEST:
+        return None
+    if text.isascii() and text.isdigit() and not text.startswith("0") and len(text) <= 10:
+        number = int(text)
+        if number <= _MAX_VERSION:
+            return number
+    raise ApiError.one(422, "version", "invalid_value",
+                       f"got {text[:40]!r}; allowed: {_VERSION_RULE}")
+
+
+def _resolved_headers(registry: Registry, record: RecipeVersion, asked: int | None,
+                      etag: str | None, link: str) -> dict[str, str]:
+    """Caching headers for a version named by number (immutable, strong tag) or by `latest`
+    (short, weak tag), and where the concrete version lives. Without `etag` the caller sets
+    the ETag (the weights response computes its own)."""
+    s = record.summary
+    headers = {"X-Seedbed-Recipe": f"{s.name}/{s.version}"}
+    if asked is None:
+        headers["Cache-Control"] = _cache_control(registry, LATEST_MAX_AGE)
+        headers["Content-Location"] = link
+    else:
+        headers["Cache-Control"] = _cache_control(registry, IMMUTABLE)
+    if etag is not None:
+        headers["ETag"] = etag if asked is not None or etag.startswith("W/") else "W/" + etag
+    return headers
 
 
 @router.get(
     "/v1/recipes/{name}/{version}",
     operation_id="describeRecipeVersion",
     summary="One stored version: request, plan, fingerprints, publisher and time",
-    description="Never changes once published: strong ETag, cacheable for a year.",
+    description="A numbered version never changes once published: strong ETag, cacheable for "
+    "a year. `latest` names the newest version: the body is that version's (its `version` "
+    "field says which), with a weak ETag, `Cache-Control: max-age=30`, `Content-Location` and "
+    "`X-Seedbed-Recipe` naming the concrete version.",
     responses={200: {"model": StoredRecipe, "description": "The stored version."},
                304: {"description": "Unchanged."}, **_AUTH_DOC,
                **error_responses(404, s404="No such name or version."),
@@ -393,10 +443,11 @@ _VERSION = Path(description="The version number (1, 2, 3 ...).", ge=1, le=2**31 
 @router.head("/v1/recipes/{name}/{version}", operation_id="describeRecipeVersionHead",
              summary="Stored version headers only.", responses=error_responses(422))
 async def recipe_version(
-    request: Request, name: str = _NAME, version: int = _VERSION
+    request: Request, name: str = _NAME, version: str = _VERSION
 ) -> Response:
     registry = await _registry(request)
-    record = await _stored(request, registry, name, version)
+    asked = _version_of(version)
+    record = await _stored(request, registry, name, asked)
     doc = {
         **_summary_doc(record.summary),
         "request": record.request,
@@ -405,7 +456,8 @@ async def recipe_version(
         "content_sha256": record.content_sha256,
     }
     body = _json_bytes(doc)
-    headers = {"ETag": body_etag(body), "Cache-Control": _cache_control(registry, IMMUTABLE)}
+    headers = _resolved_headers(registry, record, asked, body_etag(body),
+                                _links(name, record.summary.version)["self"])
     if none_match(request.headers.get("if-none-match"), headers["ETag"]):
         return Response(status_code=304, headers=headers)
     return _json_response(request, body, headers)
@@ -440,7 +492,9 @@ def _replanned(record: RecipeVersion, settings_limits: Any) -> Plan:
         "`Cache-Control: public, max-age=31536000, immutable` (private when reads need a key). "
         "If-None-Match with the ETag answers 304 without generating anything. Each tensor is "
         "checked against the fingerprint stored at publish time while it streams; a mismatch "
-        "ends the body early, so a short body means do not use it."
+        "ends the body early, so a short body means do not use it. `latest` as the version "
+        "serves the newest version's weights with a weak ETag, `Cache-Control: max-age=30` "
+        "(not immutable), and `X-Seedbed-Recipe` / `Content-Location` naming the version used."
     ),
     response_class=Response,
     responses={
@@ -459,23 +513,26 @@ def _replanned(record: RecipeVersion, settings_limits: Any) -> Plan:
 async def recipe_weights(
     request: Request,
     name: str = _NAME,
-    version: int = _VERSION,
+    version: str = _VERSION,
     format: WeightsFormat = Query(  # noqa: B008 - FastAPI's parameter declaration style
-        "json", description="Container: json, npz or safetensors (as for POST /v1/weights)."
+        DEFAULT_FORMAT,
+        description="Container: npz (default), safetensors or json (as for POST /v1/weights).",
     ),
 ) -> Response:
     settings = settings_of(request)
     registry = await _registry(request)
-    record = await _stored(request, registry, name, version)
+    asked = _version_of(version)
+    record = await _stored(request, registry, name, asked)
+    concrete = record.summary.version
     plan = await run_in_threadpool(_replanned, record, settings.limits)
+    link = f"{_links(name, concrete)['weights']}?format={format}"
+    headers = _resolved_headers(registry, record, asked, None, link)
     options = WeightsOptions(
         format,
         digests=record.fingerprints,
-        headers={
-            "Cache-Control": _cache_control(registry, IMMUTABLE),
-            "X-Seedbed-Recipe": f"{name}/{version}",
-        },
-        filename=f"{name}-v{version}",
+        headers=headers,
+        filename=f"{name}-v{concrete}",
+        weak=asked is None,
     )
     return await weights_response(request, plan, options)
 

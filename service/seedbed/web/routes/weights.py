@@ -14,6 +14,8 @@ from seedbed.web.weights_response import WeightsOptions, select, weights_respons
 router = APIRouter(tags=["weights"])
 
 WeightsFormat = Literal["json", "npz", "safetensors"]
+# One default for the service, the client, the command line and the adapters (docs/formats.md).
+DEFAULT_FORMAT = "npz"
 
 _MEDIA_DOC = {
     "application/json": {"schema": {"$ref": "#/components/schemas/WeightsDocument"}},
@@ -44,9 +46,10 @@ _MEDIA_DOC = {
 async def generate_weights(
     request: Request,
     format: WeightsFormat = Query(  # noqa: B008 - FastAPI's parameter declaration style
-        "json",
-        description="Container: json (base64 in `data`), npz (zip of .npy members plus a "
-        "manifest member) or safetensors (manifest in the header metadata).",
+        DEFAULT_FORMAT,
+        description="Container: npz (the default: zip of .npy members plus a manifest "
+        "member), safetensors (manifest in the header metadata) or json (base64 in `data`). "
+        "docs/formats.md says why npz is the default everywhere.",
     ),
     tensor: str | None = Query(
         None, description="Serve only this tensor (a name from the plan)."
