@@ -246,15 +246,17 @@ def read_npz(fp: IO[bytes], size: int, limits: AuditLimits,
                 notes.append(note)
 
     tensors: list[StoredTensor] = []
+    skipped: list[str] = []
     for info in infos:
         name = info.filename
         if name == MANIFEST_MEMBER or info.is_dir():
             continue
         if not name.endswith(".npy"):
             notes.append(f"member {name!r} is not an .npy array and was not read")
+            skipped.append(name)
             continue
         tensors.append(_member_tensor(zf, info, limits, hinted))
-    return Upload("npz", tuple(tensors), tuple(notes))
+    return Upload("npz", tuple(tensors), tuple(notes), tuple(skipped))
 
 
 def _member_tensor(zf: zipfile.ZipFile, info: zipfile.ZipInfo, limits: AuditLimits,

@@ -25,7 +25,7 @@ from seedbed.core.audit.rank import numerical_rank, work_of
 from seedbed.core.audit.stats import ValueStats, value_stats
 from seedbed.core.audit.stored import FLOAT_ROUNDOFF, StoredTensor
 from seedbed.core.audit.twins import TwinGroups, twin_units
-from seedbed.core.audit.upload import open_upload
+from seedbed.core.audit.upload import open_upload, require_something_read
 from seedbed.core.plan_types import Plan, TensorPlan
 
 NOTICE = (
@@ -272,11 +272,12 @@ def audit_upload(fp: IO[bytes], size: int, limits: AuditLimits | None = None,
     """Audit an NPZ or safetensors file of `size` bytes readable from the seekable `fp`.
 
     Raises UploadRefused when the file cannot be read safely (before any value is read, except
-    damage found only while decompressing a member). Returns the JSON-ready report.
+    damage found only while decompressing a member), or when it holds no tensor that is read.
+    Returns the JSON-ready report.
     """
     limits = limits if limits is not None else AuditLimits()
     bf16 = {t.tensor for t in plan.tensors if t.dtype == "bfloat16"} if plan else set()
-    upload = open_upload(fp, size, limits, bf16)
+    upload = require_something_read(open_upload(fp, size, limits, bf16))
     planned = {t.tensor: t for t in plan.tensors} if plan else {}
     budget = _Budget(limits.rank_budget)
     output_layers = frozenset(_output_layers(plan)) if plan else frozenset()
