@@ -117,6 +117,7 @@ from seedbed.core.problems import (
 )
 from seedbed.core.rng.keys import SEED_INT_MAX
 from seedbed.core.rng.keys import SEED_STR_MAX_CHARS as SEED_STR_MAX
+from seedbed.core.suggest import did_you_mean
 
 # ---------------------------------------------------------------------------------------------
 # Vocabulary
@@ -351,7 +352,8 @@ def _checked_activation(value: str | None) -> str | None:
     if value is not None and value not in activation_names():
         raise field_error(
             "invalid_value",
-            f"got {describe_input(value)}; allowed activations: {_activation_allowed()}",
+            f"got {describe_input(value)}; allowed activations: {_activation_allowed()}"
+            f"{did_you_mean(value, activation_names())}",
         )
     return value
 
