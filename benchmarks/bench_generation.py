@@ -22,7 +22,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "service"))
 
 from timing import best_of
 
-from seedbed.core.rng import derive_key, fill_standard, round_to_dtype
+from seedbed_client.generator import derive_key, fill_standard, round_to_dtype
 
 SHAPE = (4096, 4096)
 COUNT = SHAPE[0] * SHAPE[1]

@@ -6,8 +6,8 @@ import hashlib
 
 import pytest
 
-from seedbed.core.rng import derive_key
-from seedbed.core.rng.keys import key_digest
+from seedbed_client.generator import derive_key
+from seedbed_client.generator.keys import key_digest
 
 
 def _by_hand(seed_text: bytes, name: str) -> tuple[int, int]:

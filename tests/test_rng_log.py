@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 
 from conftest import require_oracle
-from seedbed.core.rng import deterministic_log
-from seedbed.core.rng.logarithm import LN2_HI, LN2_LO
+from seedbed_client.generator import deterministic_log
+from seedbed_client.generator.logarithm import LN2_HI, LN2_LO
 
 
 def _max_ulp_error(x: np.ndarray) -> float:

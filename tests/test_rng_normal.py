@@ -8,13 +8,13 @@ import numpy as np
 import pytest
 
 from conftest import require_oracle
-from seedbed.core.rng import (
+from seedbed_client.generator import (
     TRUNCATION_MASS,
     TRUNCATION_STD_FACTOR,
     normal_quantile,
 )
-from seedbed.core.rng import normal_inverse as ni
-from seedbed.core.rng.unit import open_probability
+from seedbed_client.generator import normal_inverse as ni
+from seedbed_client.generator.unit import open_probability
 
 
 def _mantissa_sum(coeffs: tuple[float, ...]) -> Decimal:

@@ -7,8 +7,8 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from seedbed.core.rng import raw_draws
-from seedbed.core.rng.philox import DrawSource, numpy_counter_words
+from seedbed_client.generator import raw_draws
+from seedbed_client.generator.philox import DrawSource, numpy_counter_words
 
 M64 = (1 << 64) - 1
 

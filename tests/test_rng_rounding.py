@@ -8,7 +8,7 @@ import ml_dtypes
 import numpy as np
 import pytest
 
-from seedbed.core.rng import round_to_dtype
+from seedbed_client.generator import round_to_dtype
 
 # (stored fraction bits, smallest normal exponent, largest finite) per IEEE 754-2008 binary16
 # and binary32, and bfloat16 (8-bit exponent like binary32, 7 stored fraction bits).

@@ -10,7 +10,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from conftest import require_oracle
-from seedbed.core.rng import (
+from seedbed_client.generator import (
     TRUNCATION_MASS,
     TRUNCATION_STD_FACTOR,
     derive_key,
@@ -20,7 +20,7 @@ from seedbed.core.rng import (
     standard_runs,
     standard_values,
 )
-from seedbed.core.rng.unit import open_probability, unit_uniform
+from seedbed_client.generator.unit import open_probability, unit_uniform
 
 KEY = derive_key(20261201, "harbour.encoder.0.weight")
 N = 100_000

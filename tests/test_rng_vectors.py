@@ -10,7 +10,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from seedbed.core.rng import (
+from seedbed_client.generator import (
     TRUNCATION_MASS,
     TRUNCATION_STD_FACTOR,
     derive_key,
@@ -18,8 +18,8 @@ from seedbed.core.rng import (
     round_to_dtype,
     standard_values,
 )
-from seedbed.core.rng.logarithm import LN2_HI, LN2_LO, SERIES
-from seedbed.core.rng.normal_inverse import (
+from seedbed_client.generator.logarithm import LN2_HI, LN2_LO, SERIES
+from seedbed_client.generator.normal_inverse import (
     AS241_A,
     AS241_B,
     AS241_C,

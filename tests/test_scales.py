@@ -10,7 +10,6 @@ import mpmath
 import pytest
 from scipy import special, stats
 
-from seedbed.core.rng import TRUNCATION_BOUND, TRUNCATION_STD_FACTOR
 from seedbed.core.scales import (
     distribution_for_bound,
     distribution_for_std,
@@ -24,6 +23,7 @@ from seedbed.core.scales import (
     truncated_sigma_for_std,
     uniform_bound_for_std,
 )
+from seedbed_client.generator import TRUNCATION_BOUND, TRUNCATION_STD_FACTOR
 
 
 def _mp(formula: Callable[[], Any]) -> float:

@@ -2,7 +2,7 @@
 
 The same JSON is shown in docs/generator.md; tests/test_rng_vectors.py checks that the code
 reproduces it and that the document shows exactly this file. Regenerate only together with
-a new ALGORITHM version:  PYTHONPATH=service python tests/vectors/make_rng_vectors.py
+a new ALGORITHM version:  PYTHONPATH=service:client python tests/vectors/make_rng_vectors.py
 """
 
 from __future__ import annotations
@@ -12,8 +12,8 @@ from pathlib import Path
 
 import numpy as np
 
-from seedbed.core.rng import derive_key, raw_draws, round_to_dtype, standard_values
-from seedbed.core.rng.keys import KEY_DOMAIN_TAG, key_digest, seed_bytes
+from seedbed_client.generator import derive_key, raw_draws, round_to_dtype, standard_values
+from seedbed_client.generator.keys import KEY_DOMAIN_TAG, key_digest, seed_bytes
 
 OUT = Path(__file__).with_name("rng_vectors.json")
 CASES = ((20261201, "harbour.encoder.0.weight"), ("tidal-gauge/7", "decoder.3.query.weight"))

@@ -5,7 +5,7 @@ supported numpy) and compared with the same computation in the test process; the
 rng_golden.json holds the expected values. Only the rng package is imported, so this runs
 in a bare environment with numpy, mpmath and ml_dtypes:
 
-    PYTHONPATH=service python tests/vectors/rng_fingerprint.py [--write-golden]
+    PYTHONPATH=service:client python tests/vectors/rng_fingerprint.py [--write-golden]
 """
 
 from __future__ import annotations
@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from seedbed.core.rng import (
+from seedbed_client.generator import (
     DISTRIBUTIONS,
     OUTPUT_DTYPES,
     derive_key,

@@ -16,8 +16,8 @@ from seedbed.core.activations import (
     gain_for,
 )
 from seedbed.core.references import cite
-from seedbed.core.rng import TRUNCATION_BOUND, TRUNCATION_STD_FACTOR
 from seedbed.core.version import ALGORITHM
+from seedbed_client.generator import TRUNCATION_BOUND, TRUNCATION_STD_FACTOR
 
 _METHODS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
     ("symmetric_uniform", "U(-b, b); b given, or gain/sqrt(fan) (the older heuristic "

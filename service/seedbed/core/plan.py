@@ -230,7 +230,11 @@ def plan_document(plan: Plan) -> dict[str, Any]:
         "seed": plan.seed,
         "dtype": plan.dtype,
         "layout": plan.layout,
-        "tensors": [t.manifest() for t in plan.tensors],
+        # Each entry carries its generation recipe so a client can make the bytes itself
+        # (seedbed_client.generator.materialize) without asking for them.
+        "tensors": [
+            {**t.manifest(), "generation": t.recipe(plan.seed).document()} for t in plan.tensors
+        ],
         "warnings": list(plan.warnings),
         "totals": {
             "tensors": len(plan.tensors),

@@ -10,6 +10,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
+from seedbed_client.generator.materialize import TensorRecipe
+
 Reproducibility = Literal["exact", "platform"]
 
 # How the generator produces values; `TensorPlan.sampler` is one of these.
@@ -64,6 +66,20 @@ class TensorPlan:
     @property
     def nbytes(self) -> int:
         return self.count * self.itemsize
+
+    def recipe(self, seed: int | str) -> TensorRecipe:
+        """What the shared generator needs to produce this tensor's values."""
+        return TensorRecipe(
+            seed=seed,
+            tensor=self.tensor,
+            sampler=self.sampler,
+            scale=self.scale,
+            dtype=self.dtype,
+            logical_shape=self.logical_shape,
+            served_axes=self.served_axes,
+            gate_blocks=self.gate_blocks,
+            block_values=self.block_values,
+        )
 
     def manifest(self) -> dict[str, Any]:
         """The JSON-ready entry shared by the plan response and every weights manifest."""

@@ -21,7 +21,7 @@ of ReLU, so `he_scale` with the default gain is exactly eq. 10.
 A std becomes distribution parameters with `distribution_for_std`: uniform bound std*sqrt(3);
 normal std itself; truncated normal (cut at +-TRUNCATION_BOUND = 2 untruncated sigmas) sigma =
 std / TRUNCATION_STD_FACTOR, since truncation shrinks the std by that factor. The factor and the
-bound come from seedbed.core.rng, the generator that does the truncating.
+bound come from seedbed_client.generator, the generator that does the truncating.
 
 Determinism: these values become weights, so only IEEE-exact operations (+ - * / and
 math.sqrt, all correctly rounded) are used on floats, and the logarithm of the prior bias is
@@ -50,7 +50,7 @@ from typing import Any, Literal
 import mpmath
 
 from seedbed.core.references import cite, short_cite
-from seedbed.core.rng import TRUNCATION_BOUND, TRUNCATION_STD_FACTOR
+from seedbed_client.generator import TRUNCATION_BOUND, TRUNCATION_STD_FACTOR
 
 FanChoice = Literal["in", "out", "mean"]
 Distribution = Literal["uniform", "normal", "truncated_normal"]

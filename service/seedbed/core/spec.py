@@ -115,9 +115,9 @@ from seedbed.core.problems import (
     field_error,
     problems_from_validation_error,
 )
-from seedbed.core.rng.keys import SEED_INT_MAX
-from seedbed.core.rng.keys import SEED_STR_MAX_CHARS as SEED_STR_MAX
 from seedbed.core.suggest import did_you_mean
+from seedbed_client.generator.keys import SEED_INT_MAX
+from seedbed_client.generator.keys import SEED_STR_MAX_CHARS as SEED_STR_MAX
 
 # ---------------------------------------------------------------------------------------------
 # Vocabulary

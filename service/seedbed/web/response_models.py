@@ -64,6 +64,25 @@ class PlanEntry(BaseModel):
     warnings: list[str]
 
 
+class GenerationRecipe(_Closed):
+    """How the shared generator makes this tensor's values (docs/generator.md, "Recipes")."""
+
+    sampler: Literal["uniform", "normal", "truncated_normal", "orthogonal", "identity",
+                     "constant"]
+    scale: float = Field(description="Bound (uniform), std before truncation (normal kinds), "
+                                     "gain (orthogonal, identity) or the constant value.")
+    logical_shape: list[int] = Field(description="Generation order: output axis first.")
+    served_axes: list[int] = Field(description="served = logical.transpose(served_axes).")
+    gate_blocks: int = Field(ge=1)
+    block_values: list[float] | None
+
+
+class PlanTensor(PlanEntry):
+    """A tensor of a plan response: its entry plus the recipe to generate it locally."""
+
+    generation: GenerationRecipe
+
+
 class PlanTotals(_Closed):
     tensors: int = Field(ge=0)
     values: int = Field(ge=0)
@@ -105,7 +124,7 @@ class PlanDocument(BaseModel):
     seed: int | str
     dtype: DType
     layout: Layout
-    tensors: list[PlanEntry]
+    tensors: list[PlanTensor]
     warnings: list[str]
     totals: PlanTotals
     notice: str
