@@ -358,6 +358,9 @@ def _checked_activation(value: str | None) -> str | None:
     return value
 
 
+# Sources a layer's `reads` may join: more than any concatenating skip in common use.
+MAX_READS = 16
+
 _NAME_TEXT = (
     "1 to 128 characters of letters, digits, '_', '.', '-', starting with a letter, digit or '_'"
 )
@@ -493,6 +496,19 @@ class _LayerBase(_Strict):
         description="For a dense or conv output layer with a bias: the prior probability of "
         "the positive class; the bias becomes log(pi/(1-pi)) (Lin et al. 2017, sec. 4.1).",
         examples=[0.01],
+    )
+    reads: Annotated[
+        list[Annotated[str, Allowed(_NAME_TEXT)]],
+        Field(max_length=MAX_READS),
+        Allowed(f"a list of at most {MAX_READS} names of earlier layers"),
+    ] | None = Field(
+        default=None,
+        description="What this layer reads when it is not the output of the layer before it: "
+        "the names of earlier layers whose outputs are joined (concatenated along features) "
+        "into its input, e.g. a second head on a trunk, or a skip that concatenates. Its input "
+        "width is then checked against their sum. An empty list: the layer reads an input of "
+        "the network, not checked. Omit it for the usual chain (see seedbed.core.width_chain).",
+        examples=[["trunk.3"], ["encoder.1", "decoder.0"], []],
     )
 
     @field_validator("name", "branch", "block", mode="after")
@@ -1280,6 +1296,16 @@ class NetworkRequest(_Strict):
         "(transformer_block, residual_conv_block) expand into named basic layers.",
         examples=[_EXAMPLE_REQUEST["layers"][:2], _EXAMPLE_BLOCKS["layers"][1:2]],
     )
+    widths: Annotated[
+        Literal["unchecked"], Allowed("unchecked, or omit the field (widths chain)")
+    ] | None = Field(
+        default=None,
+        description="Omit it: each layer's input width must equal what it reads (the layer "
+        "before it, or the layers named in its `reads`). \"unchecked\": the layers are a "
+        "collection of separate layers rather than one network, and no width between them is "
+        "checked (diagnose refuses such a request: it needs a chain).",
+        examples=["unchecked"],
+    )
     depth_policy: Annotated[DepthPolicy, Allowed(_POLICY_TEXT)] | None = Field(
         default=None,
         description="A depth- or width-aware rule applied on top of the recommendations: "
@@ -1380,6 +1406,7 @@ def parse_request(data: object, limits: Limits | None = None) -> NetworkRequest:
         relocate_problems,
     )
     from seedbed.core.tensors import slots_by_layer, tensor_name_problems
+    from seedbed.core.width_chain import chain_problems
 
     limits = limits if limits is not None else Limits()
     if not isinstance(data, dict):
@@ -1405,6 +1432,9 @@ def parse_request(data: object, limits: Limits | None = None) -> NetworkRequest:
     problems += tensor_name_problems(request, slots)
     structure = branch_problems(request)
     problems += structure
+    # A branch whose width changes inside it is already told at the same field.
+    told = {p.field for p in structure}
+    problems += [p for p in chain_problems(request) if p.field not in told]
     problems += _dtype_range_problems(request)
     problems += size_problems(request, slots, limits)
     if not structure:
