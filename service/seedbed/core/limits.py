@@ -33,6 +33,16 @@ if TYPE_CHECKING:
 MAX_SIZE = 2**31 - 1
 
 
+# The service reads each limit from the environment variable of its name (seedbed.web.settings);
+# a refusal names it so that whoever runs the service knows which one to raise.
+SETTING_PREFIX = "SEEDBED_"
+
+
+def raised_by(limit: str, prefix: str = SETTING_PREFIX) -> str:
+    """"; the service's setting SEEDBED_<LIMIT> raises it", to end a refusal with."""
+    return f"; the service's setting {prefix}{limit.upper()} raises it"
+
+
 @dataclass(frozen=True)
 class Limits:
     """Request limits; the web layer builds one from its settings, tests pass their own.
@@ -81,7 +91,7 @@ def check_layer_count(data: object, limits: Limits) -> None:
                         "layers",
                         "too_large",
                         f"the request has {len(layers)} layers; the limit is "
-                        f"{limits.max_layers} per request",
+                        f"{limits.max_layers} per request{raised_by('max_layers')}",
                     )
                 ]
             )
@@ -114,7 +124,8 @@ def size_problems(
                         "too_large",
                         f"tensor {slot.tensor!r} would have {count} elements (shape "
                         f"{list(slot.served_shape)}); the limit is "
-                        f"{limits.max_tensor_elements} elements per tensor",
+                        f"{limits.max_tensor_elements} elements per tensor"
+                        f"{raised_by('max_tensor_elements')}",
                     )
                 )
         problems.extend(_orthogonal_problems(request, i, layer_slots, limits))
@@ -124,7 +135,8 @@ def size_problems(
                 "layers",
                 "too_large",
                 f"the request's tensors have {total} elements in total; the limit is "
-                f"{limits.max_request_elements} elements per request",
+                f"{limits.max_request_elements} elements per request"
+                f"{raised_by('max_request_elements')}",
             )
         )
     return problems
@@ -147,7 +159,8 @@ def _orthogonal_problems(
                         f"layers[{i}].init.method",
                         "too_large",
                         f"orthogonal initialisation of {slot.tensor!r} needs a QR factorisation "
-                        f"of a {rows} x {cols} matrix; the larger side may be at most {cap}",
+                        f"of a {rows} x {cols} matrix; the larger side may be at most {cap}"
+                        f"{raised_by('max_orthogonal_dim')}",
                     )
                 )
         elif init is None and slot.part == "recurrent_weight":
@@ -162,7 +175,7 @@ def _orthogonal_problems(
                         f"hidden = {hidden}: the recurrent matrix is initialised orthogonal, "
                         f"which needs a QR factorisation of a {hidden} x {hidden} matrix; "
                         f"hidden may be at most {cap} (or give an init override that is not "
-                        "orthogonal)",
+                        f"orthogonal){raised_by('max_orthogonal_dim')}",
                     )
                 )
     return problems

@@ -45,7 +45,8 @@ def _identity_problem(index: int, layer: Any, slot: TensorSlot) -> Problem | Non
     what = ("channels_out/groups equal to channels_in/groups" if layer.kind == "conv"
             else "a square weight (per gate block)")
     return Problem(f"layers[{index}].init.method", "invalid_value",
-                   f"identity needs {what}: {slot.tensor} has {rows} outputs and {cols} inputs "
+                   f"identity needs {what}: {slot.tensor} has {rows} output"
+                   f"{'' if rows == 1 else 's'} and {cols} input{'' if cols == 1 else 's'} "
                    "per block; use orthogonal for rectangular weights")
 
 

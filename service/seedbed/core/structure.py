@@ -31,7 +31,7 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from seedbed.core.limits import Limits
+from seedbed.core.limits import Limits, raised_by
 from seedbed.core.problems import Problem, RequestRejected, describe_input
 from seedbed.core.spec import (
     BLOCK_MODELS,
@@ -110,7 +110,8 @@ def check_expanded_count(data: object, limits: Limits) -> None:
     raise RequestRejected([Problem(
         field, "too_large",
         f"the layers expand to {_number(total)} layers{what}; the limit is {limits.max_layers} "
-        "layers per request, counted after expanding block shorthands")])  # fmt: skip
+        "layers per request, counted after expanding block shorthands"
+        f"{raised_by('max_layers')}")])  # fmt: skip
 
 
 def _activation(block: _BlockBase) -> dict[str, Any]:

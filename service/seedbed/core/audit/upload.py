@@ -10,6 +10,7 @@ from seedbed.core.audit.npz_reader import read_npz
 from seedbed.core.audit.refusals import UploadRefused
 from seedbed.core.audit.safetensors_reader import looks_like_safetensors, read_safetensors
 from seedbed.core.audit.stored import Upload
+from seedbed.core.limits import raised_by
 
 _ZIP_STARTS = (b"PK\x03\x04", b"PK\x05\x06")  # a first member, or an empty archive
 _NPY_START = b"\x93NUMPY"
@@ -24,7 +25,7 @@ def open_upload(fp: IO[bytes], size: int, limits: AuditLimits,
     if size > limits.max_upload_bytes:
         raise UploadRefused("too_large",
                             f"the file is {size} bytes; at most {limits.max_upload_bytes} are "
-                            "audited")
+                            f"audited{raised_by('max_audit_bytes')}")
     fp.seek(0)
     head = fp.read(16)
     if head.startswith(_ZIP_STARTS):

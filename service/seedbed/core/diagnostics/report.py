@@ -17,12 +17,17 @@ from dataclasses import dataclass
 from typing import Any
 
 from seedbed.core.diagnostics.body import RECOMMENDED, AlternativeSpec, parse_body
-from seedbed.core.diagnostics.budget import DiagnosticLimits, cost_problems, run_cost
+from seedbed.core.diagnostics.budget import (
+    DIAGNOSE_SETTING_PREFIX,
+    DiagnosticLimits,
+    cost_problems,
+    run_cost,
+)
 from seedbed.core.diagnostics.engine import INPUT_SEED, LayerRecord, Simulation, simulate
 from seedbed.core.diagnostics.network import Network, build_network
 from seedbed.core.diagnostics.unit_stats import SATURATION_RULES
 from seedbed.core.diagnostics.verdict import HIGH, LOW, SYMMETRIC_SHARE, Verdict, judge
-from seedbed.core.limits import Limits, size_problems
+from seedbed.core.limits import Limits, raised_by, size_problems
 from seedbed.core.meanfield import mean_field
 from seedbed.core.plan import plan_request
 from seedbed.core.plan_types import Plan, TensorPlan
@@ -179,11 +184,13 @@ def _limit_problems(batch: int, alternatives: int, dl: DiagnosticLimits) -> list
     problems = []
     if batch > dl.max_batch:
         problems.append(Problem("batch", "too_large",
-                                f"batch {batch} is over the limit of {dl.max_batch} samples"))
+                                f"batch {batch} is over the limit of {dl.max_batch} samples"
+                                f"{raised_by('max_batch', DIAGNOSE_SETTING_PREFIX)}"))
     if alternatives > dl.max_alternatives:
         problems.append(Problem("alternatives", "too_large",
                                 f"{alternatives} alternatives given; the limit is "
-                                f"{dl.max_alternatives}"))
+                                f"{dl.max_alternatives}"
+                                f"{raised_by('max_alternatives', DIAGNOSE_SETTING_PREFIX)}"))
     return problems
 
 
