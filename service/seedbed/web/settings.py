@@ -90,6 +90,9 @@ class Settings:
     chunk_bytes: int = 4 << 20
     # Largest weights file POST /v1/audit accepts (read in a spool, never all in memory).
     max_audit_bytes: int = 256 << 20
+    # Audits one worker runs at once: each holds its upload's largest tensor in memory, so the
+    # cap bounds memory; more answer 503 with Retry-After instead of queueing.
+    max_concurrent_audits: int = 4
     limits: Limits = field(default_factory=Limits)
     # POST /v1/diagnose budgets, read as SEEDBED_DIAGNOSE_<FIELD> (e.g. SEEDBED_DIAGNOSE_MAX_BATCH).
     diagnostics: DiagnosticLimits = field(default_factory=DiagnosticLimits)
@@ -130,6 +133,7 @@ _PARSERS: dict[str, Callable[[str, str], Any]] = {
     "generation_threads": _int_in(1, 256),
     "chunk_bytes": _int_in(4096, _GIB),
     "max_audit_bytes": _int_in(1024, 64 * _GIB),
+    "max_concurrent_audits": _int_in(1, 1024),
 }
 
 
