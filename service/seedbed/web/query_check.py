@@ -35,9 +35,8 @@ async def refuse_unknown_query(request: Request) -> None:
     route = request.scope.get("route")
     if not isinstance(route, APIRoute):
         return
-    unknown = [key for key in dict.fromkeys(request.query_params.keys())]
     allowed = declared_query_names(route)
-    unknown = [key for key in unknown if key not in allowed]
+    unknown = [key for key in dict.fromkeys(request.query_params.keys()) if key not in allowed]
     if not unknown:
         return
     takes = (
@@ -47,7 +46,7 @@ async def refuse_unknown_query(request: Request) -> None:
         422,
         [
             Fault(
-                key,
+                key or "(query)",
                 UNKNOWN_PARAMETER,
                 f"unknown query parameter {key[:60]!r}; {takes}{did_you_mean(key, allowed)}",
             )

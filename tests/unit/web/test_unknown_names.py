@@ -128,3 +128,9 @@ def test_body_names_get_a_did_you_mean(
 def test_no_suggestion_when_nothing_is_close(client: TestClient) -> None:
     got = error(client.post("/v1/plan", json=layer_with(activation="quartic")))
     assert "did you mean" not in got["message"]
+
+
+def test_an_empty_parameter_name_is_named_as_the_query(client: TestClient) -> None:
+    # Found by schemathesis: "?=false" used to give an error whose field was empty.
+    got = error(client.get("/v1/recipes?=false"))
+    assert (got["field"], got["code"]) == ("(query)", "unknown_parameter")
