@@ -15,10 +15,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from seedbed.core.audit import stats as stats_module
+from seedbed.core.audit.identical_units import twin_units
 from seedbed.core.audit.rank import numerical_rank
 from seedbed.core.audit.stats import value_stats
 from seedbed.core.audit.stored import FLOAT_ROUNDOFF
-from seedbed.core.audit.twins import twin_units
 
 DTYPES = {"float64": np.float64, "float32": np.float32, "float16": np.float16,
           "bfloat16": ml_dtypes.bfloat16}
@@ -174,7 +174,7 @@ def test_chance_twins_estimate_matches_the_birthday_count() -> None:
 def test_short_low_precision_rows_repeating_by_chance_are_only_a_warning() -> None:
     import io
 
-    from seedbed.core.audit import audit_upload
+    from seedbed.formats.upload_in import audit_upload
 
     rng = np.random.default_rng(22)
     w = (rng.standard_normal((3000, 1)) * 0.1).astype(np.float16)
@@ -187,7 +187,7 @@ def test_short_low_precision_rows_repeating_by_chance_are_only_a_warning() -> No
 
 
 def test_wide_rows_are_grouped_the_same_way(monkeypatch: pytest.MonkeyPatch) -> None:
-    from seedbed.core.audit import twins as twins_module
+    from seedbed.core.audit import identical_units as twins_module
 
     rng = np.random.default_rng(30)
     rows = rng.standard_normal((12, 40)).astype(np.float32)

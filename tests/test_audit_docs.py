@@ -11,8 +11,8 @@ import pytest
 from seedbed.core.audit import AuditLimits, Finding
 from seedbed.core.audit.findings import FINDING_CODES
 from seedbed.core.audit.refusals import REFUSAL_CODES
+from seedbed.settings import SettingsError
 from seedbed.web.routes.audit import MAX_AUDIT_ENV, audit_limits_from_env
-from seedbed.web.settings import SettingsError
 
 DOC = (Path(__file__).resolve().parents[1] / "docs" / "audit.md").read_text(encoding="utf-8")
 

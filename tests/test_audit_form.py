@@ -16,7 +16,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from seedbed.core.audit import FormError, FormPartsParser, PartInfo, boundary_of
+from seedbed.formats.multipart_in import FormError, FormPartsParser, PartInfo, boundary_of
 
 
 class _Sink:

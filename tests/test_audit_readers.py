@@ -24,8 +24,8 @@ import numpy as np
 import pytest
 
 from conftest import require_oracle
-from seedbed.core.audit import AuditLimits, UploadRefused, audit_upload
-from seedbed.core.audit.upload import open_upload
+from seedbed.core.audit import AuditLimits, UploadRefused
+from seedbed.formats.upload_in import audit_upload, open_upload
 
 
 def st() -> ModuleType:

@@ -6,7 +6,8 @@ import math
 
 from seedbed.core.activations import activation_names
 from seedbed.core.catalog import catalog
-from seedbed.core.spec import POLICY_NAMES, RANDOM_METHODS
+from seedbed.core.request.policy_models import POLICY_NAMES
+from seedbed.core.request.vocabulary import RANDOM_METHODS
 
 
 def test_catalog_lists_every_activation_policy_and_method() -> None:

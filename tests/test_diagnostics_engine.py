@@ -25,14 +25,14 @@ from seedbed.core.diagnostics.engine import Simulation, simulate
 from seedbed.core.diagnostics.network import Network, Step, build_network
 from seedbed.core.plan import plan_request
 from seedbed.core.plan_types import Plan
-from seedbed.core.spec import parse_request
+from seedbed.core.request.parse import parse
 
 torch = require_oracle("torch")
 F = torch.nn.functional
 
 
 def _setup(request: dict[str, Any]) -> tuple[Network, Plan]:
-    parsed = parse_request(request)
+    parsed = parse(request)
     return build_network(parsed), plan_request(parsed)
 
 

@@ -18,9 +18,9 @@ import pytest
 
 from seedbed.core.diagnostics import DiagnosticLimits, chart_html, chart_svg, diagnose
 from seedbed.core.diagnostics.report import diagnosis_document
-from seedbed.core.diagnostics.twins import locked_groups, summarise, twin_groups
+from seedbed.core.diagnostics.twin_groups import locked_groups, summarise, twin_groups
 from seedbed.core.diagnostics.unit_stats import activate, dead_units, saturated_fraction
-from seedbed.core.problems import RequestRejected
+from seedbed.core.request.problems import RequestRejected
 
 # --- twin units -----------------------------------------------------------------------------
 

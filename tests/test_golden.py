@@ -2,7 +2,7 @@
 
 The same digests must come out in a subprocess whose numpy runs with its optional SIMD
 dispatch targets turned off (NPY_DISABLE_CPU_FEATURES): the reproducibility contract says CPU
-feature levels must not change a single byte (DESIGN.md).
+feature levels must not change a single byte (docs/architecture.md, reproducibility contract).
 """
 
 from __future__ import annotations

@@ -1,5 +1,5 @@
-"""The core must stay importable without any web framework (DESIGN.md: dependencies point one
-way, from the web layer to the core)."""
+"""The core must stay importable without any web framework (docs/architecture.md: dependencies
+point one way, from the web layer to the core)."""
 
 import ast
 from pathlib import Path

@@ -6,10 +6,10 @@ from typing import Any
 
 import pytest
 
-from seedbed.core import spec
-from seedbed.core.limits import MAX_SIZE, Limits, check_layer_count
-from seedbed.core.problems import RequestRejected
-from seedbed.core.spec import parse_request
+from seedbed.core.request.limits import MAX_SIZE, Limits, check_layer_count
+from seedbed.core.request.network import NetworkRequest
+from seedbed.core.request.parse import parse
+from seedbed.core.request.problems import RequestRejected
 
 
 def dense(name: str, n_in: int, n_out: int, **extra: Any) -> dict[str, Any]:
@@ -18,7 +18,7 @@ def dense(name: str, n_in: int, n_out: int, **extra: Any) -> dict[str, Any]:
 
 def rejected(body: object, limits: Limits | None = None) -> RequestRejected:
     with pytest.raises(RequestRejected) as info:
-        parse_request(body, limits)
+        parse(body, limits)
     return info.value
 
 
@@ -32,7 +32,7 @@ def test_ten_million_layers_are_refused_before_any_layer_is_validated(
         calls += 1
         raise AssertionError("model validation must not run for an over-long layer list")
 
-    monkeypatch.setattr(spec.NetworkRequest, "model_validate", counting_validate)
+    monkeypatch.setattr(NetworkRequest, "model_validate", counting_validate)
     # Items that are not even objects: validating them would produce one problem each.
     body = {"seed": 1, "layers": [None] * 10_000_000}
     err = rejected(body)
@@ -47,7 +47,7 @@ def test_ten_million_layers_are_refused_before_any_layer_is_validated(
 def test_layer_count_boundary() -> None:
     limits = Limits(max_layers=3)
     layers = [dense(f"l{i}", 2, 2) for i in range(3)]
-    parse_request({"seed": 1, "layers": layers}, limits)
+    parse({"seed": 1, "layers": layers}, limits)
     err = rejected({"seed": 1, "layers": [*layers, dense("l3", 2, 2)]}, limits)
     assert [(p.field, p.code) for p in err.problems] == [("layers", "too_large")]
     assert "4 layers" in err.problems[0].message and "limit is 3" in err.problems[0].message
@@ -61,7 +61,7 @@ def test_check_layer_count_ignores_what_it_cannot_measure() -> None:
 
 def test_tensor_element_limit_with_exact_numbers() -> None:
     limits = Limits(max_tensor_elements=1000)
-    parse_request({"seed": 1, "layers": [dense("fits", 25, 40)]}, limits)  # exactly 1000
+    parse({"seed": 1, "layers": [dense("fits", 25, 40)]}, limits)  # exactly 1000
     err = rejected({"seed": 1, "layers": [dense("ok", 2, 25), dense("big", 25, 41)]}, limits)
     (p,) = err.problems
     assert (p.field, p.code) == ("layers[1]", "too_large")
@@ -80,7 +80,7 @@ def test_default_tensor_limit_is_checked_without_allocating() -> None:
 def test_request_element_limit_sums_every_tensor() -> None:
     limits = Limits(max_request_elements=100)
     # 9*10 weight + 9 bias = 99 elements: fits; one more layer of 2x1 (+1 bias) does not.
-    parse_request({"seed": 1, "layers": [dense("a", 10, 9)]}, limits)
+    parse({"seed": 1, "layers": [dense("a", 10, 9)]}, limits)
     err = rejected({"seed": 1, "layers": [dense("a", 10, 9), dense("b", 1, 2)],
                     "widths": "unchecked"}, limits)
     (p,) = err.problems
@@ -111,7 +111,7 @@ def test_largest_allowed_size_reaches_the_element_limit_with_its_numbers() -> No
 
 def test_orthogonal_override_size() -> None:
     limits = Limits(max_orthogonal_dim=64)
-    parse_request(
+    parse(
         {"seed": 1, "layers": [dense("sq", 64, 64, init={"method": "orthogonal"})]}, limits
     )
     conv = {"name": "k", "kind": "conv", "channels_in": 8, "channels_out": 16, "kernel": [3, 3],
@@ -131,7 +131,7 @@ def test_recurrent_hidden_is_limited_by_qr_size_unless_overridden() -> None:
     assert (p.field, p.code) == ("layers[0].hidden", "too_large")
     assert "hidden = 33" in p.message and "33 x 33" in p.message and "at most 32" in p.message
     # A non-orthogonal override needs no QR; an orthogonal one is checked per gate block.
-    parse_request({"seed": 1, "layers": [{**cell, "init": {"method": "glorot"}}]}, limits)
+    parse({"seed": 1, "layers": [{**cell, "init": {"method": "glorot"}}]}, limits)
     err = rejected({"seed": 1, "layers": [{**cell, "init": {"method": "orthogonal"}}]}, limits)
     assert {p.field for p in err.problems} == {"layers[0].init.method"}
     assert any("33 x 33 matrix" in p.message for p in err.problems)

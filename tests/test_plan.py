@@ -8,9 +8,9 @@ import pytest
 from scipy import integrate, stats
 
 from seedbed.core.plan import build_plan, plan_document
-from seedbed.core.problems import RequestRejected
+from seedbed.core.request.problems import RequestRejected
 
-REQUIRED_ENTRY_KEYS = {  # DESIGN.md: what each plan entry holds at least
+REQUIRED_ENTRY_KEYS = {  # docs/service.md: what each plan entry holds at least
     "tensor", "layer", "shape", "dtype", "method", "distribution", "fan_in", "fan_out", "gain",
     "std", "bound", "reproducible", "rationale", "references",
 }

@@ -2,7 +2,7 @@
 does to the plan, and errors that name the field.
 
 Outside sources: the formulas are recomputed here with mpmath or plain float arithmetic (not
-the core's code path) and the published values from the issue are checked beside them; drawn
+the core's code path) and published values worked out by hand are checked beside them; drawn
 values are checked statistically against the planned std.
 """
 
@@ -18,9 +18,9 @@ import pytest
 
 from seedbed.core.plan import build_plan, plan_document
 from seedbed.core.plan_types import Plan
-from seedbed.core.problems import RequestRejected
 from seedbed.core.render import render_rows
-from seedbed.core.spec import parse_request
+from seedbed.core.request.parse import parse
+from seedbed.core.request.problems import RequestRejected
 
 
 def dense(name: str, n_in: int, n_out: int, **extra: Any) -> dict[str, Any]:
@@ -88,7 +88,7 @@ def check_drawn(plan: Plan, name: str, expected: float) -> None:
 def test_fixup_l8_m2_scales_by_0_353553() -> None:
     plan = build_plan(soil_resnet(8, 2, depth_policy={"name": "fixup"}))
     # Zhang et al. 2019, sec. 3 (the Fixup recipe) [from memory]: branch layers except the
-    # last are scaled by L^(-1/(2m-2)); L = 8, m = 2 gives 8^(-1/2) = 0.353553 (issue 5).
+    # last are scaled by L^(-1/(2m-2)); L = 8, m = 2 gives 8^(-1/2) = 0.353553.
     factor = 8 ** (-1 / 2)
     assert factor == pytest.approx(0.353553, abs=5e-7)
     he = math.sqrt(2 / 64)  # He et al. 2015, eq. 10
@@ -181,7 +181,7 @@ def test_skip_gate_adds_a_zero_gate_per_branch_and_changes_nothing_else() -> Non
 def test_twelve_blocks_scale_residual_outputs_by_sqrt_24() -> None:
     plan = build_plan(tide_lm(12, depth_policy={"name": "scaled_residual"}))
     # Radford et al. 2019, sec. 2.3: residual-layer weights scaled by 1/sqrt(N), N the number
-    # of residual layers: 12 blocks x 2 = 24. The 0.02 base std is common practice (issue 5:
+    # of residual layers: 12 blocks x 2 = 24. The 0.02 base std is common practice (
     # 0.02/sqrt(24) = 0.00408248).
     small = 0.02 / math.sqrt(24)
     assert small == pytest.approx(0.00408248, abs=5e-9)
@@ -220,7 +220,7 @@ def test_deepnorm_encoder_n6_alpha_and_beta() -> None:
                                                             "architecture": "encoder"}))
     # Wang et al. 2022 (DeepNet), encoder-only with N layers: alpha = (2N)^(1/4), beta =
     # (8N)^(-1/4) (the table beside the DeepNorm pseudocode; location [from memory]). N = 6
-    # gives 1.861210 and 0.379918 (issue 5).
+    # gives 1.861210 and 0.379918.
     alpha, beta = 12 ** 0.25, 48 ** -0.25
     assert (alpha, beta) == (pytest.approx(1.861210, abs=5e-7), pytest.approx(0.379918, abs=5e-7))
     doc = plan_document(plan)
@@ -416,14 +416,14 @@ def test_width_transfer_with_an_explicit_width_and_attention() -> None:
 )  # fmt: skip
 def test_policy_errors_name_the_field(body: dict[str, Any], expected: tuple[str, str]) -> None:
     with pytest.raises(RequestRejected) as info:
-        parse_request(body)
+        parse(body)
     assert expected in fields(info.value), info.value.problems
     assert all(p.message for p in info.value.problems)
 
 
 def test_policy_names_are_listed_in_the_error() -> None:
     with pytest.raises(RequestRejected) as info:
-        parse_request(tide_lm(1, depth_policy={"name": "rezero"}))
+        parse(tide_lm(1, depth_policy={"name": "rezero"}))
     message = info.value.problems[0].message
     for name in ("fixup", "skip_gate", "scaled_residual", "deepnorm", "t_fixup",
                  "width_transfer"):

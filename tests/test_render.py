@@ -10,8 +10,9 @@ from scipy import stats
 
 from conftest import require_oracle
 from seedbed.core.plan import build_plan
-from seedbed.core.problems import RequestRejected
-from seedbed.core.render import iter_tensor_bytes, parse_rows, render_rows
+from seedbed.core.render import iter_tensor_bytes, render_rows
+from seedbed.core.request.problems import RequestRejected
+from seedbed.web.weights_response import parse_rows
 
 
 def plan_of(*layers: dict, **top: object):

@@ -12,24 +12,22 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from seedbed.core import problems as problems_module
-from seedbed.core.limits import Limits
-from seedbed.core.problems import PROBLEM_CODES, RequestRejected
-from seedbed.core.spec import (
-    DTYPE_MAX,
-    DTYPE_TINY,
+from seedbed.core.request.branches import branches_of
+from seedbed.core.request.layers import (
     AttentionLayer,
-    BiasOverride,
     ConvLayer,
     DenseLayer,
     EmbeddingLayer,
-    NetworkRequest,
     NormLayer,
     RecurrentLayer,
-    WeightOverride,
-    canonical_request,
-    parse_request,
 )
+from seedbed.core.request.limits import Limits
+from seedbed.core.request.network import NetworkRequest, canonical_request
+from seedbed.core.request.overrides import BiasOverride, WeightOverride
+from seedbed.core.request.parse import parse
+from seedbed.core.request.problems import PROBLEM_CODES, RequestRejected
+from seedbed.core.request.vocabulary import DTYPE_MAX, DTYPE_TINY
+from seedbed.core.tensors import slots_by_layer
 
 
 def dense(name: Any = "d0", **extra: Any) -> dict[str, Any]:
@@ -51,7 +49,7 @@ def req(*layers: Any, **top: Any) -> dict[str, Any]:
 
 def rejected(body: object, limits: Limits | None = None) -> RequestRejected:
     with pytest.raises(RequestRejected) as info:
-        parse_request(body, limits)
+        parse(body, limits)
     return info.value
 
 
@@ -278,10 +276,10 @@ def test_dtype_max_table_matches_numpy_and_ml_dtypes() -> None:
 
 def test_std_bound_uses_the_extreme_normal_draw() -> None:
     # 65504 / 8.3 = 7892.05: a std just under fits float16, just over does not.
-    parse_request(req(dense(init={"method": "he", "std": 7892.0}), dtype="float16"))
+    parse(req(dense(init={"method": "he", "std": 7892.0}), dtype="float16"))
     rejected(req(dense(init={"method": "he", "std": 7893.0}), dtype="float16"))
     # The same std is fine in float32.
-    parse_request(req(dense(init={"method": "he", "std": 7893.0})))
+    parse(req(dense(init={"method": "he", "std": 7893.0})))
 
 
 # ---------------------------------------------------------------------------------------------
@@ -310,7 +308,7 @@ def test_every_kind_is_accepted_with_defaults_filled() -> None:
         layout="in_out",
         widths="unchecked",  # one of each kind: a collection, not a chain
     )  # fmt: skip
-    r = parse_request(body)
+    r = parse(body).request
     assert (r.seed, r.dtype, r.layout) == ("team-baseline", "bfloat16", "in_out")
     kinds = [type(layer) for layer in r.layers]
     assert kinds == [DenseLayer, ConvLayer, ConvLayer, EmbeddingLayer, RecurrentLayer,
@@ -335,14 +333,14 @@ def test_every_kind_is_accepted_with_defaults_filled() -> None:
 
 
 def test_override_defaults() -> None:
-    r = parse_request(req(
+    r = parse(req(
         dense("a", init={"method": "glorot"}),
         dense("b", init={"method": "he", "fan": "out"}),
         dense("c", init={"method": "lecun", "distribution": "truncated_normal", "std": 0.02}),
         dense("d", init={"method": "symmetric_uniform", "bound": 0.05}),
         dense("e", init={"method": "orthogonal", "gain": 2}),
         widths="unchecked",
-    ))  # fmt: skip
+    )).request  # fmt: skip
     inits = [layer.init for layer in r.layers]
     assert all(i is not None for i in inits)
     a, b, c, d, e = (i for i in inits if i is not None)
@@ -354,34 +352,37 @@ def test_override_defaults() -> None:
 
 
 def test_simple_cell_defaults_to_tanh_and_lstm_without_bias_has_no_forget_bias() -> None:
-    r = parse_request(req(lstm("s", cell="simple"), lstm("l", bias=False), widths="unchecked"))
+    r = parse(req(lstm("s", cell="simple"), lstm("l", bias=False), widths="unchecked")).request
     assert r.layers[0].activation == "tanh"
     second = r.layers[1]
     assert isinstance(second, RecurrentLayer) and second.forget_bias is None
 
 
 def test_seed_integer_and_string_are_kept_apart() -> None:
-    assert parse_request(req(seed=0)).seed == 0
-    assert parse_request(req(seed=2**63 - 1)).seed == 2**63 - 1
-    assert parse_request(req(seed="12")).seed == "12"
-    assert parse_request(req(seed="s" * 128)).seed == "s" * 128
+    assert parse(req(seed=0)).request.seed == 0
+    assert parse(req(seed=2**63 - 1)).request.seed == 2**63 - 1
+    assert parse(req(seed="12")).request.seed == "12"
+    assert parse(req(seed="s" * 128)).request.seed == "s" * 128
 
 
 def test_name_length_follows_the_limits() -> None:
-    parse_request(req(dense(name="n" * 128)))
+    parse(req(dense(name="n" * 128)))
     err = rejected(req(dense(name="n" * 11)), Limits(max_name_length=10))
     assert err.problems[0].field == "layers[0].name"
     assert "1 to 10 characters" in err.problems[0].message
 
 
 def test_models_are_immutable() -> None:
-    r = parse_request(req())
+    r = parse(req()).request
     with pytest.raises(ValueError, match="frozen"):
         setattr(r, "seed", 3)  # noqa: B010 (an assignment mypy would flag before runtime)
 
 
-def test_problems_module_reexports_parse_request() -> None:
-    assert problems_module.parse_request(req()) == parse_request(req())
+def test_parse_carries_the_slots_and_branches_of_its_request() -> None:
+    parsed = parse(req(dense("a"), dense("b", n_in=16, branch="skip", role="residual_out")))
+    assert parsed.slots == tuple(tuple(s) for s in slots_by_layer(parsed.request))
+    assert parsed.branches == tuple(branches_of(parsed.request))
+    assert [b.name for b in parsed.branches] == ["skip"]
 
 
 def test_request_rejected_needs_problems() -> None:
@@ -398,7 +399,7 @@ def test_schema_has_descriptions_and_examples_for_every_field() -> None:
             assert info.examples, f"{model.__name__}.{name} has no examples"
     schema = NetworkRequest.model_json_schema()
     assert schema["examples"]
-    parse_request(schema["examples"][0])  # the published example is itself valid
+    parse(schema["examples"][0])  # the published example is itself valid
 
 
 # ---------------------------------------------------------------------------------------------
@@ -427,18 +428,18 @@ def test_same_meaning_same_canonical_form() -> None:
                   init={"method": "he", "distribution": "normal", "fan": "in", "gain": 1.0}),
         ],
     }  # fmt: skip
-    assert canonical_request(parse_request(terse)) == canonical_request(parse_request(explicit))
+    assert canonical_request(parse(terse).request) == canonical_request(parse(explicit).request)
 
 
 def test_different_meaning_different_canonical_form() -> None:
-    base = canonical_request(parse_request(req()))
-    assert canonical_request(parse_request(req(seed="7"))) != base
-    assert canonical_request(parse_request(req(layout="in_out"))) != base
-    assert canonical_request(parse_request(req(dense(bias=False)))) != base
+    base = canonical_request(parse(req()).request)
+    assert canonical_request(parse(req(seed="7")).request) != base
+    assert canonical_request(parse(req(layout="in_out")).request) != base
+    assert canonical_request(parse(req(dense(bias=False))).request) != base
 
 
 def test_canonical_keys_are_sorted_and_json_ready() -> None:
-    c = canonical_request(parse_request(req(conv(init={"method": "he"}))))
+    c = canonical_request(parse(req(conv(init={"method": "he"}))).request)
 
     def check(v: Any) -> None:
         if isinstance(v, dict):
@@ -563,9 +564,9 @@ def _request(draw: st.DrawFn) -> dict[str, Any]:
 @settings(max_examples=150, deadline=None)
 @given(_request())
 def test_canonical_form_is_a_fixed_point(body: dict[str, Any]) -> None:
-    first = parse_request(body)
+    first = parse(body).request
     canon = canonical_request(first)
-    again = parse_request(json.loads(json.dumps(canon)))
+    again = parse(json.loads(json.dumps(canon))).request
     assert canonical_request(again) == canon
     assert again == first
 
@@ -574,6 +575,6 @@ def test_canonical_form_is_a_fixed_point(body: dict[str, Any]) -> None:
                                             (5, "the integer 5"), ("dens", "the string 'dens'")])
 def test_bad_kind_is_described_as_sent(kind: object, said: str) -> None:
     with pytest.raises(RequestRejected) as err:
-        parse_request({"seed": 1, "layers": [{"name": "a", "kind": kind}]})
+        parse({"seed": 1, "layers": [{"name": "a", "kind": kind}]})
     (problem,) = err.value.problems
     assert problem.field == "layers[0].kind" and f"got {said};" in problem.message

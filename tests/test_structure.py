@@ -12,13 +12,16 @@ from typing import Any
 import numpy as np
 import pytest
 
-from seedbed.core import spec
-from seedbed.core.limits import Limits
 from seedbed.core.plan import build_plan, plan_document
-from seedbed.core.problems import RequestRejected
 from seedbed.core.render import render_rows
-from seedbed.core.spec import NetworkRequest, TransformerBlock, canonical_request, parse_request
-from seedbed.core.structure import block_layer_dicts, branches_of
+from seedbed.core.request.blocks import ResidualConvBlock, TransformerBlock, block_layer_dicts
+from seedbed.core.request.branches import branches_of
+from seedbed.core.request.layers import LAYER_MODELS, DenseLayer
+from seedbed.core.request.limits import Limits
+from seedbed.core.request.network import NetworkRequest, canonical_request
+from seedbed.core.request.parse import parse
+from seedbed.core.request.policy_models import POLICY_MODELS
+from seedbed.core.request.problems import RequestRejected
 
 # An invented 48-block pre-norm language model for tide-gauge logs, in a few lines of JSON.
 TIDE_LM: dict[str, Any] = {
@@ -49,7 +52,7 @@ def conv_block(**extra: Any) -> dict[str, Any]:
 
 def rejected(body: object, limits: Limits | None = None) -> RequestRejected:
     with pytest.raises(RequestRejected) as info:
-        parse_request(body, limits)
+        parse(body, limits)
     return info.value
 
 
@@ -62,7 +65,7 @@ def fields(err: RequestRejected) -> list[tuple[str, str]]:
 
 
 def test_48_block_transformer_expands_to_documented_names_and_count() -> None:
-    request = parse_request(TIDE_LM)
+    request = parse(TIDE_LM).request
     names = [layer.name for layer in request.layers]
     assert len(names) == 1 + 48 * 5 + 2
     parts = ["attn_norm", "attn", "mlp_norm", "mlp_in", "mlp_out"]
@@ -98,7 +101,7 @@ def test_expansion_is_visible_in_the_plan_document() -> None:
 
 
 def test_post_norm_puts_the_norms_after_the_addition() -> None:
-    request = parse_request({"seed": 1, "layers": [block(norm="post")]})
+    request = parse({"seed": 1, "layers": [block(norm="post")]}).request
     summary = [(layer.name, layer.branch) for layer in request.layers]
     assert summary == [
         ("enc.0.attn", "enc.0.attn_branch"),
@@ -121,7 +124,7 @@ def test_post_norm_puts_the_norms_after_the_addition() -> None:
 )  # fmt: skip
 def test_residual_conv_block_variants(norm: str | None, expected: list[tuple[str, str]]) -> None:
     body = conv_block(repeat=3) if norm is None else conv_block(repeat=3, norm=norm)
-    request = parse_request({"seed": 1, "layers": [body]})
+    request = parse({"seed": 1, "layers": [body]}).request
     got = [(layer.name, layer.activation) for layer in request.layers[: len(expected)]]
     assert got == [(f"res.0.{part}", act) for part, act in expected]
     assert len(request.layers) == 3 * len(expected)
@@ -138,23 +141,23 @@ def test_shorthand_means_the_same_as_its_expansion_written_out() -> None:
     short = {"seed": 5, "layers": [block(repeat=2, activation="leaky_relu")]}
     written = {"seed": 5, "layers": block_layer_dicts(
         TransformerBlock.model_validate(block(repeat=2, activation="leaky_relu")))}
-    assert canonical_request(parse_request(short)) == canonical_request(parse_request(written))
+    assert canonical_request(parse(short).request) == canonical_request(parse(written).request)
     a, b = build_plan(short), build_plan(written)
     assert a.tensors == b.tensors
     t = a.tensor("enc.1.mlp_in.weight")
     assert np.array_equal(render_rows(a, t), render_rows(b, b.tensor("enc.1.mlp_in.weight")))
-    assert parse_request(short).layers[3].activation_param == 0.01  # leaky_relu default slope
+    assert parse(short).request.layers[3].activation_param == 0.01  # leaky_relu default slope
 
 
 def test_canonical_form_round_trips_with_branches() -> None:
-    request = parse_request(TIDE_LM)
-    again = parse_request(canonical_request(request))
+    request = parse(TIDE_LM).request
+    again = parse(canonical_request(request)).request
     assert again == request
 
 
 def test_requests_without_structure_keep_their_canonical_form() -> None:
     # Golden digests and ETags of existing requests must not move: absent new fields stay out.
-    canon = canonical_request(parse_request({"seed": 1, "layers": [dense("a")]}))
+    canon = canonical_request(parse({"seed": 1, "layers": [dense("a")]}).request)
     assert set(canon) == {"seed", "dtype", "layout", "layers"}
     assert "branch" not in canon["layers"][0] and "block" not in canon["layers"][0]
 
@@ -162,7 +165,7 @@ def test_requests_without_structure_keep_their_canonical_form() -> None:
 def test_validating_the_model_directly_also_expands() -> None:
     request = NetworkRequest.model_validate({"seed": 1, "layers": [block(repeat=2)]})
     assert len(request.layers) == 10
-    assert all(layer.kind in spec.LAYER_MODELS for layer in request.layers)
+    assert all(layer.kind in LAYER_MODELS for layer in request.layers)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -175,7 +178,7 @@ def test_a_repeat_of_a_billion_is_refused_before_validation(
     def no_validation(*args: Any, **kwargs: Any) -> Any:
         raise AssertionError("validation must not run: the count alone decides")
 
-    monkeypatch.setattr(spec.NetworkRequest, "model_validate", no_validation)
+    monkeypatch.setattr(NetworkRequest, "model_validate", no_validation)
     err = rejected({"seed": 1, "layers": [block(repeat=10**9)]})
     assert fields(err) == [("layers[0].repeat", "too_large")]
     assert "5000000000 layers" in err.problems[0].message and "4096" in err.problems[0].message
@@ -184,7 +187,7 @@ def test_a_repeat_of_a_billion_is_refused_before_validation(
 
 def test_expanded_count_boundary() -> None:
     limits = Limits(max_layers=10)
-    parse_request({"seed": 1, "layers": [block(repeat=2)]}, limits)  # exactly 10
+    parse({"seed": 1, "layers": [block(repeat=2)]}, limits)  # exactly 10
     err = rejected({"seed": 1, "layers": [block(repeat=2), dense("head")]}, limits)
     assert fields(err) == [("layers", "too_large")]
     assert "11 layers" in err.problems[0].message
@@ -313,7 +316,7 @@ def test_matching_branches_are_accepted_and_found() -> None:
         layers += [dense(f"b{i}.up", 16, 64, activation="relu", branch=f"r{i}"),
                    dense(f"b{i}.down", 64, 16, role="residual_out", branch=f"r{i}")]
     layers.append(dense("head", 16, 2, role="output"))
-    request = parse_request({"seed": 1, "layers": layers})
+    request = parse({"seed": 1, "layers": layers}).request
     found = [(b.name, b.start, b.stop, b.maps) for b in branches_of(request)]
     assert found == [("r0", 1, 3, (1, 2)), ("r1", 3, 5, (3, 4)), ("r2", 5, 7, (5, 6))]
 
@@ -342,7 +345,7 @@ def test_branches_keep_the_drift_estimate_to_the_trunk() -> None:
 
 def test_body_is_not_mutated() -> None:
     body = copy.deepcopy(TIDE_LM)
-    parse_request(body)
+    parse(body)
     assert body == TIDE_LM
 
 
@@ -365,7 +368,7 @@ def test_the_example_in_the_depth_guide_is_valid_and_as_described() -> None:
     assert blocks
     for raw in blocks:
         body = json.loads(raw)
-        request = parse_request(body)
+        request = parse(body).request
         plan = build_plan(body)
         assert len(request.layers) == 243  # as the guide says: 1 + 48 x 5 + 2
         assert len(branches_of(request)) == 96
@@ -374,13 +377,13 @@ def test_the_example_in_the_depth_guide_is_valid_and_as_described() -> None:
 
 def test_new_models_explain_every_field_and_examples_are_valid() -> None:
     # The models feed the OpenAPI document: every field needs a description and an example.
-    for model in (spec.TransformerBlock, spec.ResidualConvBlock, *spec.POLICY_MODELS.values(),
-                  spec.NetworkRequest, spec.DenseLayer):
+    for model in (TransformerBlock, ResidualConvBlock, *POLICY_MODELS.values(),
+                  NetworkRequest, DenseLayer):
         for name, info in model.model_fields.items():
             assert info.description and info.examples, f"{model.__name__}.{name}"
     for example in NetworkRequest.model_json_schema()["examples"]:
         build_plan(example)
     convnet = {"seed": 1, "layers": [conv_block(repeat=4), dense("head", 8, 2, role="output")]}
-    for policy in spec.NetworkRequest.model_fields["depth_policy"].examples or []:
+    for policy in NetworkRequest.model_fields["depth_policy"].examples or []:
         body = convnet if policy["name"] == "fixup" else TIDE_LM
-        parse_request({**body, "depth_policy": policy})
+        parse({**body, "depth_policy": policy})

@@ -2,7 +2,7 @@
 
 Reference for the out_in shapes: PyTorch's CPU parameters (common practice: weights stored as
 (out, in/groups, *kernel), recurrent gates stacked along dim 0), used as an oracle through
-`require_oracle("torch")`. Reference for in_out: DESIGN.md's stated arrangement (dense
+`require_oracle("torch")`. Reference for in_out: the arrangement docs/architecture.md states (dense
 (n_in, n_out), conv (*kernel, in/groups, out)), checked element by element with numpy.
 """
 
@@ -15,14 +15,14 @@ import numpy as np
 import pytest
 
 from conftest import require_oracle
-from seedbed.core import tensors
-from seedbed.core.problems import RequestRejected
-from seedbed.core.spec import NetworkRequest, canonical_request, parse_request
+from seedbed.core.request.network import NetworkRequest
+from seedbed.core.request.parse import parse
+from seedbed.core.request.problems import RequestRejected
 from seedbed.core.tensors import TensorSlot, request_slots, tensor_name_problems, tensor_slots
 
 
 def one_layer(layer: dict[str, Any], layout: str = "out_in") -> list[TensorSlot]:
-    r = parse_request({"seed": 1, "layout": layout, "layers": [layer]})
+    r = parse({"seed": 1, "layout": layout, "layers": [layer]}).request
     return tensor_slots(r.layers[0], r.layout)
 
 
@@ -188,7 +188,7 @@ def test_in_out_dense_recurrent_and_attention_weights_are_plain_transposes() -> 
             else:
                 assert b.served_shape == a.served_shape and b.served_axes == (0,)
     named = shapes(one_layer(DENSE, "in_out"))
-    assert named == {"fc.weight": (7, 5), "fc.bias": (5,)}  # (n_in, n_out) per DESIGN.md
+    assert named == {"fc.weight": (7, 5), "fc.bias": (5,)}  # (n_in, n_out) per docs/architecture.md
     rec = shapes(one_layer(recurrent("gru"), "in_out"))
     assert rec == {"rnn.input_weight": (5, 21), "rnn.recurrent_weight": (7, 21), "rnn.bias": (21,)}
 
@@ -200,7 +200,7 @@ def test_in_out_conv_is_kernel_then_in_then_out(layer: dict[str, Any]) -> None:
     kernel = tuple(layer["kernel"])
     c_in_g = layer["channels_in"] // layer["groups"]
     assert a.served_shape == a.logical_shape == b.logical_shape
-    assert b.served_shape == (*kernel, c_in_g, layer["channels_out"])  # DESIGN.md
+    assert b.served_shape == (*kernel, c_in_g, layer["channels_out"])  # docs/architecture.md
     logical, served = _values(b)
     # Independent construction: move the output axis last and the input axis before it.
     expected = np.moveaxis(logical, (0, 1), (-1, -2))
@@ -221,10 +221,10 @@ def test_embedding_and_norm_do_not_change_with_layout() -> None:
 
 def test_request_slots_in_layer_order_independent_of_neighbours() -> None:
     body = {"seed": 3, "layers": [EMBED, ATTN, NORM, DENSE], "widths": "unchecked"}
-    r = parse_request(body)
+    r = parse(body).request
     slots = request_slots(r)
     assert [s.layer for s in slots] == ["tok"] + ["att"] * 8 + ["ln", "ln", "fc", "fc"]
-    alone = parse_request({"seed": 3, "layers": [DENSE]})
+    alone = parse({"seed": 3, "layers": [DENSE]}).request
     assert request_slots(alone) == [s for s in slots if s.layer == "fc"]
 
 
@@ -232,7 +232,7 @@ def test_tensor_name_clash_between_layers_is_refused_naming_both() -> None:
     body = {"seed": 1, "layers": [ATTN, {**DENSE, "name": "att.key", "n_in": 8, "n_out": 8,
                                          "bias": False}]}  # fmt: skip
     with pytest.raises(RequestRejected) as info:
-        parse_request(body)
+        parse(body)
     (p,) = info.value.problems
     assert (p.field, p.code) == ("layers[1].name", "duplicate_name")
     assert "'att.key.weight'" in p.message and "layers[0].name" in p.message
@@ -244,11 +244,11 @@ def test_norm_and_dense_names_can_coexist_when_tensors_differ() -> None:
     # tensor names, not prefixes.
     body = {"seed": 1, "layers": [{**NORM, "name": "x"}, {**DENSE, "name": "x.scale"}],
             "widths": "unchecked"}
-    parse_request(body)
+    parse(body)
 
 
 def test_request_slots_refuse_unchecked_requests_with_clashes() -> None:
-    # A request built without parse_request may carry duplicates; enumeration still refuses.
+    # A request built without parse may carry duplicates; enumeration still refuses.
     r = NetworkRequest.model_validate({"seed": 1, "layers": [DENSE, DENSE]})
     with pytest.raises(RequestRejected) as info:
         request_slots(r)
@@ -259,6 +259,3 @@ def test_request_slots_refuse_unchecked_requests_with_clashes() -> None:
     assert len(tensor_name_problems(clash)) == 2  # att.value.weight and att.value.bias
 
 
-def test_canonical_request_is_available_from_tensors() -> None:
-    r = parse_request({"seed": 1, "layers": [DENSE]})
-    assert tensors.canonical_request(r) == canonical_request(r)

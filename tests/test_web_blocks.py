@@ -1,7 +1,8 @@
 """`tensor=NAME&rows=START:STOP` returns one block, byte-identical to that slice of the full
-tensor, in every format and both layouts (DESIGN.md: "a block must equal the same slice of the
-full tensor, byte for byte"). The full tensor comes from the same service; the slice is taken
-by numpy on the full array, and each format is read back by its own library."""
+tensor, in every format and both layouts (docs/architecture.md, reproducibility contract: "a
+block must equal the same slice of the full tensor, byte for byte"). The full tensor comes from
+the same service; the slice is taken by numpy on the full array, and each format is read back
+by its own library."""
 
 from __future__ import annotations
 

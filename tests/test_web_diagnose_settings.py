@@ -5,8 +5,8 @@ from __future__ import annotations
 import pytest
 from fastapi.testclient import TestClient
 
+from seedbed.settings import Settings, SettingsError
 from seedbed.web import create_app
-from seedbed.web.settings import Settings, SettingsError
 
 NETWORK = {"seed": 3, "layers": [
     {"name": "in", "kind": "dense", "n_in": 8, "n_out": 8, "activation": "relu"},

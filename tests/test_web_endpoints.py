@@ -223,7 +223,7 @@ def test_weights_etag_304_generates_nothing(
     for fmt in ("json", "npz"):  # the format is part of the tag
         other = client.post(f"/v1/weights?format={fmt}", json=GREENHOUSE)
         assert other.headers["etag"] != etag
-    import seedbed.web.encoding as encoding
+    import seedbed.web.weights_response as encoding
 
     calls: list[str] = []
     real = encoding.iter_tensor_bytes

@@ -11,7 +11,7 @@ from typing import Any
 import pytest
 from fastapi.testclient import TestClient
 
-from seedbed.core.limits import Limits
+from seedbed.core.request.limits import Limits
 from seedbed.web import Settings, create_app
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")

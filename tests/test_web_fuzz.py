@@ -12,7 +12,7 @@ import schemathesis
 from fastapi.testclient import TestClient
 from hypothesis import HealthCheck, settings
 
-from seedbed.core.limits import Limits
+from seedbed.core.request.limits import Limits
 from seedbed.web import Settings, create_app
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")

@@ -8,8 +8,8 @@ from collections.abc import Iterator
 import pytest
 from fastapi.testclient import TestClient
 
+from seedbed.settings import Settings
 from seedbed.web import create_app
-from seedbed.web.settings import Settings
 
 
 @pytest.fixture(scope="module")

@@ -1,4 +1,4 @@
-"""/readyz is not ready while the recipe database is unreachable (issue: a replica that cannot
+"""/readyz is not ready while the recipe database is unreachable (a replica that cannot
 serve recipes must not take traffic), and ready again once it answers."""
 
 from __future__ import annotations

@@ -8,7 +8,7 @@ from collections.abc import Iterator
 from seedbed.core.plan import build_plan
 from seedbed.formats import encode_body
 from seedbed.web.documents import response_document
-from seedbed.web.encoding import _held_once, _HoldBudget, encode_weights, outgoing_tensors
+from seedbed.web.weights_response import _held_once, _HoldBudget, encode_weights, outgoing_tensors
 
 
 def _counting(pieces: list[bytes]) -> tuple[list[int], object]:

@@ -8,8 +8,8 @@ from pathlib import Path
 import pytest
 
 from seedbed import cli
-from seedbed.core.limits import Limits
-from seedbed.web.settings import Settings, SettingsError, settings_table
+from seedbed.core.request.limits import Limits
+from seedbed.settings import Settings, SettingsError, settings_table
 
 
 def test_defaults() -> None:

@@ -40,12 +40,16 @@ from seedbed_client.layers import (
     AttentionSpec,
     ConvSpec,
     DenseSpec,
+    DepthPolicy,
     EmbeddingSpec,
     InitOverride,
     LayerSpec,
     NetworkSpec,
     NormSpec,
     RecurrentSpec,
+    ResidualConvBlockSpec,
+    TransformerBlockSpec,
+    request_problems,
 )
 from seedbed_client.limits import RequestLimits, limit_problems
 from seedbed_client.retry import RetryPolicy
@@ -59,6 +63,7 @@ __all__ = [
     "Client",
     "ConvSpec",
     "DenseSpec",
+    "DepthPolicy",
     "EmbeddingSpec",
     "InitOverride",
     "Inspection",
@@ -72,6 +77,7 @@ __all__ = [
     "RequestInvalid",
     "RequestLimits",
     "RequestTooLarge",
+    "ResidualConvBlockSpec",
     "RetryPolicy",
     "SavedWeights",
     "SeedbedError",
@@ -80,6 +86,7 @@ __all__ = [
     "SpecInvalid",
     "TensorCheck",
     "Timeouts",
+    "TransformerBlockSpec",
     "UnknownTensor",
     "UnsupportedMedia",
     "WeightCache",
@@ -88,6 +95,7 @@ __all__ = [
     "default_cache_dir",
     "inspect_body",
     "limit_problems",
+    "request_problems",
     "service_error",
     "sniff_format",
 ]

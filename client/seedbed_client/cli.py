@@ -351,6 +351,16 @@ def register(subparsers: Any) -> None:
     _add_service_options(show)
     show.set_defaults(**{_HANDLER: _show})
 
+    from seedbed_client.torch_cli import register_torch_command
+
+    register_torch_command(
+        subparsers,
+        add_service_options=_add_service_options,
+        handler_key=_HANDLER,
+        make_client=lambda args: _client(args, cache=True),
+        usage_error=UsageProblem,
+    )
+
 
 def run(args: argparse.Namespace) -> int:
     """Run the subcommand `register` set up; prints errors to standard error."""

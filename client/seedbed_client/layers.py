@@ -17,7 +17,7 @@ unknown one passes here and is refused by the service with the list of allowed n
 from __future__ import annotations
 
 import re
-from collections.abc import Iterator, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import KW_ONLY, dataclass, field
 from math import isfinite
 from typing import Any, ClassVar
@@ -29,12 +29,16 @@ __all__ = [
     "AttentionSpec",
     "ConvSpec",
     "DenseSpec",
+    "DepthPolicy",
     "EmbeddingSpec",
     "InitOverride",
     "LayerSpec",
     "NetworkSpec",
     "NormSpec",
     "RecurrentSpec",
+    "ResidualConvBlockSpec",
+    "TransformerBlockSpec",
+    "request_problems",
 ]
 
 SEED_INT_MAX = 2**63 - 1
@@ -42,6 +46,7 @@ SEED_STR_MAX = 128
 DTYPES = ("float32", "float64", "float16", "bfloat16")
 LAYOUTS = ("out_in", "in_out")
 ROLES = ("hidden", "output", "residual_out")
+BLOCK_NORMS = ("pre", "post")
 CELL_GATES: dict[str, tuple[str, ...]] = {
     "simple": (),
     "lstm": ("input", "forget", "cell", "output"),
@@ -132,6 +137,8 @@ class LayerSpec:
     init: InitOverride | None = None
     bias_value: float | None = None  # every bias element set to this constant
     class_prior: float | None = None  # output layers: bias = log(pi / (1 - pi))
+    branch: str | None = None  # residual branch (consecutive layers with one name; docs/depth.md)
+    block: str | None = None  # a label grouping layers in the plan's layer list
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {"name": self.name, "kind": self.kind}
@@ -204,6 +211,21 @@ class LayerSpec:
                     f"got {self.role!r}; allowed: {', '.join(ROLES)}",
                 )
             )
+        for label in ("branch", "block"):
+            value = getattr(self, label)
+            if value is not None and not (
+                isinstance(value, str)
+                and 1 <= len(value) <= limits.max_name_length
+                and _NAME.fullmatch(value)
+            ):
+                out.append(
+                    Problem(
+                        f"{where}.{label}",
+                        "invalid_value",
+                        f"got {value!r}; allowed: a name like a layer name (1 to "
+                        f"{limits.max_name_length} letters, digits, '_', '.', '-')",
+                    )
+                )
         if self.init is not None:
             out.extend(self.init.problems(f"{where}.init"))
         if self.bias_value is not None and not _is_number(self.bias_value):
@@ -410,6 +432,238 @@ class NormSpec(LayerSpec):
         return ("dim",)
 
 
+@dataclass(frozen=True)
+class TransformerBlockSpec(LayerSpec):
+    """`repeat` transformer blocks, expanded by the service into attention, dense and norm layers
+    in two residual branches per copy (docs/depth.md, "transformer_block")."""
+
+    kind: ClassVar[str] = "transformer_block"
+    dim: int
+    heads: int
+    mlp_dim: int
+    _: KW_ONLY
+    norm: str | None = None  # pre (default) or post
+    repeat: int | None = None
+    bias: bool | None = None
+
+    def _sizes(self) -> Sequence[str]:
+        return ("dim", "heads", "mlp_dim") + (("repeat",) if self.repeat is not None else ())
+
+    def _kind_problems(self, where: str) -> Iterator[Problem]:
+        if self.dim % self.heads:
+            yield Problem(
+                f"{where}.heads",
+                "invalid_value",
+                f"heads must divide dim ({self.dim}); got {self.heads}",
+            )
+        if self.norm is not None and self.norm not in BLOCK_NORMS:
+            yield Problem(
+                f"{where}.norm", "invalid_value", f"got {self.norm!r}; allowed: pre, post"
+            )
+        yield from _block_field_problems(self, where)
+
+
+@dataclass(frozen=True)
+class ResidualConvBlockSpec(LayerSpec):
+    """`repeat` residual blocks of two same-width convolutions (docs/depth.md,
+    "residual_conv_block"); `norm` omitted, pre or post."""
+
+    kind: ClassVar[str] = "residual_conv_block"
+    channels: int
+    kernel: int | tuple[int, ...]
+    _: KW_ONLY
+    norm: str | None = None
+    repeat: int | None = None
+    bias: bool | None = None
+
+    def _sizes(self) -> Sequence[str]:
+        return ("channels",) + (("repeat",) if self.repeat is not None else ())
+
+    def to_dict(self) -> dict[str, Any]:
+        out = super().to_dict()
+        out["kernel"] = [self.kernel] if isinstance(self.kernel, int) else list(self.kernel)
+        return out
+
+    def _kind_problems(self, where: str) -> Iterator[Problem]:
+        kernel = (self.kernel,) if isinstance(self.kernel, int) else tuple(self.kernel)
+        if not 1 <= len(kernel) <= 3 or not all(_is_int(k) and 1 <= k <= MAX_SIZE for k in kernel):
+            yield Problem(
+                f"{where}.kernel",
+                "invalid_value",
+                f"got {self.kernel!r}; allowed: 1 to 3 positive integers",
+            )
+        if self.norm is not None and self.norm not in BLOCK_NORMS:
+            yield Problem(
+                f"{where}.norm",
+                "invalid_value",
+                f"got {self.norm!r}; allowed: pre, post (or omit it)",
+            )
+        yield from _block_field_problems(self, where)
+
+
+def _block_field_problems(block: LayerSpec, where: str) -> Iterator[Problem]:
+    # Shorthands expand into layers that carry their own roles and branches.
+    for label in ("role", "branch", "block", "init", "bias_value", "class_prior"):
+        if getattr(block, label) is not None:
+            yield Problem(
+                f"{where}.{label}",
+                "not_allowed",
+                f"{block.kind} sets {label} on the layers it expands into; write the layers out "
+                "to set it yourself",
+            )
+
+
+# Which parameters each depth/width policy takes (docs/depth.md).
+POLICY_FIELDS: dict[str, tuple[str, ...]] = {
+    "fixup": (),
+    "skip_gate": (),
+    "scaled_residual": ("base_std", "residual_layers"),
+    "deepnorm": ("architecture", "encoder_layers", "decoder_layers", "decoder_start"),
+    "t_fixup": ("architecture", "encoder_layers", "decoder_layers", "decoder_start"),
+    "width_transfer": ("base_width", "width"),
+}
+ARCHITECTURES = ("encoder", "decoder", "encoder_decoder")
+
+
+@dataclass(frozen=True)
+class DepthPolicy:
+    """The request's `depth_policy`: a depth- or width-aware rule on top of the
+    recommendations. `name` one of fixup, skip_gate, scaled_residual, deepnorm, t_fixup,
+    width_transfer; the other fields belong to some policies only (POLICY_FIELDS).
+
+        DepthPolicy("scaled_residual", base_std=0.02)
+        DepthPolicy("deepnorm", architecture="encoder", encoder_layers=6)
+    """
+
+    name: str
+    _: KW_ONLY
+    base_std: float | None = None
+    residual_layers: int | None = None
+    architecture: str | None = None
+    encoder_layers: int | None = None
+    decoder_layers: int | None = None
+    decoder_start: str | None = None
+    base_width: int | None = None
+    width: int | None = None
+
+    @classmethod
+    def from_dict(cls, data: Mapping[str, Any]) -> DepthPolicy:
+        """The policy of a request dict; unknown keys are kept so `problems` reports them."""
+        known = {k: v for k, v in data.items() if k in cls.__dataclass_fields__ and k != "_"}
+        policy = cls(**known)
+        extra = sorted(set(data) - set(known))
+        object.__setattr__(policy, "_extra", tuple(extra))
+        return policy
+
+    def to_dict(self) -> dict[str, Any]:
+        return {k: v for k, v in self.__dict__.items() if v is not None and not k.startswith("_")}
+
+    def problems(self, where: str = "depth_policy") -> list[Problem]:
+        if self.name not in POLICY_FIELDS:
+            return [
+                Problem(
+                    f"{where}.name",
+                    "invalid_value",
+                    f"got {self.name!r}; allowed: {', '.join(POLICY_FIELDS)}",
+                )
+            ]
+        out: list[Problem] = []
+        allowed = POLICY_FIELDS[self.name]
+        for key in getattr(self, "_extra", ()):
+            out.append(
+                Problem(
+                    f"{where}.{key}",
+                    "unknown_field",
+                    f"{self.name} takes no field {key!r}; allowed: {', '.join(('name', *allowed))}",
+                )
+            )
+        for key, value in self.to_dict().items():
+            if key == "name":
+                continue
+            if key not in allowed:
+                out.append(
+                    Problem(
+                        f"{where}.{key}",
+                        "not_allowed",
+                        f"{key} is not a parameter of {self.name}; allowed: "
+                        f"{', '.join(allowed) or 'none'}",
+                    )
+                )
+            elif key == "base_std" and not (_is_number(value) and value > 0):
+                out.append(
+                    Problem(
+                        f"{where}.{key}",
+                        "invalid_value",
+                        f"got {value!r}; allowed: a positive finite number",
+                    )
+                )
+            elif key in (
+                "residual_layers",
+                "encoder_layers",
+                "decoder_layers",
+                "base_width",
+                "width",
+            ) and not (_is_int(value) and 1 <= value <= MAX_SIZE):
+                out.append(
+                    Problem(
+                        f"{where}.{key}",
+                        "invalid_value",
+                        f"got {value!r}; allowed: a positive integer (1 to {MAX_SIZE})",
+                    )
+                )
+            elif key == "architecture" and value not in ARCHITECTURES:
+                out.append(
+                    Problem(
+                        f"{where}.{key}",
+                        "invalid_value",
+                        f"got {value!r}; allowed: {', '.join(ARCHITECTURES)}",
+                    )
+                )
+        if self.name in ("deepnorm", "t_fixup") and not out:
+            if self.architecture is None:
+                out.append(
+                    Problem(
+                        f"{where}.architecture",
+                        "missing_field",
+                        "allowed: encoder, decoder or encoder_decoder",
+                    )
+                )
+            elif self.architecture == "encoder_decoder" and self.decoder_start is None:
+                out.append(
+                    Problem(
+                        f"{where}.decoder_start",
+                        "missing_field",
+                        "encoder_decoder needs decoder_start: the name of the decoder's "
+                        "first layer",
+                    )
+                )
+            elif self.architecture != "encoder_decoder":
+                other = "decoder_layers" if self.architecture == "encoder" else "encoder_layers"
+                own = "encoder_layers" if self.architecture == "encoder" else "decoder_layers"
+                for key in (other, "decoder_start"):
+                    if getattr(self, key) is not None:
+                        out.append(
+                            Problem(
+                                f"{where}.{key}",
+                                "not_allowed",
+                                f"{key} is only for other architectures; a single "
+                                f"{self.architecture} stack takes {own}",
+                            )
+                        )
+        if self.name == "width_transfer" and self.base_width is None and not out:
+            out.append(
+                Problem(
+                    f"{where}.base_width",
+                    "missing_field",
+                    "width_transfer needs base_width: the width the hyperparameters were tuned at",
+                )
+            )
+        return out
+
+
+LAYER_CLASSES: dict[str, type[LayerSpec]] = {}
+
+
 @dataclass
 class NetworkSpec:
     """A whole request: seed, dtype, layout and the layers in the order the signal meets them."""
@@ -418,6 +672,35 @@ class NetworkSpec:
     layers: list[LayerSpec] = field(default_factory=list)
     dtype: str = "float32"
     layout: str = "out_in"
+    depth_policy: DepthPolicy | None = None
+
+    @classmethod
+    def from_request(cls, request: Mapping[str, Any]) -> NetworkSpec:
+        """The spec of a request dict (layers rebuilt from their fields; a field a kind does
+        not have raises TypeError naming it)."""
+        layers = []
+        for item in request.get("layers", []):
+            data = dict(item)
+            kind = data.pop("kind", None)
+            if kind not in LAYER_CLASSES:
+                raise TypeError(f"layer kind {kind!r}; allowed: {', '.join(LAYER_CLASSES)}")
+            bias_init = data.pop("bias_init", None)
+            if bias_init is not None:
+                data["bias_value"] = bias_init.get("value")
+            if "init" in data:
+                data["init"] = InitOverride(**data["init"])
+            for key in ("kernel", "stride", "gate_order"):
+                if isinstance(data.get(key), list):
+                    data[key] = tuple(data[key])
+            layers.append(LAYER_CLASSES[kind](**data))
+        policy = request.get("depth_policy")
+        return cls(
+            seed=request.get("seed"),  # type: ignore[arg-type]
+            layers=layers,
+            dtype=request.get("dtype", "float32"),
+            layout=request.get("layout", "out_in"),
+            depth_policy=None if policy is None else DepthPolicy.from_dict(policy),
+        )
 
     def add(self, *layers: LayerSpec) -> NetworkSpec:
         """Append layers; returns the spec so calls can be chained."""
@@ -469,7 +752,8 @@ class NetworkSpec:
                         f"layers[{i}]",
                         "invalid_type",
                         f"got {type(layer).__name__}; allowed: DenseSpec, ConvSpec, "
-                        "EmbeddingSpec, RecurrentSpec, AttentionSpec, NormSpec",
+                        "EmbeddingSpec, RecurrentSpec, AttentionSpec, NormSpec, "
+                        "TransformerBlockSpec, ResidualConvBlockSpec",
                     )
                 )
                 continue
@@ -484,17 +768,74 @@ class NetworkSpec:
                 )
             else:
                 first[layer.name] = i
+        out.extend(self._branch_problems(first))
+        if self.depth_policy is not None:
+            policy_problems = self.depth_policy.problems()
+            out.extend(policy_problems)
+            if not policy_problems:
+                out.extend(self._decoder_start_problems(first))
         if not out:
             out.extend(limit_problems(self._dict(), limits))
         return out
 
+    def _decoder_start_problems(self, names: Mapping[str, int]) -> Iterator[Problem]:
+        start = self.depth_policy.decoder_start if self.depth_policy is not None else None
+        if start is None:
+            return
+        where = "depth_policy.decoder_start"
+        if start not in names:
+            yield Problem(where, "invalid_value", f"{start!r} names no layer of the request")
+            return
+        i = names[start]
+        branch = getattr(self.layers[i], "branch", None)
+        if branch is not None and i > 0 and getattr(self.layers[i - 1], "branch", None) == branch:
+            yield Problem(
+                where,
+                "invalid_value",
+                f"decoder_start {start!r} falls inside branch {branch!r}; allowed: a layer "
+                "outside any branch or the first layer of one",
+            )
+
+    def _branch_problems(self, names: Mapping[str, int]) -> Iterator[Problem]:
+        # The structural rules of docs/depth.md the client can check without widths.
+        ended: dict[str, int] = {}
+        previous: str | None = None
+        for i, layer in enumerate(self.layers):
+            branch = getattr(layer, "branch", None)
+            if branch is not None:
+                if branch in names:
+                    yield Problem(
+                        f"layers[{i}].branch",
+                        "invalid_value",
+                        f"branch name {branch!r} is also the name of layers[{names[branch]}]; "
+                        "branch names must differ from layer names",
+                    )
+                if branch != previous and branch in ended:
+                    yield Problem(
+                        f"layers[{i}].branch",
+                        "invalid_value",
+                        f"branch {branch!r} already ended at layers[{ended[branch]}]; the "
+                        "layers of a branch must be consecutive",
+                    )
+                if layer.role == "output":
+                    yield Problem(
+                        f"layers[{i}].role",
+                        "not_allowed",
+                        f"the network's output layer cannot be inside residual branch {branch!r}",
+                    )
+                ended[branch] = i
+            previous = branch
+
     def _dict(self) -> dict[str, Any]:
-        return {
+        out: dict[str, Any] = {
             "seed": self.seed,
             "dtype": self.dtype,
             "layout": self.layout,
             "layers": [layer.to_dict() for layer in self.layers],
         }
+        if self.depth_policy is not None:
+            out["depth_policy"] = self.depth_policy.to_dict()
+        return out
 
     def to_request(self, limits: RequestLimits | None = None) -> dict[str, Any]:
         """The request dict, after every local check (SpecInvalid lists all problems)."""
@@ -502,3 +843,31 @@ class NetworkSpec:
         if problems:
             raise SpecInvalid(problems)
         return self._dict()
+
+
+LAYER_CLASSES.update(
+    {
+        c.kind: c
+        for c in (
+            DenseSpec,
+            ConvSpec,
+            EmbeddingSpec,
+            RecurrentSpec,
+            AttentionSpec,
+            NormSpec,
+            TransformerBlockSpec,
+            ResidualConvBlockSpec,
+        )
+    }
+)
+
+
+def request_problems(
+    request: Mapping[str, Any], limits: RequestLimits | None = None
+) -> list[Problem]:
+    """Everything the client can tell is wrong with a request dict (empty when none)."""
+    try:
+        spec = NetworkSpec.from_request(request)
+    except TypeError as exc:
+        return [Problem("layers", "invalid_value", str(exc))]
+    return spec.problems(limits)

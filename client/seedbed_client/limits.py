@@ -1,8 +1,13 @@
-"""The service's default request limits, mirrored so a request can be refused before it is sent.
+"""The service's default request limits, checked so a request can be refused before it is sent.
 
-The numbers must equal the service's `Limits` defaults (tests/client checks that they do). A
+The numbers and the raw-body checks (layer count before and after expanding block
+shorthands) come from seedbed_client.wire_facts, which the service imports too: a request
+refused here is refused by the service with the same code (a property test checks that). A
 service started with larger SEEDBED_MAX_* settings accepts more than these: pass your own
 `RequestLimits` to the client, or `limits=None` to leave every size check to the service.
+
+Like the service, the checks run in stages and stop at the first that finds something: the
+raw layer count, the count after expanding blocks, then names, then tensor sizes.
 
 The element counts follow the tensor table of the service (one weight per dense/conv/embedding
 layer, input + recurrent weights for recurrent cells with 1/4/3 gate blocks for simple/lstm/gru,
@@ -16,6 +21,7 @@ from dataclasses import dataclass, fields
 from math import prod
 from typing import Any
 
+from seedbed_client import wire_facts
 from seedbed_client.errors import Problem
 
 __all__ = [
@@ -24,20 +30,20 @@ __all__ = [
 ]
 
 # Largest single size field (n_in, channels_out, kernel entries ...): a signed 32-bit index.
-MAX_SIZE = 2**31 - 1
-GATE_BLOCKS: Mapping[str, int] = {"simple": 1, "lstm": 4, "gru": 3}
-ATTENTION_PARTS = ("query", "key", "value", "output")
+MAX_SIZE = wire_facts.MAX_SIZE
+GATE_BLOCKS: Mapping[str, int] = {cell: len(g) for cell, g in wire_facts.GATES.items()}
+ATTENTION_PARTS = wire_facts.ATTENTION_PROJECTIONS
 
 
 @dataclass(frozen=True)
 class RequestLimits:
     """How large a request may be; the defaults are the service's defaults."""
 
-    max_layers: int = 4096
-    max_tensor_elements: int = 1 << 28
-    max_request_elements: int = 1 << 30
-    max_orthogonal_dim: int = 8192
-    max_name_length: int = 128
+    max_layers: int = wire_facts.DEFAULT_MAX_LAYERS
+    max_tensor_elements: int = wire_facts.DEFAULT_MAX_TENSOR_ELEMENTS
+    max_request_elements: int = wire_facts.DEFAULT_MAX_REQUEST_ELEMENTS
+    max_orthogonal_dim: int = wire_facts.DEFAULT_MAX_ORTHOGONAL_DIM
+    max_name_length: int = wire_facts.DEFAULT_MAX_NAME_LENGTH
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -154,53 +160,86 @@ def _orthogonal_problems(
             )
 
 
+def _block_copy(block: Mapping[str, Any]) -> list[dict[str, Any]] | None:
+    """The basic layers of one copy of a block shorthand, as raw dicts (sizes only), or None
+    when its size fields are not usable."""
+    name, bias = str(block.get("name", "")), block.get("bias", True)
+    if block.get("kind") == "transformer_block":
+        dim, heads, mlp = (block.get(k) for k in ("dim", "heads", "mlp_dim"))
+        if not all(isinstance(v, int) and not isinstance(v, bool) for v in (dim, heads, mlp)):
+            return None
+        return [
+            {"name": f"{name}.0.attn_norm", "kind": "norm", "dim": dim, "bias": bias},
+            {"name": f"{name}.0.attn", "kind": "attention", "dim": dim, "bias": bias},
+            {"name": f"{name}.0.mlp_norm", "kind": "norm", "dim": dim, "bias": bias},
+            {"name": f"{name}.0.mlp_in", "kind": "dense", "n_in": dim, "n_out": mlp, "bias": bias},
+            {"name": f"{name}.0.mlp_out", "kind": "dense", "n_in": mlp, "n_out": dim, "bias": bias},
+        ]
+    channels, kernel = block.get("channels"), block.get("kernel")
+    conv = {"kind": "conv", "channels_in": channels, "channels_out": channels, "kernel": kernel,
+            "bias": bias}  # fmt: skip
+    out = [{**conv, "name": f"{name}.0.conv1"}, {**conv, "name": f"{name}.0.conv2"}]
+    if block.get("norm") is not None:
+        out += [{"name": f"{name}.0.norm{k}", "kind": "norm", "dim": channels, "bias": bias}
+                for k in (1, 2)]  # fmt: skip
+    return out
+
+
 def limit_problems(request: Mapping[str, Any], limits: RequestLimits) -> list[Problem]:
     """Everything in a raw request dict that is over `limits`, as the service would report it.
 
-    Only sizes are judged here; a malformed layer is skipped (the service names its problem).
+    Only sizes and name lengths are judged here; a malformed layer is skipped (the service names
+    its problem).
     """
     layers = request.get("layers")
     if not isinstance(layers, list | tuple):
         return []
-    if len(layers) > limits.max_layers:
-        return [
-            Problem(
-                "layers",
-                "too_large",
-                f"the request has {len(layers)} layers; the limit is {limits.max_layers} "
-                "per request",
-            )
-        ]
-    problems: list[Problem] = []
-    total = 0
+    for check in (wire_facts.layer_count_refusal, wire_facts.expanded_count_refusal):
+        refusal = check(layers, limits.max_layers)
+        if refusal is not None:
+            return [Problem(*refusal)]
+    names: list[Problem] = []
     for i, layer in enumerate(layers):
-        if not isinstance(layer, Mapping):
-            continue
-        name = layer.get("name")
+        name = layer.get("name") if isinstance(layer, Mapping) else None
         if isinstance(name, str) and len(name) > limits.max_name_length:
-            problems.append(
+            names.append(
                 Problem(
                     f"layers[{i}].name",
                     "invalid_value",
                     f"layer names have 1 to {limits.max_name_length} characters; got {len(name)}",
                 )
             )
-        tensors = layer_tensors(layer)
-        if tensors is None:
+    if names:
+        # The service validates every field before it looks at sizes.
+        return names
+    problems: list[Problem] = []
+    total = 0
+    for i, layer in enumerate(layers):
+        if not isinstance(layer, Mapping):
             continue
-        for t in tensors:
-            count = prod(t.shape)
-            total += count
-            if count > limits.max_tensor_elements:
-                problems.append(
-                    Problem(
-                        f"layers[{i}]",
-                        "too_large",
-                        f"tensor {t.name!r} would have {count} elements; the limit is "
-                        f"{limits.max_tensor_elements} elements per tensor",
+        copies = 1
+        parts: list[Mapping[str, Any]] = [layer]
+        if wire_facts.is_block_item(layer):
+            per_copy = _block_copy(layer) or []
+            copies = wire_facts.raw_layer_count(layer) // max(1, len(per_copy))
+            parts = list(per_copy)
+        for part in parts:
+            tensors = layer_tensors(part)
+            if tensors is None:
+                continue
+            for t in tensors:
+                count = prod(t.shape)
+                total += count * copies
+                if count > limits.max_tensor_elements:
+                    problems.append(
+                        Problem(
+                            f"layers[{i}]",
+                            "too_large",
+                            f"tensor {t.name!r} would have {count} elements; the limit is "
+                            f"{limits.max_tensor_elements} elements per tensor",
+                        )
                     )
-                )
-        problems.extend(_orthogonal_problems(i, layer, tensors, limits.max_orthogonal_dim))
+            problems.extend(_orthogonal_problems(i, part, tensors, limits.max_orthogonal_dim))
     if total > limits.max_request_elements:
         problems.append(
             Problem(

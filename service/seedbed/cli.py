@@ -12,7 +12,6 @@ from __future__ import annotations
 import argparse
 import importlib.util
 import json
-import os
 import sys
 from collections.abc import Sequence
 
@@ -78,15 +77,11 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _serve(args: argparse.Namespace) -> int:
+    from seedbed.settings import Settings, SettingsError, pass_to_workers
     from seedbed.web.logs import logging_config
-    from seedbed.web.settings import PREFIX, Settings, SettingsError
 
-    # Workers are separate processes that build their own app from the environment, so command
-    # line overrides travel to them as SEEDBED_* variables.
-    for name in ("host", "port", "workers", "log_level"):
-        value = getattr(args, name)
-        if value is not None:
-            os.environ[PREFIX + name.upper()] = str(value)
+    overrides = {name: getattr(args, name) for name in ("host", "port", "workers", "log_level")}
+    pass_to_workers({name: value for name, value in overrides.items() if value is not None})
     try:
         settings = Settings.from_env()
     except SettingsError as exc:
@@ -116,7 +111,7 @@ def _serve(args: argparse.Namespace) -> int:
 
 def _plan(args: argparse.Namespace) -> int:
     from seedbed.core.plan import build_plan, plan_document
-    from seedbed.core.problems import RequestRejected
+    from seedbed.core.request.problems import RequestRejected
 
     try:
         if args.file == "-":
@@ -147,7 +142,7 @@ def _plan(args: argparse.Namespace) -> int:
 
 
 def _settings(args: argparse.Namespace) -> int:
-    from seedbed.web.settings import Settings, SettingsError, settings_table, shown
+    from seedbed.settings import Settings, SettingsError, settings_table, shown
 
     try:
         current = Settings.from_env()
@@ -159,7 +154,7 @@ def _settings(args: argparse.Namespace) -> int:
         for part in name.split("."):
             obj = getattr(obj, part)
         print(f"{var}={shown(obj)}  ({_origin(var, default)})")
-    # The registry's settings are read by the registry itself (seedbed.registry.config).
+    # The registry interprets its own variables (seedbed.registry.config).
     from seedbed.registry.config import RegistryConfigError, config_from_env
 
     try:
@@ -171,17 +166,25 @@ def _settings(args: argparse.Namespace) -> int:
           "SEEDBED_DATABASE_URL, default an SQLite file under SEEDBED_DATA_DIR)")
     print(f"registry reads need a key: {'on' if registry.read_requires_key else 'off'} "
           "(SEEDBED_READ_REQUIRES_KEY)")
+    from seedbed_client.generator import kernel
+
+    state = kernel.status() if current.generator_kernel else kernel.set_enabled(False)
+    print(f"generator: {state.describe()}; {current.threads_per_request()} thread(s) per "
+          "request (SEEDBED_GENERATOR_KERNEL, SEEDBED_GENERATION_THREADS)")
     _client_settings()
     return 0
 
 
 def _origin(var: str, default: str) -> str:
     """Where a value comes from: the default, or the environment (and what the default is)."""
-    return f"environment; default {default}" if var in os.environ else "default"
+    from seedbed.settings import is_set
+
+    return f"environment; default {default}" if is_set(var) else "default"
 
 
 def _client_settings() -> None:
     """The variables the client commands (fetch, verify, show ...) read, with their sources."""
+    from seedbed.settings import client_environment
     from seedbed_client.cache import (
         DEFAULT_MAX_BYTES,
         ENV_DIR,
@@ -192,7 +195,7 @@ def _client_settings() -> None:
     from seedbed_client.client import DEFAULT_URL, ENV_URL
 
     print("client commands:")
-    url = os.environ.get(ENV_URL) or DEFAULT_URL
+    url = client_environment(ENV_URL) or DEFAULT_URL
     print(f"  {ENV_URL}={url}  ({_origin(ENV_URL, DEFAULT_URL)})")
     print(f"  {ENV_DIR}={default_cache_dir()}  "
           f"({_origin(ENV_DIR, 'the per-user cache directory + seedbed')})")

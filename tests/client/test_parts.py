@@ -94,7 +94,7 @@ _INTERNAL: dict[str, set[str]] = {
 
 def test_client_limits_equal_the_service_defaults() -> None:
     # The service's own Limits dataclass is the source; the client mirrors its numbers.
-    from seedbed.core.limits import MAX_SIZE, Limits
+    from seedbed.core.request.limits import MAX_SIZE, Limits
     from seedbed_client.limits import MAX_SIZE as CLIENT_MAX_SIZE
 
     ours, theirs = RequestLimits(), Limits()
@@ -414,7 +414,7 @@ def test_network_level_checks_report_every_problem() -> None:
 
 def test_limits_count_every_kind_like_the_service() -> None:
     # Element counts of each kind, against the service's own tensor table (seedbed.core).
-    from seedbed.core.spec import parse_request
+    from seedbed.core.request.parse import parse
     from seedbed.core.tensors import request_slots
 
     request = (
@@ -429,7 +429,7 @@ def test_limits_count_every_kind_like_the_service() -> None:
         )
         .to_request()
     )
-    theirs = sum(int(np.prod(s.logical_shape)) for s in request_slots(parse_request(request)))
+    theirs = sum(int(np.prod(s.logical_shape)) for s in request_slots(parse(request).request))
     tight = RequestLimits(max_request_elements=theirs)
     assert limit_problems(request, tight) == []
     over = limit_problems(request, RequestLimits(max_request_elements=theirs - 1))

@@ -6,7 +6,7 @@
   a second reader where numpy has the dtype, safe_open for the header metadata).
 
 Everything ends up as a `Payload`: the manifest plus each tensor's raw little-endian C-order
-bytes, which is exactly what the manifest's sha256 is defined over (docs: DESIGN.md).
+bytes, which is exactly what the manifest's sha256 is defined over (docs/formats.md).
 """
 
 from __future__ import annotations

@@ -16,7 +16,7 @@ import pytest
 from .networks import greenhouse_controller, single_dense
 
 JSON = {"Content-Type": "application/json"}
-# The service's default limits (DESIGN.md / core limits): 1 MiB bodies, 4096 layers, 2**28
+# The service's default limits (seedbed_client.wire_facts): 1 MiB bodies, 4096 layers, 2**28
 # elements per tensor, 64 MiB JSON responses.
 MAX_BODY = 1 << 20
 

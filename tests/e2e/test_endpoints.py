@@ -58,7 +58,7 @@ def test_catalog_lists_methods_with_sources(client: httpx.Client) -> None:
     text = r.text
     doc = r.json()
     assert isinstance(doc, dict) and doc
-    # The published methods the design names must be there with their sources.
+    # The published methods docs/service.md names must be there with their sources.
     for method in ("glorot", "he", "lecun", "orthogonal"):
         assert method in text, f"catalog does not mention {method}"
     for author in ("Glorot", "He", "Saxe"):
@@ -93,7 +93,7 @@ def test_plan_describes_every_tensor_without_values(client: httpx.Client) -> Non
         ):
             assert key in entry, f"{entry['tensor']}: plan entry lacks {key}"
     dense = next(t for t in doc["tensors"] if t["tensor"] == "alarm.weight")
-    assert dense["shape"] == [3, 24]  # out_in layout: (n_out, n_in), as DESIGN.md fixes it
+    assert dense["shape"] == [3, 24]  # out_in: (n_out, n_in), as docs/architecture.md fixes it
     conv = next(t for t in doc["tensors"] if t["tensor"] == "trace.grouped.weight")
     assert conv["shape"] == [16, 4, 3]  # (out, in/groups, kernel)
 

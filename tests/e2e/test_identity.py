@@ -1,6 +1,6 @@
 """Two separate service processes answer the same request with byte-identical bodies, in every
-format (DESIGN.md, reproducibility contract: no timestamps, request ids or host names inside a
-body; zip members carry a fixed date)."""
+format (docs/architecture.md, reproducibility contract: no timestamps, request ids or host
+names inside a body; zip members carry a fixed date)."""
 
 from __future__ import annotations
 

@@ -1,8 +1,9 @@
 """Bounded memory while streaming a 1 GiB response, and a service that stays responsive meanwhile.
 
-The requirement (issue 3): a 1 GiB response must not raise the server's resident memory by more
-than ~128 MiB, and /healthz must keep answering during the download. The download is consumed
-piece by piece and never stored; the server's VmRSS is sampled from /proc while it streams.
+The requirement (docs/service.md, streaming and memory): a 1 GiB response must not raise the
+server's resident memory by more than ~128 MiB, and /healthz must keep answering during the
+download. The download is consumed piece by piece and never stored; the server's VmRSS is
+sampled from /proc while it streams.
 """
 
 from __future__ import annotations

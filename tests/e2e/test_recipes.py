@@ -17,7 +17,7 @@ from .networks import greenhouse_controller, harbor_crane_monitor
 from .readback import check_digests, read_body
 from .server import RunningServer
 
-IMMUTABLE = "public, max-age=31536000, immutable"  # the caching DESIGN.md fixes for recipes
+IMMUTABLE = "public, max-age=31536000, immutable"  # the caching docs/recipes.md fixes for recipes
 RECIPE = "greenhouse-zone7"
 
 
@@ -44,7 +44,7 @@ def token(registry: RunningServer) -> str:
         check=False,
     )
     assert done.returncode == 0, done.stderr
-    # DESIGN.md: `seedbed keys create NAME` prints the new key as the last line of its output.
+    # docs/recipes.md: `seedbed keys create NAME` prints the new key as the last line of its output.
     return done.stdout.strip().splitlines()[-1].strip()
 
 

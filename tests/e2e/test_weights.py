@@ -81,8 +81,8 @@ def test_served_values_follow_the_stated_distribution(client: httpx.Client, scra
 
 
 def test_a_tensor_does_not_depend_on_the_other_layers(client: httpx.Client, scratch: Path) -> None:
-    # The reproducibility contract in DESIGN.md: values depend only on the seed, the tensor's
-    # name, its own spec and the algorithm.
+    # The reproducibility contract (docs/architecture.md): values depend only on the seed, the
+    # tensor's name, its own spec and the algorithm.
     full = greenhouse_controller()
     alone = dict(full, layers=[full["layers"][1]])
     reordered = dict(full, layers=list(reversed(full["layers"])))

@@ -214,6 +214,10 @@ def test_image_command_runs_from_a_fresh_install(tmp_path: Path) -> None:
         assert ready.json()["status"] == "ready"
         assert httpx.get(f"http://127.0.0.1:{port}/healthz", timeout=5).json() == {
             "status": "alive"}
+        # The workbench's files and Swagger UI's are package data: the wheel must carry them.
+        for asset in ("/workbench/compose", "/workbench/assets/workbench.css",
+                      "/docs", "/docs/assets/swagger-ui-bundle.js"):
+            assert httpx.get(f"http://127.0.0.1:{port}{asset}", timeout=5).status_code == 200
         check = subprocess.run(relocated(exec_form("HEALTHCHECK")), env=env, timeout=30,
                                capture_output=True, text=True, check=False)
         assert check.returncode == 0, check.stderr

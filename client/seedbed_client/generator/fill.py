@@ -9,11 +9,14 @@ a single byte, and any block equals the same slice of the whole tensor.
 from __future__ import annotations
 
 import operator
+import os
+import threading
 from collections.abc import Callable, Sequence
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 
 import numpy as np
 
+from . import kernel
 from .keys import PhiloxKey, check_key
 from .normal_inverse import quantile_from_centered
 from .philox import INDEX_LIMIT, DrawSource, check_range, check_stream
@@ -77,6 +80,44 @@ def _positive_int(name: str, value: object) -> int:
     return v
 
 
+# A block handed to another thread must be worth the hand-off (tens of microseconds).
+_MIN_BLOCK = 1 << 16
+_pool_lock = threading.Lock()
+_pool: ThreadPoolExecutor | None = None
+
+
+def _shared_pool() -> ThreadPoolExecutor:
+    """One pool per process, as large as the machine: however many requests ask for threads
+    at once, at most cpu_count blocks run beside the requests' own threads."""
+    global _pool
+    with _pool_lock:
+        if _pool is None:
+            _pool = ThreadPoolExecutor(
+                max_workers=max(1, os.cpu_count() or 1), thread_name_prefix="seedbed-fill"
+            )
+        return _pool
+
+
+def _in_blocks(count: int, threads: int, work: Callable[[int, int], None]) -> None:
+    """work(lo, hi) over [0, count) cut into up to `threads` contiguous blocks; the caller's
+    thread takes the first. Each value depends only on its own index, so the cut cannot
+    change a byte."""
+    parts = max(1, min(threads, count // _MIN_BLOCK))
+    if parts == 1:
+        work(0, count)
+        return
+    bounds = [count * k // parts for k in range(parts + 1)]
+    pool = _shared_pool()
+    futures: list[Future[None]] = [
+        pool.submit(work, bounds[k], bounds[k + 1]) for k in range(1, parts)
+    ]
+    try:
+        work(bounds[0], bounds[1])
+    finally:
+        for f in futures:
+            f.result()
+
+
 def fill_standard(
     dist: str,
     key: PhiloxKey,
@@ -88,6 +129,107 @@ def fill_standard(
     stream: int = 0,
 ) -> None:
     """out[j] = standard value of logical index start + j, for j in range(len(out)).
+
+    Uses the compiled kernel when it is loaded (kernel.status()), else the numpy reference
+    (fill_reference); both give the same bytes. With the kernel, `threads` blocks run at once
+    and `chunk` does not matter (the kernel's scratch is a few tens of KiB per thread).
+    """
+    module = kernel.active()
+    if module is None or (isinstance(out, np.ndarray) and not out.flags.c_contiguous):
+        fill_reference(dist, key, out, start, threads=threads, chunk=chunk, stream=stream)
+        return
+    code = _dist_code(dist)
+    k0, k1 = check_key(key)
+    _check_out(out, (np.float64,))
+    first, count = check_range(start, out.shape[0])
+    n_threads = _positive_int("threads", threads)
+    _positive_int("chunk", chunk)
+    stream_id = check_stream(stream)
+
+    def work(lo: int, hi: int) -> None:
+        module.fill(code, k0, k1, stream_id, first + lo, 1.0, out[lo:hi])
+
+    _in_blocks(count, n_threads, work)
+
+
+def fill_scaled(
+    dist: str,
+    key: PhiloxKey,
+    out: np.ndarray,
+    start: int,
+    scale: float,
+    *,
+    threads: int = 1,
+    stream: int = 0,
+) -> None:
+    """out[j] = round_to_dtype(standard value of index start + j * scale), for float64 or
+    float32 `out`: the same bytes as fill_standard, a multiply and round_to_dtype, without the
+    float64 intermediate when the kernel is loaded. Raises ValueError where round_to_dtype
+    would (a product beyond the largest float32, a non-finite scale)."""
+    code = _dist_code(dist)
+    k0, k1 = check_key(key)
+    _check_out(out, (np.float64, np.float32))
+    first, count = check_range(start, out.shape[0])
+    n_threads = _positive_int("threads", threads)
+    stream_id = check_stream(stream)
+    factor = float(scale)
+    if not np.isfinite(factor):
+        raise ValueError("values must be finite")
+    module = kernel.active()
+    overflow: list[bool] = []
+
+    def work(lo: int, hi: int) -> None:
+        if module is not None:
+            if module.fill(code, k0, k1, stream_id, first + lo, factor, out[lo:hi]):
+                overflow.append(True)
+            return
+        for a in range(lo, hi, DEFAULT_CHUNK):
+            b = min(hi, a + DEFAULT_CHUNK)
+            values = np.empty(b - a, dtype=np.float64)
+            fill_reference(dist, (k0, k1), values, first + a, stream=stream_id)
+            values *= factor
+            with np.errstate(over="ignore"):
+                out[a:b] = values  # float32: one IEEE conversion, as round_to_dtype does
+            if not np.isfinite(out[a:b]).all():
+                overflow.append(True)
+
+    _in_blocks(count, n_threads, work)
+    if overflow:
+        raise ValueError("values exceed the largest float32 (about 3.4e38) and would become inf")
+    # |standard value| < 8.3, so only a scale near float64's top can overflow a product.
+    if out.dtype == np.float64 and abs(factor) > 2.0**1000 and not np.isfinite(out).all():
+        raise ValueError("values must be finite")
+
+
+def _dist_code(dist: str) -> int:
+    _transform(dist)
+    return kernel.DIST_CODES[dist]
+
+
+def _check_out(out: object, dtypes: tuple[type, ...]) -> None:
+    names = " or ".join(np.dtype(d).name for d in dtypes)
+    if (
+        not isinstance(out, np.ndarray)
+        or out.dtype not in [np.dtype(d) for d in dtypes]
+        or out.ndim != 1
+        or not out.flags.c_contiguous
+    ):
+        raise ValueError(f"out must be a one-dimensional contiguous {names} numpy array")
+    if not out.flags.writeable:
+        raise ValueError("out must be writable")
+
+
+def fill_reference(
+    dist: str,
+    key: PhiloxKey,
+    out: np.ndarray,
+    start: int,
+    *,
+    threads: int = 1,
+    chunk: int = DEFAULT_CHUNK,
+    stream: int = 0,
+) -> None:
+    """The numpy reference of fill_standard (the specification's executable form).
 
     Work is cut into chunks of `chunk` values; up to `threads` chunks are in flight. Each
     holds its raw draws (8 bytes per value) and the transform's float64 temporaries for at
@@ -159,6 +301,14 @@ def standard_runs(
     run_starts = [int(s) for s in begin]
     if run_starts and (min(run_starts) < 0 or max(run_starts) + n > INDEX_LIMIT):
         raise ValueError("every start must be >= 0 and start + length <= 2**63")
+
+    module = kernel.active()
+    if module is not None:
+        code = kernel.DIST_CODES[dist]
+        values = np.empty((len(run_starts), n), dtype=np.float64)
+        for row, s in enumerate(run_starts):
+            module.fill(code, checked_key[0], checked_key[1], stream_id, s, 1.0, values[row])
+        return values
 
     raw = np.empty((len(run_starts), n), dtype=np.uint64)
     source = DrawSource(checked_key)

@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-from .fill import fill_standard, standard_runs
+from .fill import fill_scaled, fill_standard, standard_runs
 from .keys import derive_key
 from .rounding import round_to_dtype
 
@@ -222,6 +222,11 @@ def _flat_values(r: TensorRecipe, first: int, last: int, threads: int = 1) -> np
             values = _block_values(r, first, last)
         else:
             values = np.full(last - first, r.scale, dtype=np.float64)
+    elif r.dtype in ("float32", "float64"):
+        # The scaling and the one rounding happen inside the generator: no float64 copy.
+        out = np.empty(last - first, dtype=r.dtype)
+        fill_scaled(r.sampler, derive_key(r.seed, r.tensor), out, first, r.scale, threads=threads)
+        return out
     else:
         values = np.empty(last - first, dtype=np.float64)
         fill_standard(r.sampler, derive_key(r.seed, r.tensor), values, first, threads=threads)

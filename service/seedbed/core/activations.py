@@ -54,7 +54,8 @@ API
     GAIN_DEFINITION: str                          the definition above, for catalog text
 
 Bad names or parameters raise ValueError naming the allowed names or range. The parameter is the
-request's `activation_param`; only leaky_relu (its negative-side slope) and elu (alpha) take one.
+request's `activation_param`; only leaky_relu (its negative-side slope), elu (alpha) and
+hard_sigmoid (its slope) take one.
 """
 
 from __future__ import annotations
@@ -165,6 +166,10 @@ _SLOPE = ParamSpec("slope", "slope a of the negative side, phi(x) = a*x for x < 
 _ALPHA = ParamSpec("alpha", "saturation value -alpha of the negative side",
                    1.0, 0.0, 10.0, False, True)
 
+# ONNX HardSigmoid defaults to 0.2 (opset 6); PyTorch's and Howard et al.'s h-sigmoid use 1/6.
+_HARD_SLOPE = ParamSpec("slope", "slope a of the ramp, phi(x) = clip(a*x + 1/2, 0, 1)",
+                        1.0 / 6.0, 0.0, 10.0, False, True)
+
 _INFOS: tuple[ActivationInfo, ...] = (
     ActivationInfo("linear", "phi(x) = x", "linear", False, False, False, None,
                    "identity map", short_cite("he-2015", "eq. 10 with a linear unit")),
@@ -185,6 +190,16 @@ _INFOS: tuple[ActivationInfo, ...] = (
                    f"numeric second moment ({_GAIN_FORWARD} argument)"),
     ActivationInfo("silu", "phi(x) = x*sigmoid(x)", "smooth", True, False, False, None,
                    cite("elfwing-2018"), f"numeric second moment ({_GAIN_FORWARD} argument)"),
+    ActivationInfo("hard_swish", "phi(x) = x*clip(x/6 + 1/2, 0, 1)", "smooth", True, False,
+                   False, None, cite("howard-2019"),
+                   f"numeric second moment ({_GAIN_FORWARD} argument)",
+                   notes="Piecewise: 0 below -3, x above 3; the kinks sit on quadrature "
+                         "breakpoints."),
+    ActivationInfo("hard_sigmoid", "phi(x) = clip(a*x + 1/2, 0, 1)", "saturating", False, True,
+                   False, _HARD_SLOPE, cite("howard-2019"),
+                   "closed-form second moment (normal CDF and density at the kinks)",
+                   notes="Flat outside |x| <= 1/(2a): saturates like sigmoid, with a zero "
+                         "gradient there."),
     ActivationInfo("softplus", "phi(x) = log(1 + exp(x))", "smooth", True, False, False, None,
                    cite("dugas-2001"), f"numeric second moment ({_GAIN_FORWARD} argument)"),
     ActivationInfo("tanh", "phi(x) = tanh(x)", "saturating", False, True, False, None,
@@ -222,7 +237,7 @@ def _resolve_param(info: ActivationInfo, param: float | None) -> float | None:
         if param is not None:
             raise ValueError(
                 f"activation_param: activation {info.name!r} takes no parameter (got {param!r}); "
-                "only leaky_relu (slope) and elu (alpha) take one"
+                "only leaky_relu (slope), elu (alpha) and hard_sigmoid (slope) take one"
             )
         return None
     if param is None:
@@ -277,6 +292,10 @@ def _mp_softplus(z: Any, _: Any) -> Any:
     return _MP.log1p(_MP.exp(z)) if z < 0 else z + _MP.log1p(_MP.exp(-z))
 
 
+def _mp_hard_swish(z: Any, _: Any) -> Any:
+    return z * min(max(z / 6 + _MP.mpf(0.5), 0), 1)
+
+
 def _mp_tanh(z: Any, _: Any) -> Any:
     return _MP.tanh(z)
 
@@ -290,6 +309,7 @@ _MP_FUNCS: Mapping[str, MpFn] = MappingProxyType({
     "gelu": _mp_gelu,
     "silu": _mp_silu,
     "softplus": _mp_softplus,
+    "hard_swish": _mp_hard_swish,
     "tanh": _mp_tanh,
     "sigmoid": _mp_sigmoid,
 })
@@ -403,6 +423,24 @@ def _closed_form_gain(name: str, param: float | None) -> GainResult:
                           f"has E[selu(z)^2] = 1, so LeCun scaling "
                           f"({short_cite('klambauer-2017')})",
                           (cite("klambauer-2017"), cite("lecun-1998")))
+    if name == "hard_sigmoid":
+        assert param is not None
+        with _MP_LOCK:
+            # phi = a z + 1/2 on [-c, c], c = 1/(2a), 1 above, 0 below. With Phi, pdf the normal
+            # CDF and density: int_{-c}^{c} z^2 pdf = (2 Phi(c) - 1) - 2 c pdf(c), the odd term
+            # vanishes, so E[phi^2] = a^2 ((2Phi(c)-1) - 2c pdf(c)) + (2Phi(c)-1)/4 + 1 - Phi(c).
+            a = _MP.mpf(param)
+            c = 1 / (2 * a)
+            cdf = _MP.ncdf(c)
+            pdf = _MP.npdf(c)
+            m2 = a * a * ((2 * cdf - 1) - 2 * c * pdf) + (2 * cdf - 1) / 4 + 1 - cdf
+            gain = float(1 / _MP.sqrt(m2))
+            m2_f = float(m2)
+        return GainResult(name, param, gain, True, m2_f,
+                          f"1/sqrt(E[hard_sigmoid(z; slope={param!r})^2]) = 1/sqrt({_fmt(m2_f)}) "
+                          f"= {_fmt(gain)}, E in closed form from the normal CDF and density at "
+                          f"the kinks +-1/(2a); variance-preserving gain ({_GAIN_FORWARD} "
+                          "argument with the second moment)", (cite("he-2015"),))
     if name == "softmax":
         return GainResult(name, None, 1.0, True, None,
                           "1 by convention: softmax is an output activation, there is no next "
@@ -483,6 +521,11 @@ def _forward(name: str, x: FloatArray, p: float | None) -> FloatArray:
         return x * _sigmoid(x)
     if name == "softplus":
         return np.logaddexp(0.0, x)
+    if name == "hard_swish":
+        return x * np.clip(x / 6 + 0.5, 0.0, 1.0)
+    if name == "hard_sigmoid":
+        assert p is not None
+        return np.clip(p * x + 0.5, 0.0, 1.0)
     if name == "tanh":
         return np.tanh(x)
     if name == "sigmoid":
@@ -515,6 +558,11 @@ def _slope(name: str, x: FloatArray, p: float | None) -> FloatArray:
         return s * (1 + x * (1 - s))
     if name == "softplus":
         return _sigmoid(x)
+    if name == "hard_swish":
+        return np.where(x <= -3, 0.0, np.where(x > 3, 1.0, x / 3 + 0.5))
+    if name == "hard_sigmoid":
+        assert p is not None
+        return np.where(np.abs(p * x) < 0.5, p, 0.0)
     if name == "tanh":
         t = np.tanh(x)
         return 1 - t * t

@@ -1,7 +1,7 @@
 """From a request to a plan: one entry per tensor with method, scale, rationale and warnings.
 
 Cheap by construction: no values are generated here, and every size limit has been checked
-from shapes alone (seedbed.core.spec.parse_request) before anything else happens.
+from shapes alone (seedbed.core.request.parse) before anything else happens.
 """
 
 from __future__ import annotations
@@ -10,21 +10,17 @@ from dataclasses import replace
 from typing import Any
 
 from seedbed.core.activations import describe_activation
-from seedbed.core.limits import Limits
+from seedbed.core.choice import Choice
 from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.policies import apply_policy
-from seedbed.core.problems import Problem, RequestRejected
-from seedbed.core.recommend import Choice, override_weight, recommend_weight, vector_choice
-from seedbed.core.spec import (
-    DTYPE_MAX,
-    DTYPE_TINY,
-    NORMAL_EXTREME,
-    NetworkRequest,
-    canonical_request,
-    parse_request,
-)
-from seedbed.core.structure import branches_of
-from seedbed.core.tensors import TensorSlot, slots_by_layer
+from seedbed.core.recommend import override_weight, recommend_weight, vector_choice
+from seedbed.core.request.limits import Limits
+from seedbed.core.request.network import NetworkRequest, canonical_request
+from seedbed.core.request.parse import parse
+from seedbed.core.request.parsed import ParsedRequest
+from seedbed.core.request.problems import Problem, RequestRejected
+from seedbed.core.request.vocabulary import DTYPE_MAX, DTYPE_TINY, NORMAL_EXTREME
+from seedbed.core.tensors import TensorSlot
 from seedbed.core.version import ALGORITHM
 
 # A stack of consecutive sigmoid layers longer than this gets a vanishing-gradient warning:
@@ -178,21 +174,22 @@ def _stack_warnings(request: NetworkRequest,
     return warnings
 
 
-def plan_request(request: NetworkRequest) -> Plan:
+def plan_request(parsed: ParsedRequest) -> Plan:
     """The plan of an already validated request.
 
     Each tensor is first chosen as without a depth policy (recommendation or override); the
     policy then rewrites what it is about and adds its own tensors (seedbed.core.policies);
     finally every weight scale is checked against the dtype.
     """
+    request = parsed.request
     problems: list[Problem] = []
-    chosen = [_layer_choices(index, layer, slots, problems)
-              for index, (layer, slots) in enumerate(zip(request.layers, slots_by_layer(request),
+    chosen = [_layer_choices(index, layer, list(slots), problems)
+              for index, (layer, slots) in enumerate(zip(request.layers, parsed.slots,
                                                          strict=True))]
     if problems:
         raise RequestRejected(problems)
-    outcome = apply_policy(request, chosen)
-    in_branch = {k for b in branches_of(request) for k in b.indices}
+    outcome = apply_policy(parsed, chosen)
+    in_branch = {k for b in parsed.branches for k in b.indices}
     tensors: list[TensorPlan] = []
     weights: list[tuple[Any, Choice]] = []
     for index, layer in enumerate(request.layers):
@@ -220,7 +217,7 @@ def plan_request(request: NetworkRequest) -> Plan:
 
 def build_plan(data: object, limits: Limits | None = None) -> Plan:
     """Validate a parsed JSON body and plan it; raises RequestRejected with every problem."""
-    return plan_request(parse_request(data, limits if limits is not None else Limits()))
+    return plan_request(parse(data, limits if limits is not None else Limits()))
 
 
 def plan_document(plan: Plan) -> dict[str, Any]:

@@ -26,13 +26,14 @@ start would harm training (symmetric units, a fan that frameworks take the other
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 from typing import Any
 
 from seedbed.core import fans as fan_rules
 from seedbed.core.activations import describe_activation, gain_for
+from seedbed.core.choice import Choice
 from seedbed.core.meanfield import mean_field, rationale_sentence
 from seedbed.core.references import cite, short_cite
+from seedbed.core.request.overrides import WeightOverride
 from seedbed.core.scales import (
     Realised,
     Scale,
@@ -45,7 +46,6 @@ from seedbed.core.scales import (
     realise,
     symmetric_uniform_scale,
 )
-from seedbed.core.spec import WeightOverride
 from seedbed.core.tensors import TensorSlot
 
 _SQRT3 = math.sqrt(3.0)
@@ -53,30 +53,6 @@ _SQRT3 = math.sqrt(3.0)
 
 def _fmt(x: float) -> str:
     return f"{x:.6g}"
-
-
-@dataclass(frozen=True)
-class Choice:
-    """Everything about one tensor's initialisation except its position and shape."""
-
-    method: str
-    distribution: str | None
-    sampler: str
-    scale: float
-    fan_in: int | float | None
-    fan_out: int | float | None
-    gain: float | None
-    std: float | None
-    bound: float | None
-    value: float | None
-    rationale: str
-    references: tuple[str, ...]
-    warnings: tuple[str, ...] = ()
-    block_values: tuple[float, ...] | None = None
-    reproducible: str = "exact"
-    # realised std divided by the recommended std for the same tensor (1 when recommended):
-    # the plan multiplies these along a stack to warn about vanishing or exploding starts
-    scale_ratio: float = 1.0
 
 
 # ---------------------------------------------------------------------------------------------

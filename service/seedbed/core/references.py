@@ -130,6 +130,8 @@ _ALL: tuple[Source, ...] = (
     Source("elfwing-2018", "Elfwing, Uchibe & Doya", 2018,
            "Sigmoid-Weighted Linear Units for Neural Network Function Approximation in "
            "Reinforcement Learning", "Neural Networks 107"),
+    Source("howard-2019", "Howard, Sandler, Chu, Chen, Chen, Tan, Wang, Zhu, Pang, Vasudevan, "
+           "Le & Adam", 2019, "Searching for MobileNetV3", "ICCV"),
     Source("dugas-2001", "Dugas, Bengio, Bélisle, Nadeau & Garcia", 2001,
            "Incorporating Second-Order Functional Knowledge for Better Option Pricing", "NeurIPS"),
 )

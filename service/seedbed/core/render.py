@@ -12,7 +12,6 @@ from collections.abc import Iterator
 import numpy as np
 
 from seedbed.core.plan_types import Plan, TensorPlan
-from seedbed.core.problems import Problem, RequestRejected
 from seedbed_client.generator import materialize
 from seedbed_client.generator.materialize import to_little_endian_bytes
 
@@ -20,22 +19,6 @@ from seedbed_client.generator.materialize import to_little_endian_bytes
 def block_shape(t: TensorPlan, start: int, stop: int) -> tuple[int, ...]:
     """Served shape of rows [start, stop) of `t`."""
     return (stop - start, *t.shape[1:])
-
-
-def parse_rows(text: str, t: TensorPlan) -> tuple[int, int]:
-    """Parse 'START:STOP' for the served first axis of `t` (STOP exclusive, both required)."""
-    rows = t.shape[0]
-    allowed = (f"START:STOP with 0 <= START < STOP <= {rows} "
-               f"(rows of {t.tensor}, shape {list(t.shape)})")
-    parts = text.split(":")
-    if len(parts) != 2 or not all(p.isdigit() and len(p) <= 19 for p in parts):
-        problem = Problem("rows", "invalid_value", f"rows must be {allowed}; got {text!r}")
-        raise RequestRejected([problem])
-    start, stop = int(parts[0]), int(parts[1])
-    if not 0 <= start < stop <= rows:
-        problem = Problem("rows", "out_of_range", f"rows must be {allowed}; got {text!r}")
-        raise RequestRejected([problem])
-    return start, stop
 
 
 def render_float64(
@@ -70,7 +53,6 @@ def iter_tensor_bytes(
 __all__ = [
     "block_shape",
     "iter_tensor_bytes",
-    "parse_rows",
     "render_float64",
     "render_rows",
     "to_little_endian_bytes",

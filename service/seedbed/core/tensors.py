@@ -37,33 +37,31 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from math import prod
 
-from seedbed.core.problems import Problem, RequestRejected
-from seedbed.core.spec import (
-    GATES,
+from seedbed.core.request.layers import (
     AnyLayer,
     AttentionLayer,
     ConvLayer,
     DenseLayer,
     EmbeddingLayer,
-    Layout,
-    NetworkRequest,
     NormLayer,
     RecurrentLayer,
-    canonical_request,
-    layer_name_problems,
 )
+from seedbed.core.request.names import layer_name_problems
+from seedbed.core.request.network import NetworkRequest
+from seedbed.core.request.problems import Problem, RequestRejected
+from seedbed.core.request.vocabulary import GATES, Layout
+from seedbed_client import wire_facts
 
 __all__ = [
     "ATTENTION_PROJECTIONS",
     "TensorSlot",
-    "canonical_request",
     "request_slots",
     "slots_by_layer",
     "tensor_name_problems",
     "tensor_slots",
 ]
 
-ATTENTION_PROJECTIONS: tuple[str, ...] = ("query", "key", "value", "output")
+ATTENTION_PROJECTIONS: tuple[str, ...] = wire_facts.ATTENTION_PROJECTIONS
 
 
 @dataclass(frozen=True)

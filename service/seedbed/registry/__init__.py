@@ -6,7 +6,7 @@ seedbed.web.routes.recipes and the key commands in seedbed.keys_cli.
 """
 
 from seedbed.registry.config import RegistryConfig, RegistryConfigError, config_from_env
-from seedbed.registry.service import LazyRegistry, Registry, open_registry
+from seedbed.registry.lifecycle import LazyRegistry, Registry, open_registry
 
 __all__ = [
     "LazyRegistry",

@@ -10,8 +10,9 @@
     SEEDBED_SHARED_DATABASE     1: refuse to start on SQLite; set on replicated deployments so
                                 a missing database URL cannot give every replica its own file
 
-This module stands apart from the web layer's Settings so the registry (and the `keys` command,
-which never starts a server) can be configured without it.
+The variables are read from the environment by seedbed.settings (the one module that reads
+it); this module interprets them, apart from the web layer, so the `keys` command, which never
+starts a server, uses the same rules.
 """
 
 from __future__ import annotations
@@ -22,7 +23,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from urllib.parse import urlsplit
 
-PREFIX = "SEEDBED_"
+from seedbed.settings import PREFIX, registry_environment
+
 DATABASE_FILE_NAME = "seedbed.sqlite3"
 
 _POSTGRES_SCHEMES = ("postgresql", "postgres", "postgresql+psycopg")
@@ -141,7 +143,9 @@ def _database_url_text(env: Mapping[str, str]) -> tuple[str, str] | None:
 
 
 def config_from_env(environ: Mapping[str, str] | None = None) -> RegistryConfig:
-    env = os.environ if environ is None else environ
+    """The registry's configuration from its variables (`environ`: a mapping standing in for
+    the process environment)."""
+    env = registry_environment(environ)
     read_protected = _flag(
         PREFIX + "READ_REQUIRES_KEY", env.get(PREFIX + "READ_REQUIRES_KEY", "0")
     )

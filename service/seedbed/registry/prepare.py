@@ -8,12 +8,12 @@ import hashlib
 import re
 from dataclasses import dataclass
 
-from seedbed.core.limits import Limits
 from seedbed.core.plan import build_plan, plan_document
 from seedbed.core.plan_types import Plan
-from seedbed.core.problems import BODY, Problem, RequestRejected, describe_input
 from seedbed.core.render import iter_tensor_bytes
-from seedbed.core.suggest import did_you_mean
+from seedbed.core.request.limits import Limits
+from seedbed.core.request.problems import BODY, Problem, RequestRejected, describe_input
+from seedbed.core.request.suggest import did_you_mean
 from seedbed.registry.records import canonical_text
 
 NAME_PATTERN_TEXT = r"[a-z0-9][a-z0-9._-]{0,99}"

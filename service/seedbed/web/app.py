@@ -12,14 +12,17 @@ from starlette.routing import Route
 
 from seedbed import __version__
 from seedbed.core.audit import AuditLimits
+from seedbed.settings import Settings
 from seedbed.web.errors import install_error_handlers
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
+from seedbed.web.plan_cache import PlanCache
 from seedbed.web.query_check import refuse_unknown_query
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
-from seedbed.web.routes import audit, diagnose, ops, plan, recipes, weights
-from seedbed.web.settings import Settings
+from seedbed.web.routes import audit, diagnose, onnx_models, ops, plan, recipes, sample, weights
+from seedbed.web.workbench import WORKBENCH_ROUTERS
+from seedbed_client.generator import kernel as generator_kernel
 
 DESCRIPTION = (
     "Seeded, reproducible, explained initial weights for neural networks. Describe a network's "
@@ -28,6 +31,15 @@ DESCRIPTION = (
     'every machine. Every error has one shape: `{"error": {status, code, field, message, '
     "problems}}`."
 )
+
+
+def _size_numeric_thread_pools(threads: int) -> None:
+    """BLAS (diagnose's matrix products, orthogonal QR) gets the same thread budget as a
+    request's generation: with W workers of cores / W threads each, the workers' pools never
+    add up to more threads than cores."""
+    from threadpoolctl import threadpool_limits
+
+    threadpool_limits(limits=threads)
 
 
 def create_app(
@@ -40,12 +52,14 @@ def create_app(
     arguments replace the baked /readyz values (tests use them to prove a mismatch is caught)."""
     settings = Settings.from_env() if settings is None else settings
     metrics = ServiceMetrics()
+    generator_kernel.set_enabled(settings.generator_kernel)
+    _size_numeric_thread_pools(settings.threads_per_request())
 
     @asynccontextmanager
     async def lifespan(app: FastAPI) -> AsyncIterator[None]:
         app.state.readiness = await anyio.to_thread.run_sync(
             lambda: self_check(
-                reference_digests, reference_algorithm, threads=settings.generation_threads
+                reference_digests, reference_algorithm, threads=settings.threads_per_request()
             )
         )
         # Opens (creating or upgrading) the recipe database now rather than on the first
@@ -64,6 +78,7 @@ def create_app(
         redoc_url=None,
         # Every route refuses query parameters it does not define (a typo is not a default).
         dependencies=[Depends(refuse_unknown_query)],
+        docs_url=None,  # served on local assets by the workbench's routers
         openapi_tags=[
             {"name": "weights", "description": "Plans, weights and the catalog."},
             {"name": "operations", "description": "Liveness, readiness and metrics."},
@@ -72,17 +87,20 @@ def create_app(
             {"name": "audit", "description": "Checks of existing weights files."},
             {"name": "recipes", "description": "Team recipes: named, immutable versions of a "
              "request, and their weights."},
+            {"name": "onnx", "description": "Weights for an ONNX model file: the request read "
+             "from its graph, its initializers filled in its own layouts."},
         ],
     )
     app.state.settings = settings
     app.state.metrics = metrics
     app.state.readiness = None
+    app.state.plan_cache = PlanCache(settings.plan_cache_entries, settings.plan_cache_bytes)
     app.state.audit_limits = AuditLimits(max_upload_bytes=settings.max_audit_bytes)
     app.state.diagnostic_limits = settings.diagnostics
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
-    for router in (plan.router, weights.router, diagnose.router, audit.router, recipes.router,
-                   ops.router):
+    for router in (plan.router, weights.router, sample.router, diagnose.router, audit.router,
+                   recipes.router, onnx_models.router, ops.router, *WORKBENCH_ROUTERS):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):

@@ -21,8 +21,8 @@ from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from seedbed.core.problems import RequestRejected, describe_input
-from seedbed.core.suggest import did_you_mean
+from seedbed.core.request.problems import RequestRejected, describe_input
+from seedbed.core.request.suggest import did_you_mean
 
 log = logging.getLogger("seedbed.errors")
 

@@ -148,7 +148,7 @@ SHARED_ERRORS: dict[str, dict[str, Any]] = {
 
 def _request_schema() -> tuple[dict[str, Any], dict[str, Any]]:
     """(schema of the request body, other component schemas it refers to)."""
-    from seedbed.core.spec import NetworkRequest
+    from seedbed.core.request.network import NetworkRequest
 
     schema = NetworkRequest.model_json_schema(
         ref_template="#/components/schemas/{model}", mode="validation"

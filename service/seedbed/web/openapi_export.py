@@ -12,8 +12,8 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from seedbed.settings import Settings
 from seedbed.web.app import create_app
-from seedbed.web.settings import Settings
 
 DEFAULT_PATH = Path(__file__).resolve().parents[3] / "openapi" / "openapi.json"
 REGENERATE = "python -m seedbed.web.openapi_export"

@@ -12,7 +12,7 @@ from fastapi import Request
 from fastapi.dependencies.models import Dependant
 from fastapi.routing import APIRoute
 
-from seedbed.core.suggest import did_you_mean
+from seedbed.core.request.suggest import did_you_mean
 from seedbed.web.errors import ApiError, Fault
 
 UNKNOWN_PARAMETER = "unknown_parameter"

@@ -21,6 +21,7 @@ from typing import Any
 from seedbed.core.plan import build_plan
 from seedbed.core.render import iter_tensor_bytes
 from seedbed.core.version import ALGORITHM
+from seedbed_client.generator import kernel as generator_kernel
 
 _LAYERS: list[dict[str, Any]] = [
     {
@@ -153,6 +154,7 @@ class Readiness:
             "tensors_checked": self.checked,
             "mismatches": self.mismatches,
             "seconds": round(self.seconds, 4),
+            "generator": generator_kernel.status().describe(),
         }
 
 

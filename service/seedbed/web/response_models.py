@@ -20,7 +20,8 @@ from typing import Annotated, Any, Literal
 from pydantic import BaseModel, ConfigDict, Field
 from pydantic.json_schema import SkipJsonSchema
 
-from seedbed.core.spec import POLICY_NAMES, Distribution, DType, Layout
+from seedbed.core.request.policy_models import POLICY_NAMES
+from seedbed.core.request.vocabulary import Distribution, DType, Layout
 
 SHA256_PATTERN = "^[0-9a-f]{64}$"
 Sha256 = Annotated[str, Field(pattern=SHA256_PATTERN)]
@@ -232,6 +233,11 @@ class _ReadinessBase(BaseModel):
     tensors_checked: int = Field(ge=0)
     mismatches: list[str] = Field(description="<probe>/<tensor> keys whose bytes differ.")
     seconds: float = Field(ge=0)
+    generator: str = Field(
+        description="What generates the values in this process: 'compiled (...)' for the C "
+        "kernel, 'reference (...)' for the numpy implementation with the reason (same bytes, "
+        "slower)."
+    )
 
 
 class ReadyReport(_ReadinessBase):

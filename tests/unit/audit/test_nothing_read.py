@@ -19,7 +19,8 @@ import pytest
 from fastapi.testclient import TestClient
 
 from conftest import require_oracle
-from seedbed.core.audit import UploadRefused, audit_upload
+from seedbed.core.audit import UploadRefused
+from seedbed.formats.upload_in import audit_upload
 from seedbed.web import Settings, create_app
 
 

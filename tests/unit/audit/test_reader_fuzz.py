@@ -21,8 +21,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from conftest import require_oracle
-from seedbed.core.audit import AuditLimits, UploadRefused, audit_upload
+from seedbed.core.audit import AuditLimits, UploadRefused
 from seedbed.core.audit.refusals import REFUSAL_CODES
+from seedbed.formats.upload_in import audit_upload
 
 LIMITS = AuditLimits(max_upload_bytes=64 * 1024, max_tensors=50, max_header_bytes=4096)
 # What one audit may hold beyond the upload itself: the largest tensor, its float64 copy and

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from seedbed.core.activations import activation_names
-from seedbed.core.suggest import closest
+from seedbed.core.request.suggest import closest
 
 ACTIVATIONS = activation_names()
 

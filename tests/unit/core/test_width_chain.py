@@ -11,8 +11,8 @@ from typing import Any
 
 import pytest
 
-from seedbed.core.problems import RequestRejected
-from seedbed.core.spec import parse_request
+from seedbed.core.request.parse import parse
+from seedbed.core.request.problems import RequestRejected
 
 
 def dense(name: str, n_in: int, n_out: int, **extra: Any) -> dict[str, Any]:
@@ -32,7 +32,7 @@ def conv(name: str, c_in: int, c_out: int, **extra: Any) -> dict[str, Any]:
 
 def problems(layers: list[dict[str, Any]], **top: Any) -> list[tuple[str, str, str]]:
     try:
-        parse_request({"seed": 1, "layers": layers, **top})
+        parse({"seed": 1, "layers": layers, **top})
     except RequestRejected as err:
         return [(p.field, p.code, p.message) for p in err.problems]
     return []

@@ -14,8 +14,8 @@ import httpx
 import numpy as np
 import pytest
 
+from seedbed.settings import Settings as SettingsType
 from seedbed.web import Settings, create_app
-from seedbed.web.settings import Settings as SettingsType
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 

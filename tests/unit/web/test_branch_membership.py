@@ -20,7 +20,7 @@ from hypothesis import strategies as st
 
 from seedbed.core.diagnostics import DiagnosticLimits, diagnose
 from seedbed.core.plan import build_plan
-from seedbed.core.problems import RequestRejected
+from seedbed.core.request.problems import RequestRejected
 from seedbed.web import Settings, create_app
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
@@ -71,7 +71,7 @@ def test_every_endpoint_refuses_an_embedding_in_a_branch(client: TestClient) -> 
 
 
 def test_recipe_validation_refuses_it_too() -> None:
-    from seedbed.core.limits import Limits
+    from seedbed.core.request.limits import Limits
     from seedbed.registry.prepare import validate_body
 
     with pytest.raises(RequestRejected) as err:

@@ -6,8 +6,8 @@ import pytest
 from fastapi.testclient import TestClient
 
 from seedbed.core.diagnostics import DiagnosticLimits
-from seedbed.core.limits import Limits
 from seedbed.core.plan import build_plan
+from seedbed.core.request.limits import Limits
 from seedbed.web import Settings, create_app
 
 pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")

@@ -3,26 +3,22 @@ unpickling, sizes checked before anything is decompressed) and report, per tenso
 statistics, twin units, numerical rank and non-finite values, and, given the request that
 describes the network, its scale against the recommended one.
 
-Layout: upload.py recognises the file and dispatches to npz_reader.py / safetensors_reader.py
-(every refusal happens there, as UploadRefused); stats.py, twins.py and rank.py analyse one
-tensor; matching.py compares with a plan; report.py assembles findings (findings.py) and the
-summary. form_parts.py parses multipart/form-data uploads incrementally.
+Layout: the readers live next to the writers, in seedbed.formats: upload_in.py recognises the
+file and dispatches to npz_in.py / safetensors_in.py (every refusal happens there, as
+UploadRefused, before any value is read); multipart_in.py parses multipart/form-data uploads
+incrementally. Here: stats.py, identical_units.py and rank.py analyse one tensor; matching.py
+compares with a plan; report.py assembles findings (findings.py) and the summary.
 """
 
 from seedbed.core.audit.findings import Finding
-from seedbed.core.audit.form_parts import FormError, FormPartsParser, PartInfo, boundary_of
 from seedbed.core.audit.limits import AuditLimits
 from seedbed.core.audit.refusals import UploadRefused
-from seedbed.core.audit.report import NOTICE, audit_upload
+from seedbed.core.audit.report import NOTICE, audit_stored
 
 __all__ = [
     "NOTICE",
     "AuditLimits",
     "Finding",
-    "FormError",
-    "FormPartsParser",
-    "PartInfo",
     "UploadRefused",
-    "audit_upload",
-    "boundary_of",
+    "audit_stored",
 ]

@@ -1,19 +1,20 @@
 """The audit of an uploaded file: per-tensor statistics, findings, and a summary.
 
-`audit_upload` refuses a file it cannot read safely (UploadRefused) before looking at any
-value, then loads one tensor at a time and analyses it: statistics (stats.py), twin units
-(twins.py), numerical rank (rank.py) and, when a request describes the network, the
-comparison with its plan (matching.py).
+`audit_stored` takes a file already read by seedbed.formats.upload_in (which refuses what it
+cannot read safely before looking at any value), loads one tensor at a time and analyses it:
+statistics (stats.py), twin units (identical_units.py), numerical rank (rank.py) and, when a request
+describes the network, the comparison with its plan (matching.py).
 """
 
 from __future__ import annotations
 
 import math
-from typing import IO, Any
+from typing import Any
 
 import numpy as np
 
 from seedbed.core.audit.findings import SEVERITY_ORDER, Finding
+from seedbed.core.audit.identical_units import TwinGroups, twin_units
 from seedbed.core.audit.limits import AuditLimits
 from seedbed.core.audit.matching import (
     compare_with_plan,
@@ -21,11 +22,10 @@ from seedbed.core.audit.matching import (
     plan_coverage,
     shape_finding,
 )
+from seedbed.core.audit.nothing_read import require_something_read
 from seedbed.core.audit.rank import numerical_rank, work_of
 from seedbed.core.audit.stats import ValueStats, value_stats
-from seedbed.core.audit.stored import FLOAT_ROUNDOFF, StoredTensor
-from seedbed.core.audit.twins import TwinGroups, twin_units
-from seedbed.core.audit.upload import open_upload, require_something_read
+from seedbed.core.audit.stored import FLOAT_ROUNDOFF, StoredTensor, Upload
 from seedbed.core.plan_types import Plan, TensorPlan
 
 NOTICE = (
@@ -267,17 +267,13 @@ def _output_layers(plan: Plan) -> set[str]:
             if isinstance(layer, dict) and layer.get("role") == "output"}
 
 
-def audit_upload(fp: IO[bytes], size: int, limits: AuditLimits | None = None,
+def audit_stored(upload: Upload, size: int, limits: AuditLimits | None = None,
                  plan: Plan | None = None) -> dict[str, Any]:
-    """Audit an NPZ or safetensors file of `size` bytes readable from the seekable `fp`.
-
-    Raises UploadRefused when the file cannot be read safely (before any value is read, except
-    damage found only while decompressing a member), or when it holds no tensor that is read.
-    Returns the JSON-ready report.
-    """
+    """Audit a file already read by seedbed.formats.upload_in (`size`: its bytes); returns the
+    JSON-ready report. Tensor values are read here, one tensor at a time. Raises
+    UploadRefused (no_tensors_read) when no tensor of the file would be read."""
     limits = limits if limits is not None else AuditLimits()
-    bf16 = {t.tensor for t in plan.tensors if t.dtype == "bfloat16"} if plan else set()
-    upload = require_something_read(open_upload(fp, size, limits, bf16))
+    require_something_read(upload)
     planned = {t.tensor: t for t in plan.tensors} if plan else {}
     budget = _Budget(limits.rank_budget)
     output_layers = frozenset(_output_layers(plan)) if plan else frozenset()

@@ -10,9 +10,9 @@ budget (limits, 413), body (the request body), report (orchestration), chart (SV
 See docs/diagnostics.md.
 """
 
-from seedbed.core.diagnostics.body import DEFAULT_BATCH, RECOMMENDED
 from seedbed.core.diagnostics.budget import DiagnosticLimits
 from seedbed.core.diagnostics.chart import chart_html, chart_svg
+from seedbed.core.diagnostics.diagnose_request import DEFAULT_BATCH, RECOMMENDED
 from seedbed.core.diagnostics.report import Diagnosis, diagnose, diagnosis_document
 
 __all__ = [

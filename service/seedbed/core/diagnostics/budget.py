@@ -21,9 +21,9 @@ import math
 from dataclasses import dataclass, fields
 
 from seedbed.core.diagnostics.network import Network, Step
-from seedbed.core.limits import SETTING_PREFIX, raised_by
 from seedbed.core.plan_types import Plan
-from seedbed.core.problems import Problem
+from seedbed.core.request.limits import SETTING_PREFIX, raised_by
+from seedbed.core.request.problems import Problem
 
 # Elementwise cost of an activation (forward and derivative) in multiply-add equivalents.
 ACTIVATION_COST: dict[str, int] = {"linear": 4, "relu": 60, "gelu": 3000}
@@ -31,7 +31,7 @@ DEFAULT_ACTIVATION_COST = 200
 RANDOM_SAMPLERS = frozenset({"uniform", "normal", "truncated_normal", "orthogonal"})
 
 
-# The service reads these limits from SEEDBED_DIAGNOSE_<NAME> (seedbed.web.settings).
+# The service reads these limits from SEEDBED_DIAGNOSE_<NAME> (seedbed.settings).
 DIAGNOSE_SETTING_PREFIX = SETTING_PREFIX + "DIAGNOSE_"
 
 

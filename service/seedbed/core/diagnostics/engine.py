@@ -37,7 +37,7 @@ import numpy.typing as npt
 
 from seedbed.core.diagnostics.network import Network, Step
 from seedbed.core.diagnostics.ops import BACKWARD, FORWARD
-from seedbed.core.diagnostics.twins import (
+from seedbed.core.diagnostics.twin_groups import (
     TwinSummary,
     incoming_rows,
     locked_groups,
@@ -259,7 +259,8 @@ def _forward_step(step: Step, x: Any, skip: FloatArray | None, store: WeightStor
 
 def _locked(network: Network, pos: int, groups: list[npt.NDArray[np.int64]],
             grad: FloatArray, store: WeightStore) -> list[bool]:
-    """Locked twin groups of step `pos` given the gradient of its own output (see twins.py)."""
+    """Locked twin groups of step `pos` given the gradient of its own output
+    (see twin_groups.py)."""
     if np.any(grad):
         return locked_groups(groups, grad)
     step = network.steps[pos]

@@ -14,7 +14,8 @@ Dense and norm layers act on the features at every position; attention attends o
 positions (the flattened grid); convs need the grid to have as many dims as their kernel.
 Strided convs shrink the grid (ceil(n/s)), transposed convs with stride s enlarge it (n*s).
 
-Residual structure: a layer's optional `branch` attribute (see seedbed.core.spec); consecutive
+Residual structure: a layer's optional `branch` attribute (see seedbed.core.request.branches);
+consecutive
 layers with the same branch form one branch, whose input is added to its last layer's output,
 after multiplying that output by the 1-element tensors "<branch>.gate" and
 "<branch>.multiplier" when the plan has them. The branch's input and output must have the same
@@ -31,8 +32,8 @@ import math
 from dataclasses import dataclass
 from typing import Any
 
-from seedbed.core.problems import Problem, RequestRejected
-from seedbed.core.spec import NetworkRequest
+from seedbed.core.request.parsed import ParsedRequest
+from seedbed.core.request.problems import Problem, RequestRejected
 
 SEQUENCE_LENGTH = 16
 GRID_SIDE: dict[int, int] = {1: 64, 2: 8, 3: 4}
@@ -116,14 +117,12 @@ def _grid_after(layer: Any, grid: tuple[int, ...]) -> tuple[int, ...]:
     return tuple(-(-n // s) for n, s in zip(grid, stride, strict=True))
 
 
-def _branches(layers: list[Any]) -> list[tuple[bool, bool]]:
-    """(branch_start, branch_end) per layer."""
-    names = [getattr(lay, "branch", None) for lay in layers]
-    out = []
-    for i, b in enumerate(names):
-        start = b is not None and (i == 0 or names[i - 1] != b)
-        end = b is not None and (i == len(names) - 1 or names[i + 1] != b)
-        out.append((start, end))
+def _branch_flags(parsed: ParsedRequest) -> list[tuple[bool, bool]]:
+    """(branch_start, branch_end) per layer, from the branches found at parse time."""
+    out = [(False, False)] * len(parsed.request.layers)
+    for b in parsed.branches:
+        out[b.start] = (True, out[b.start][1])
+        out[b.stop - 1] = (out[b.stop - 1][0], True)
     return out
 
 
@@ -132,11 +131,11 @@ def _shape_text(features: int, grid: tuple[int, ...]) -> str:
     return f"{features} features{where}"
 
 
-def build_network(request: NetworkRequest) -> Network:
-    """The steps of a validated request, or RequestRejected naming every unsupported layer."""
-    layers = list(request.layers)
+def build_network(parsed: ParsedRequest) -> Network:
+    """The steps of a parsed request, or RequestRejected naming every unsupported layer."""
+    layers = list(parsed.request.layers)
     problems: list[Problem] = []
-    if request.widths == "unchecked":
+    if parsed.request.widths == "unchecked":
         problems.append(Problem(
             "widths", "not_allowed",
             "widths \"unchecked\" says the layers are a collection, not one network; "
@@ -167,7 +166,7 @@ def build_network(request: NetworkRequest) -> Network:
     first_in, _ = _widths(layers[0])
     vocab = layers[0].vocab if layers[0].kind == "embedding" else None
     features = first_in
-    flags = _branches(layers)
+    flags = _branch_flags(parsed)
     steps: list[Step] = []
     branch_input: tuple[int, tuple[int, ...], int] | None = None  # features, grid, first index
     for i, lay in enumerate(layers):

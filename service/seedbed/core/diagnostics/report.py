@@ -16,13 +16,13 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
 
-from seedbed.core.diagnostics.body import RECOMMENDED, AlternativeSpec, parse_body
 from seedbed.core.diagnostics.budget import (
     DIAGNOSE_SETTING_PREFIX,
     DiagnosticLimits,
     cost_problems,
     run_cost,
 )
+from seedbed.core.diagnostics.diagnose_request import RECOMMENDED, AlternativeSpec, parse_body
 from seedbed.core.diagnostics.engine import INPUT_SEED, LayerRecord, Simulation, simulate
 from seedbed.core.diagnostics.grading import (
     DRIFTING_FACTOR,
@@ -36,15 +36,17 @@ from seedbed.core.diagnostics.grading import (
 from seedbed.core.diagnostics.network import Network, build_network
 from seedbed.core.diagnostics.unit_stats import SATURATION_RULES
 from seedbed.core.diagnostics.verdict import HIGH, LOW, SYMMETRIC_SHARE, Verdict, judge
-from seedbed.core.limits import Limits, raised_by, size_problems
 from seedbed.core.meanfield import mean_field
 from seedbed.core.plan import plan_request
 from seedbed.core.plan_types import Plan, TensorPlan
-from seedbed.core.problems import BODY, Problem, RequestRejected
 from seedbed.core.references import short_cite
-from seedbed.core.spec import NetworkRequest, parse_request
-from seedbed.core.structure import relocate_problems
-from seedbed.core.tensors import slots_by_layer
+from seedbed.core.request.blocks import relocate_problems
+from seedbed.core.request.checks import size_problems
+from seedbed.core.request.limits import Limits, raised_by
+from seedbed.core.request.network import NetworkRequest
+from seedbed.core.request.parse import parse
+from seedbed.core.request.parsed import ParsedRequest
+from seedbed.core.request.problems import BODY, Problem, RequestRejected
 
 OVERRIDDEN_KINDS = frozenset({"dense", "conv", "attention", "embedding"})
 MEAN_FIELD_LAYERS_LISTED = 8
@@ -76,21 +78,22 @@ def _prefixed(problems: Iterable[Problem], prefix: str) -> list[Problem]:
             for p in problems]
 
 
-def _parse_inner(data: object, limits: Limits) -> NetworkRequest:
+def _parse_inner(data: object, limits: Limits) -> ParsedRequest:
     try:
-        return parse_request(data, limits)
+        return parse(data, limits)
     except RequestRejected as exc:
         raise RequestRejected(_prefixed(exc.problems, "request")) from None
 
 
-def _network(raw: object, request: NetworkRequest) -> Network:
+def _network(raw: object, parsed: ParsedRequest) -> Network:
+    request = parsed.request
     try:
-        return build_network(request)
+        return build_network(parsed)
     except RequestRejected as exc:
         problems = exc.problems
         layers = raw.get("layers") if isinstance(raw, dict) else None
         if isinstance(layers, list):  # block shorthands: point at the layers as written
-            problems = relocate_problems(problems, layers, request)
+            problems = relocate_problems(problems, layers, request.layers)
         raise RequestRejected(_prefixed(problems, "request")) from None
 
 
@@ -105,8 +108,8 @@ def _alternative_plan(request: NetworkRequest, alt: AlternativeSpec, i: int,
                       limits: Limits) -> Plan:
     layers = [lay.model_copy(update={"init": alt.init}) if lay.kind in OVERRIDDEN_KINDS else lay
               for lay in request.layers]
-    modified = request.model_copy(update={"layers": layers})
-    problems = size_problems(modified, slots_by_layer(modified), limits)
+    modified = ParsedRequest.of(request.model_copy(update={"layers": layers}))
+    problems = size_problems(modified.request, modified.slots, limits)
     plan: Plan | None = None
     if not problems:
         try:
@@ -218,9 +221,10 @@ def diagnose(data: object, limits: Limits | None = None,
     problems = _limit_problems(body.batch, len(body.alternatives), dl)
     if problems:
         raise RequestRejected(problems)
-    request = _parse_inner(body.request, limits)
-    network = _network(body.request, request)
-    plans = [(RECOMMENDED, plan_request(request))]
+    parsed = _parse_inner(body.request, limits)
+    request = parsed.request
+    network = _network(body.request, parsed)
+    plans = [(RECOMMENDED, plan_request(parsed))]
     alt_problems: list[Problem] = []
     for i, alt in enumerate(body.alternatives):
         try:

@@ -8,16 +8,17 @@ Dead (`dead_fraction`, the fraction of units that are dead):
     rectifier family          a unit is dead when its pre-activation is <= 0 for every
       relu, leaky_relu, elu,  sample and position: it never leaves the negative regime. For
       selu, gelu, silu,       relu that means output 0 and gradient 0 (nothing can revive it
-      softplus                through this batch); for the others a small or vanishing slope.
-    tanh, sigmoid             a unit is dead when phi'(x) is exactly 0.0 in float64 for every
-                              value (saturated beyond the float's resolution: |x| > ~19 for
-                              tanh, x < -745 or x > 37 for sigmoid): it passes no gradient.
+      softplus, hard_swish    through this batch); for the others a small or vanishing slope.
+    tanh, sigmoid,            a unit is dead when phi'(x) is exactly 0.0 in float64 for every
+    hard_sigmoid              value (saturated beyond the float's resolution: |x| > ~19 for
+                              tanh, x < -745 or x > 37 for sigmoid; outside the ramp for
+                              hard_sigmoid): it passes no gradient.
     linear, softmax           never dead (no flat region).
 
 Saturated (`saturated_fraction`, the fraction of all output values, not of units):
 
     tanh        |phi(x)| > 0.99
-    sigmoid     phi(x) <= 0.01 or phi(x) >= 0.99
+    sigmoid     phi(x) <= 0.01 or phi(x) >= 0.99 (hard_sigmoid likewise)
     others      not applicable: null (no saturation region; a rectifier's flat side is what
                 `dead_fraction` measures)
 """
@@ -33,11 +34,13 @@ from seedbed.core.activations import activation_derivative, apply_activation
 
 FloatArray = npt.NDArray[np.float64]
 
-RECTIFIER_FAMILY = frozenset({"relu", "leaky_relu", "elu", "selu", "gelu", "silu", "softplus"})
-FLAT_WHEN_SATURATED = frozenset({"tanh", "sigmoid"})
+RECTIFIER_FAMILY = frozenset({"relu", "leaky_relu", "elu", "selu", "gelu", "silu", "softplus",
+                              "hard_swish"})
+FLAT_WHEN_SATURATED = frozenset({"tanh", "sigmoid", "hard_sigmoid"})
 SATURATION_RULES: dict[str, str] = {
     "tanh": "|tanh(x)| > 0.99",
     "sigmoid": "sigmoid(x) <= 0.01 or >= 0.99",
+    "hard_sigmoid": "hard_sigmoid(x) <= 0.01 or >= 0.99",
 }
 
 
@@ -57,7 +60,7 @@ def saturated_fraction(activation: str, post: FloatArray) -> float | None:
     """Fraction of output values in the activation's saturated region; None if it has none."""
     if activation == "tanh":
         return float(np.mean(np.abs(post) > 0.99))
-    if activation == "sigmoid":
+    if activation in ("sigmoid", "hard_sigmoid"):
         return float(np.mean((post <= 0.01) | (post >= 0.99)))
     return None
 

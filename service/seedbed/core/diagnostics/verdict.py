@@ -5,7 +5,7 @@ The rules, checked in this order (the first that fires is the verdict):
 1. symmetric: some hidden layer (role not output) has *locked* twin units covering at least
    `SYMMETRIC_SHARE` (half) of its units: units with identical incoming weights that also
    receive identical gradients on the batch, so training can never tell them apart (see
-   twins.py). The layer reported is the first such layer.
+   twin_groups.py). The layer reported is the first such layer.
 2. vanishing / exploding activations: along the main path (layers outside residual branches,
    and the stream after the sum at each branch's end), each layer's activation std divided by
    the first main-path layer's leaves [`LOW`, `HIGH`] = [1e-3, 1e3], or stops being finite

@@ -14,7 +14,6 @@ event loop. The limit comes from SEEDBED_MAX_AUDIT_BYTES (see `audit_limits_from
 from __future__ import annotations
 
 import json
-import os
 import tempfile
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
@@ -25,28 +24,20 @@ from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.concurrency import run_in_threadpool
 
-from seedbed.core.audit import (
-    AuditLimits,
-    FormError,
-    FormPartsParser,
-    PartInfo,
-    UploadRefused,
-    audit_upload,
-    boundary_of,
-)
+from seedbed.core.audit import AuditLimits, UploadRefused
 from seedbed.core.plan import build_plan
 from seedbed.core.plan_types import Plan
-from seedbed.core.problems import RequestRejected
+from seedbed.core.request.problems import RequestRejected
+from seedbed.formats.multipart_in import FormError, FormPartsParser, PartInfo, boundary_of
+from seedbed.formats.upload_in import audit_upload
+from seedbed.settings import Settings
+from seedbed.web.dependencies import audit_limits_of, settings_of
 from seedbed.web.errors import ApiError, Fault
 from seedbed.web.openapi_doc import EXAMPLES, REQUEST_SCHEMA_NAME, error_responses
-from seedbed.web.plan_loader import settings_of
-from seedbed.web.settings import SettingsError
 
 router = APIRouter(tags=["audit"])
 
 MAX_AUDIT_ENV = "SEEDBED_MAX_AUDIT_BYTES"
-_MIN_AUDIT_BYTES = 1024
-_MAX_AUDIT_BYTES = 64 << 30
 RAW_MEDIA_TYPES = ("application/octet-stream", "application/zip")
 MULTIPART = "multipart/form-data"
 # Uploads up to this size stay in memory; larger ones go to a temporary file as they arrive.
@@ -57,35 +48,9 @@ FILE_PART, REQUEST_PART = "file", "request"
 
 
 def audit_limits_from_env(environ: Mapping[str, str] | None = None) -> AuditLimits:
-    """AuditLimits with max_upload_bytes from SEEDBED_MAX_AUDIT_BYTES (default 256 MiB)."""
-    env = os.environ if environ is None else environ
-    text = env.get(MAX_AUDIT_ENV)
-    if text is None:
-        return AuditLimits()
-    try:
-        value = int(text.strip().replace("_", ""), 10)
-    except ValueError:
-        raise SettingsError(f"{MAX_AUDIT_ENV}={text!r} is not an integer; expected a whole "
-                            f"number in [{_MIN_AUDIT_BYTES}, {_MAX_AUDIT_BYTES}]") from None
-    if not _MIN_AUDIT_BYTES <= value <= _MAX_AUDIT_BYTES:
-        raise SettingsError(f"{MAX_AUDIT_ENV}={value} is out of range; expected "
-                            f"[{_MIN_AUDIT_BYTES}, {_MAX_AUDIT_BYTES}]")
-    return AuditLimits(max_upload_bytes=value)
-
-
-def _limits_of(request: Request) -> AuditLimits:
-    # Read once per app; tests (and later the settings) may place their own on app.state.
-    state = request.app.state
-    limits = getattr(state, "audit_limits", None)
-    if not isinstance(limits, AuditLimits):
-        try:
-            limits = audit_limits_from_env()
-        except SettingsError as exc:
-            # Not the caller's fault: say what the operator must fix.
-            raise ApiError.one(500, MAX_AUDIT_ENV, "bad_setting",
-                               f"the service is misconfigured: {exc}") from None
-        state.audit_limits = limits
-    return limits
+    """AuditLimits with max_upload_bytes from SEEDBED_MAX_AUDIT_BYTES (default 256 MiB), read
+    by the service settings like every other variable."""
+    return AuditLimits(max_upload_bytes=Settings.from_env(environ).max_audit_bytes)
 
 
 def _too_large(field: str, seen: str, limit: int, what: str) -> ApiError:
@@ -403,7 +368,7 @@ def _audit_slot(request: Request) -> Iterator[None]:
 
 
 async def _audit(request: Request) -> JSONResponse:
-    limits = _limits_of(request)
+    limits = audit_limits_of(request)
     raw_type = request.headers.get("content-type")
     media = (raw_type or "").split(";", 1)[0].strip().lower()
     raw_request: bytes | None = None

@@ -28,9 +28,9 @@ from seedbed.core.diagnostics import (
     diagnose,
     diagnosis_document,
 )
-from seedbed.web.body import read_json_body
+from seedbed.web.dependencies import diagnostic_limits_of, settings_of
+from seedbed.web.json_body import read_json_body
 from seedbed.web.openapi_doc import REQUEST_SCHEMA_NAME, error_responses
-from seedbed.web.plan_loader import settings_of
 from seedbed.web.response_models import DiagnosisDocument
 
 router = APIRouter(tags=["diagnostics"])
@@ -79,11 +79,6 @@ _BODY_SCHEMA: dict[str, Any] = {
                   "description": "Samples in the synthetic batch."},
     },
 }
-
-
-def _limits(request: Request) -> DiagnosticLimits:
-    limits = getattr(request.app.state, "diagnostic_limits", None)
-    return limits if isinstance(limits, DiagnosticLimits) else DiagnosticLimits()
 
 
 def _finite(value: Any) -> Any:
@@ -146,8 +141,9 @@ async def diagnose_signal(
 ) -> Response:
     settings = settings_of(request)
     data = await read_json_body(request, settings.max_body_bytes)
-    document = await run_in_threadpool(_document, data, settings.limits, _limits(request),
-                                       settings.generation_threads)
+    budget = diagnostic_limits_of(request)
+    document = await run_in_threadpool(_document, data, settings.limits, budget,
+                                       settings.threads_per_request())
     if chart == "svg":
         return Response(chart_svg(document), media_type=SVG_MEDIA_TYPE)
     if chart == "html":

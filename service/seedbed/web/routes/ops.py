@@ -51,6 +51,7 @@ async def healthz() -> JSONResponse:
                         "tensors_checked": 7,
                         "mismatches": [],
                         "seconds": 0.01,
+                        "generator": "compiled (C kernel, avx2 loops)",
                         "registry": "ok",
                     }
                 }

@@ -9,9 +9,9 @@ from fastapi.responses import JSONResponse
 
 from seedbed.core.catalog import catalog
 from seedbed.core.plan import plan_document
+from seedbed.web.dependencies import load_cached_plan
 from seedbed.web.etag import body_etag, none_match, strong_etag
 from seedbed.web.openapi_doc import error_responses, request_body
-from seedbed.web.plan_loader import load_plan
 from seedbed.web.response_models import CatalogDocument, PlanDocument
 
 router = APIRouter(tags=["weights"])
@@ -32,12 +32,20 @@ router = APIRouter(tags=["weights"])
     openapi_extra=request_body("The network to plan."),
 )
 async def draft_plan(request: Request) -> Response:
-    plan = await load_plan(request)
-    etag = strong_etag("plan", request=plan.canonical_request, algorithm=plan.algorithm)
+    entry = await load_cached_plan(request)
+    plan = entry.plan
+    if entry.etag is None or entry.body is None:
+        with entry.lock:  # a repeated request reuses the encoded body: no document, no JSON
+            etag = strong_etag("plan", request=plan.canonical_request, algorithm=plan.algorithm)
+            entry.body = bytes(JSONResponse(plan_document(plan)).body)
+            entry.etag = etag
+    etag, body = entry.etag, entry.body
     if none_match(request.headers.get("if-none-match"), etag):
         return Response(status_code=304, headers={"ETag": etag})
-    return JSONResponse(
-        plan_document(plan), headers={"ETag": etag, "X-Seedbed-Algorithm": plan.algorithm}
+    return Response(
+        body,
+        media_type="application/json",
+        headers={"ETag": etag, "X-Seedbed-Algorithm": plan.algorithm},
     )
 
 

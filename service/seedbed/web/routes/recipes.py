@@ -21,17 +21,15 @@ from __future__ import annotations
 
 import json
 import threading
-from collections.abc import Callable, Iterator
+from collections.abc import Callable
 from typing import Any, Literal, TypeVar
 
 from fastapi import APIRouter, FastAPI, Path, Query, Request, Response
-from fastapi.responses import StreamingResponse
 from sqlalchemy.exc import SQLAlchemyError
 from starlette.concurrency import run_in_threadpool
 
 from seedbed.core.plan import build_plan
 from seedbed.core.plan_types import Plan
-from seedbed.formats import encode_body
 from seedbed.registry import LazyRegistry, Registry, RegistryConfigError
 from seedbed.registry.keys import AuthenticationError, authenticate, bearer_token
 from seedbed.registry.migrations import SchemaTooNewError
@@ -53,14 +51,11 @@ from seedbed.registry.store import (
     list_versions,
     publish,
 )
-from seedbed.web.body import read_json_body
-from seedbed.web.documents import response_document
-from seedbed.web.encoding import json_size_of, outgoing_tensors
+from seedbed.web.dependencies import settings_of
 from seedbed.web.errors import ApiError
-from seedbed.web.etag import body_etag, none_match, strong_etag
-from seedbed.web.metrics import ServiceMetrics
+from seedbed.web.etag import body_etag, none_match
+from seedbed.web.json_body import read_json_body
 from seedbed.web.openapi_doc import REQUEST_SCHEMA_NAME, error_responses
-from seedbed.web.plan_loader import settings_of
 from seedbed.web.response_models import (
     PublishedRecipe,
     RecipePage,
@@ -68,6 +63,7 @@ from seedbed.web.response_models import (
     StoredRecipe,
     WeightsDocument,
 )
+from seedbed.web.weights_response import WeightsOptions, weights_response
 
 router = APIRouter(tags=["recipes"])
 
@@ -296,7 +292,7 @@ async def publish_recipe(request: Request) -> Response:
         raise _refused(exc) from None
     body = await read_json_body(request, settings.max_body_bytes)
     prepared: PreparedRecipe = await run_in_threadpool(
-        prepare_recipe, body, settings.limits, settings.generation_threads
+        prepare_recipe, body, settings.limits, settings.threads_per_request()
     )
     try:
         summary = await _db(publish, registry.engine, prepared, token)
@@ -472,54 +468,15 @@ async def recipe_weights(
     registry = await _registry(request)
     record = await _stored(request, registry, name, version)
     plan = await run_in_threadpool(_replanned, record, settings.limits)
-    etag = strong_etag(
-        "weights", request=plan.canonical_request, algorithm=plan.algorithm, format=format,
-        tensor=None, rows=None,
+    options = WeightsOptions(
+        format,
+        digests=record.fingerprints,
+        headers={
+            "Cache-Control": _cache_control(registry, IMMUTABLE),
+            "X-Seedbed-Recipe": f"{name}/{version}",
+        },
+        filename=f"{name}-v{version}",
     )
-    exact = all(t.reproducible == "exact" for t in plan.tensors)
-    if not exact:
-        # Orthogonal values may differ in the last bits between BLAS builds (as for
-        # POST /v1/weights): only a weak validator is honest, and the stored fingerprints are
-        # this platform's, not a promise for every replica.
-        etag = "W/" + etag
-    headers = {
-        "ETag": etag,
-        "Cache-Control": _cache_control(registry, IMMUTABLE),
-        "X-Seedbed-Algorithm": plan.algorithm,
-        "X-Seedbed-Recipe": f"{name}/{version}",
-    }
-    if none_match(request.headers.get("if-none-match"), etag):
-        return Response(status_code=304, headers=headers)
-    if format == "json":
-        size = await run_in_threadpool(json_size_of, plan, None)
-        if size > settings.max_json_response_bytes:
-            raise ApiError.one(
-                413, "format", "json_too_large",
-                f"this JSON response would be {size} bytes, above the limit of "
-                f"{settings.max_json_response_bytes} (SEEDBED_MAX_JSON_RESPONSE_BYTES); ask for "
-                "format=npz or format=safetensors",
-            )
-    tensors = outgoing_tensors(plan, None, settings.chunk_bytes, settings.generation_threads)
-    # With digests given the formats verify every tensor while streaming and skip their own
-    # hashing pass; the bytes are the same either way.
-    encoded = await run_in_threadpool(
-        lambda: encode_body(format, response_document(plan, None), tensors,
-                            digests=record.fingerprints if exact else None)
-    )
-    headers["Content-Length"] = str(encoded.content_length)
-    headers["Content-Disposition"] = f'attachment; filename="{name}-v{version}.{format}"'
-    if request.method == "HEAD":
-        return Response(status_code=200, media_type=encoded.media_type, headers=headers)
-    metrics: ServiceMetrics = request.app.state.metrics
-    return StreamingResponse(
-        _counted(encoded.body, metrics, format, plan.total_count),
-        media_type=encoded.media_type,
-        headers=headers,
-    )
+    return await weights_response(request, plan, options)
 
 
-def _counted(body: Iterator[bytes], metrics: ServiceMetrics, fmt: str, values: int
-             ) -> Iterator[bytes]:
-    # Sync generator: StreamingResponse steps it in the threadpool, off the event loop.
-    yield from body
-    metrics.values_served.labels(format=fmt).inc(values)
