@@ -33,7 +33,9 @@ def declared_query_names(route: APIRoute) -> list[str]:
 
 async def refuse_unknown_query(request: Request) -> None:
     route = request.scope.get("route")
-    if not isinstance(route, APIRoute):
+    # Only the documented API is strict: pages and static assets outside the OpenAPI document
+    # (the workbench) take cache-busting parameters such as ?v=<hash>.
+    if not isinstance(route, APIRoute) or not route.include_in_schema:
         return
     allowed = declared_query_names(route)
     unknown = [key for key in dict.fromkeys(request.query_params.keys()) if key not in allowed]

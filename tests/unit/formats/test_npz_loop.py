@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from seedbed.core.plan import build_plan
-from seedbed.web.encoding import encode_weights
+from seedbed.web.weights_response import encode_weights
 
 DOC = (Path(__file__).resolve().parents[3] / "docs" / "formats.md").read_text(encoding="utf-8")
 
