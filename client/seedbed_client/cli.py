@@ -29,6 +29,7 @@ import argparse
 import json
 import mmap
 import shutil
+import signal
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -525,4 +526,15 @@ def main(argv: Sequence[str] | None = None) -> int:
         args = parser.parse_args(argv)
     except SystemExit as exc:  # argparse exits 2 on bad usage, 0 for --help
         return int(exc.code) if isinstance(exc.code, int) else EXIT_USAGE
+    restore_default_sigpipe()
     return run(args)
+
+
+def restore_default_sigpipe() -> None:
+    """Let a closed pipe end the process quietly, as it does for other command-line tools.
+
+    Python ignores SIGPIPE and raises BrokenPipeError instead, so `seedbed show ... | head`
+    printed a traceback and exited 1. Not for a server: a client hanging up must not kill it.
+    """
+    if hasattr(signal, "SIGPIPE"):
+        signal.signal(signal.SIGPIPE, signal.SIG_DFL)

@@ -201,6 +201,9 @@ def _place(delivery: Delivery, target: Path) -> int:
     """Move the verified spool file (written beside `target`) into place atomically."""
     if delivery.path is None:  # save() always spools; guard the invariant all the same
         raise RuntimeError("save() needs a spooled delivery")
+    # The spool file was created private (mkstemp: 0600); the saved file gets the mode any other
+    # program's new file gets, 0666 less the process umask, before it appears under its name.
+    os.chmod(delivery.path, 0o666 & ~current_umask())
     os.replace(delivery.path, target)
     return target.stat().st_size
 
@@ -213,6 +216,13 @@ def _arrays_of(delivery: Delivery) -> dict[str, np.ndarray]:
         return mapped_arrays(delivery.inspection, delivery.handle)
     finally:
         delivery.handle.close()  # each array's map keeps its own reference to the file
+
+
+def current_umask() -> int:
+    """The process umask. Reading it means setting it, so it is put back at once."""
+    mask = os.umask(0o077)
+    os.umask(mask)
+    return mask
 
 
 class _Setup:

@@ -142,7 +142,7 @@ def _plan(args: argparse.Namespace) -> int:
 
 
 def _settings(args: argparse.Namespace) -> int:
-    from seedbed.settings import Settings, SettingsError, is_set, settings_table, shown
+    from seedbed.settings import Settings, SettingsError, settings_table, shown
 
     try:
         current = Settings.from_env()
@@ -153,8 +153,7 @@ def _settings(args: argparse.Namespace) -> int:
         obj: object = current
         for part in name.split("."):
             obj = getattr(obj, part)
-        origin = "environment" if is_set(var) else "default"
-        print(f"{var}={shown(obj)}  ({origin}; default {default})")
+        print(f"{var}={shown(obj)}  ({_origin(var, default)})")
     # The registry interprets its own variables (seedbed.registry.config).
     from seedbed.registry.config import RegistryConfigError, config_from_env
 
@@ -172,13 +171,47 @@ def _settings(args: argparse.Namespace) -> int:
     state = kernel.status() if current.generator_kernel else kernel.set_enabled(False)
     print(f"generator: {state.describe()}; {current.threads_per_request()} thread(s) per "
           "request (SEEDBED_GENERATOR_KERNEL, SEEDBED_GENERATION_THREADS)")
+    _client_settings()
     return 0
+
+
+def _origin(var: str, default: str) -> str:
+    """Where a value comes from: the default, or the environment (and what the default is)."""
+    from seedbed.settings import is_set
+
+    return f"environment; default {default}" if is_set(var) else "default"
+
+
+def _client_settings() -> None:
+    """The variables the client commands (fetch, verify, show ...) read, with their sources."""
+    from seedbed.settings import client_environment
+    from seedbed_client.cache import (
+        DEFAULT_MAX_BYTES,
+        ENV_DIR,
+        ENV_MAX_BYTES,
+        default_cache_dir,
+        default_max_bytes,
+    )
+    from seedbed_client.client import DEFAULT_URL, ENV_URL
+
+    print("client commands:")
+    url = client_environment(ENV_URL) or DEFAULT_URL
+    print(f"  {ENV_URL}={url}  ({_origin(ENV_URL, DEFAULT_URL)})")
+    print(f"  {ENV_DIR}={default_cache_dir()}  "
+          f"({_origin(ENV_DIR, 'the per-user cache directory + seedbed')})")
+    try:
+        limit: object = default_max_bytes()
+    except ValueError as exc:
+        limit = f"(invalid: {exc})"
+    print(f"  {ENV_MAX_BYTES}={limit}  ({_origin(ENV_MAX_BYTES, str(DEFAULT_MAX_BYTES))})")
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     handlers = {"serve": _serve, "plan": _plan, "settings": _settings, "keys": keys_cli.run}
     handler = handlers.get(args.command)
+    if args.command != "serve":
+        client_cli.restore_default_sigpipe()
     if handler is None:
         return client_cli.run(args)
     return handler(args)

@@ -100,6 +100,9 @@ class Settings:
     chunk_bytes: int = 4 << 20
     # Largest weights file POST /v1/audit accepts (read in a spool, never all in memory).
     max_audit_bytes: int = 256 << 20
+    # Audits one worker runs at once: each holds its upload's largest tensor in memory, so the
+    # cap bounds memory; more answer 503 with Retry-After instead of queueing.
+    max_concurrent_audits: int = 4
     # Largest ONNX model the /v1/onnx/* routes read; it is parsed whole, so this bounds memory.
     # Models whose weights live in external data files are small: only shapes are needed.
     max_onnx_bytes: int = 128 << 20
@@ -169,6 +172,12 @@ def is_set(var: str, environ: Mapping[str, str] | None = None) -> bool:
     return var in _environment(environ)
 
 
+def client_environment(var: str, environ: Mapping[str, str] | None = None) -> str | None:
+    """A variable the client package reads for itself (SEEDBED_URL ...), for the `settings`
+    command to show beside the service's own."""
+    return _environment(environ).get(var)
+
+
 def pass_to_workers(values: Mapping[str, object]) -> None:
     """Put command-line overrides into the environment as SEEDBED_<NAME> variables: worker
     processes build their own app from the environment, so that is how the values reach them."""
@@ -190,6 +199,7 @@ _PARSERS: dict[str, Callable[[str, str], Any]] = {
     "plan_cache_bytes": _int_in(0, 16 * _GIB),
     "chunk_bytes": _int_in(4096, _GIB),
     "max_audit_bytes": _int_in(1024, 64 * _GIB),
+    "max_concurrent_audits": _int_in(1, 1024),
     # protobuf cannot parse a message of 2 GiB or more
     "max_onnx_bytes": _int_in(1024, 2 * _GIB - 1),
 }

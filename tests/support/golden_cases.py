@@ -18,7 +18,9 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "service"))
 from seedbed.core.plan import build_plan
 from seedbed.core.render import iter_tensor_bytes
 
-# An invented small vision-and-sequence model, exercising every kind and sampler.
+# An invented small vision-and-sequence model, exercising every kind and sampler. Its layers are
+# a collection (each kind once), not one chain, so the requests say widths "unchecked"; a
+# tensor's bytes depend only on the seed, its name and its own spec, so that does not move them.
 _LAYERS: list[dict[str, Any]] = [
     {"name": "patch", "kind": "conv", "channels_in": 3, "channels_out": 16, "kernel": [4, 4],
      "activation": "gelu"},
@@ -43,7 +45,8 @@ _LAYERS: list[dict[str, Any]] = [
 ]
 
 CASES: dict[str, dict[str, Any]] = {
-    f"{dtype}-{layout}": {"seed": seed, "dtype": dtype, "layout": layout, "layers": _LAYERS}
+    f"{dtype}-{layout}": {"seed": seed, "dtype": dtype, "layout": layout, "layers": _LAYERS,
+                          "widths": "unchecked"}
     for dtype, layout, seed in [
         ("float32", "out_in", 20261201),
         ("float64", "in_out", "kestrel-ridge"),

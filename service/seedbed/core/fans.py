@@ -126,6 +126,11 @@ def _product(values: tuple[int, ...]) -> int:
     return n
 
 
+def _count(n: int | Fraction, noun: str) -> str:
+    """"1 output", "3 outputs", "1.5 outputs": a number with its noun, in the right number."""
+    return f"{_show(n) if isinstance(n, Fraction) else n} {noun}{'' if n == 1 else 's'}"
+
+
 def _choice(name: str, value: Any, allowed: Sequence[str]) -> str:
     if not isinstance(value, str) or value not in allowed:
         raise ValueError(f"{name} must be one of: {', '.join(allowed)} (got {value!r})")
@@ -136,8 +141,8 @@ def dense_fans(n_in: int, n_out: int) -> Fans:
     n_in = _positive_int("n_in", n_in)
     n_out = _positive_int("n_out", n_out)
     return Fans(Fraction(n_in), Fraction(n_out),
-                f"dense {n_in} -> {n_out}: each output sums {n_in} inputs (fan_in), "
-                f"each input feeds {n_out} outputs (fan_out)")
+                f"dense {n_in} -> {n_out}: each output sums {_count(n_in, 'input')} (fan_in), "
+                f"each input feeds {_count(n_out, 'output')} (fan_out)")
 
 
 def conv_fans(
@@ -169,16 +174,17 @@ def conv_fans(
     if not transposed:
         fan_in = per_group_in * taps
         fan_out = per_group_out * taps / step
-        text = (f"each output sums {c_in}/{g} channels x {taps} taps = {_show(fan_in)} inputs; "
+        text = (f"each output sums {c_in}/{g} channels x {taps} taps = "
+                f"{_count(fan_in, 'input')}; "
                 f"each input reaches {c_out}/{g} channels x {taps}/{step} positions = "
-                f"{_show(fan_out)} outputs")
+                f"{_count(fan_out, 'output')}")
     else:
         # the adjoint of a conv with the same kernel and stride: in and out swap roles
         fan_in = per_group_in * taps / step
         fan_out = per_group_out * taps
         text = (f"each output gathers {c_in}/{g} channels x {taps}/{step} positions = "
-                f"{_show(fan_in)} inputs; each input spreads over {c_out}/{g} channels x "
-                f"{taps} taps = {_show(fan_out)} outputs")
+                f"{_count(fan_in, 'input')}; each input spreads over {c_out}/{g} channels x "
+                f"{taps} taps = {_count(fan_out, 'output')}")
     if fan_in.denominator != 1 or fan_out.denominator != 1:
         text += " (average over positions: the stride does not divide the kernel)"
     return Fans(fan_in, fan_out, head + text)
@@ -189,7 +195,7 @@ def embedding_fans(vocab: int, dim: int) -> Fans:
     dim = _positive_int("dim", dim)
     return Fans(Fraction(1), Fraction(dim),
                 f"embedding {vocab} x {dim}: a lookup selects one row, so each output is "
-                f"exactly 1 weight (fan_in 1); each row feeds {dim} outputs (fan_out)")
+                f"exactly 1 weight (fan_in 1); each row feeds {_count(dim, 'output')} (fan_out)")
 
 
 def recurrent_fans(n_in: int, hidden: int, cell: str, part: str) -> Fans:

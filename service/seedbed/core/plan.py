@@ -11,6 +11,7 @@ from typing import Any
 
 from seedbed.core.activations import describe_activation
 from seedbed.core.choice import Choice
+from seedbed.core.meanfield import critical_sigma_w2, mean_field
 from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.policies import apply_policy
 from seedbed.core.recommend import override_weight, recommend_weight, vector_choice
@@ -41,7 +42,8 @@ def _identity_problem(index: int, layer: Any, slot: TensorSlot) -> Problem | Non
     what = ("channels_out/groups equal to channels_in/groups" if layer.kind == "conv"
             else "a square weight (per gate block)")
     return Problem(f"layers[{index}].init.method", "invalid_value",
-                   f"identity needs {what}: {slot.tensor} has {rows} outputs and {cols} inputs "
+                   f"identity needs {what}: {slot.tensor} has {rows} output"
+                   f"{'' if rows == 1 else 's'} and {cols} input{'' if cols == 1 else 's'} "
                    "per block; use orthogonal for rectangular weights")
 
 
@@ -120,6 +122,27 @@ def _weight_choice(index: int, layer: Any, slot: TensorSlot,
     return override_weight(layer, slot, layer.init, recommended)
 
 
+def _edge_of_chaos(activation: str, depth: int, choice: Choice) -> str:
+    """For a deep tanh-like stack: where its first layer's scale sits in the mean-field phase
+    diagram, and the critical (sigma_w, sigma_b) pair with the depth scale it gives (Poole et
+    al. 2016; Schoenholz et al. 2017). Infinite-width figures; they never touch the values."""
+    if choice.std is None or choice.fan_in is None:
+        return ""
+    sw2 = float(choice.fan_in) * choice.std * choice.std
+    here = mean_field(activation, sw2, 0.0)
+    critical = critical_sigma_w2(activation, 0.0)
+    if critical is None or here.chi_1 is None:
+        return ""
+    xi = "unbounded" if here.xi_c is None else f"about {here.xi_c:.3g}"
+    return (f" Mean field: this scale (sigma_w^2 = {sw2:.4g}, sigma_b = 0) is {here.phase} "
+            f"with chi_1 = {here.chi_1:.3g}, so inputs decorrelate over {xi} layers (xi_c) "
+            f"against the stack's {depth}; the critical pair at sigma_b = 0 is sigma_w = "
+            f"{critical ** 0.5:.4g} (the override {{\"method\": \"lecun\", \"gain\": "
+            f"{critical ** 0.5:.4g}}} on these layers, with zero biases), where xi_c is unbounded "
+            "and correlations survive depth. Compare both with /v1/diagnose; these are "
+            "infinite-width estimates.")
+
+
 def _stack_warnings(request: NetworkRequest,
                     weights: list[tuple[Any, Choice]]) -> list[str]:
     """Request-wide warnings about what depth does to the chosen scales.
@@ -131,6 +154,7 @@ def _stack_warnings(request: NetworkRequest,
     warnings: list[str] = []
     run: list[str] = []
     run_act = ""
+    choices = {layer.name: choice for layer, choice in weights}
 
     def close_run() -> None:
         limit = _SIGMOID_STACK if run_act == "sigmoid" else _TANH_STACK
@@ -144,7 +168,9 @@ def _stack_warnings(request: NetworkRequest,
                           "and the shrinkage compounds with depth")
             warnings.append(f"{n} consecutive {run_act} layers ({run[0]} .. {run[-1]}): {detail}. "
                             "Expect vanishing gradients; a rectifier family activation, "
-                            "normalisation layers or residual connections avoid this.")
+                            "normalisation layers or residual connections avoid this."
+                            + (_edge_of_chaos(run_act, n, choices[run[0]])
+                               if run_act == "tanh" else ""))
 
     for layer, _ in weights:
         act = layer.activation or "linear"

@@ -33,6 +33,7 @@ from numpy.lib import format as npy_format
 from seedbed.core.audit.limits import AuditLimits
 from seedbed.core.audit.refusals import UploadRefused
 from seedbed.core.audit.stored import StoredTensor, Upload
+from seedbed.core.request.limits import raised_by
 from seedbed.formats.npz_out import BF16_STORED_AS, MANIFEST_MEMBER, STORED_AS_KEY
 
 _EOCD = b"PK\x05\x06"
@@ -191,7 +192,8 @@ def _check_member_meta(info: zipfile.ZipInfo, size: int, limits: AuditLimits) ->
     if info.file_size > limits.max_upload_bytes:
         raise UploadRefused("too_large",
                             f"member {name!r} declares {info.file_size} uncompressed bytes; at "
-                            f"most {limits.max_upload_bytes} are unpacked per upload")
+                            f"most {limits.max_upload_bytes} are unpacked per upload"
+                            f"{raised_by('max_audit_bytes')}")
     if info.header_offset + info.compress_size > size:
         raise UploadRefused("truncated_file",
                             f"member {name!r} needs {info.compress_size} bytes from offset "
@@ -234,7 +236,8 @@ def read_npz(fp: IO[bytes], size: int, limits: AuditLimits,
     if total > limits.max_upload_bytes:
         raise UploadRefused("too_large",
                             f"the members declare {total} uncompressed bytes in total; at most "
-                            f"{limits.max_upload_bytes} are unpacked per upload")
+                            f"{limits.max_upload_bytes} are unpacked per upload"
+                            f"{raised_by('max_audit_bytes')}")
 
     notes: list[str] = []
     hinted = set(bfloat16_names)
@@ -246,15 +249,17 @@ def read_npz(fp: IO[bytes], size: int, limits: AuditLimits,
                 notes.append(note)
 
     tensors: list[StoredTensor] = []
+    skipped: list[str] = []
     for info in infos:
         name = info.filename
         if name == MANIFEST_MEMBER or info.is_dir():
             continue
         if not name.endswith(".npy"):
             notes.append(f"member {name!r} is not an .npy array and was not read")
+            skipped.append(name)
             continue
         tensors.append(_member_tensor(zf, info, limits, hinted))
-    return Upload("npz", tuple(tensors), tuple(notes))
+    return Upload("npz", tuple(tensors), tuple(notes), tuple(skipped))
 
 
 def _member_tensor(zf: zipfile.ZipFile, info: zipfile.ZipInfo, limits: AuditLimits,

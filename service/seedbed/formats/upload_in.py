@@ -10,6 +10,7 @@ from seedbed.core.audit.refusals import UploadRefused
 from seedbed.core.audit.report import audit_stored
 from seedbed.core.audit.stored import Upload
 from seedbed.core.plan_types import Plan
+from seedbed.core.request.limits import raised_by
 from seedbed.formats.npz_in import read_npz
 from seedbed.formats.safetensors_in import looks_like_safetensors, read_safetensors
 
@@ -26,7 +27,7 @@ def open_upload(fp: IO[bytes], size: int, limits: AuditLimits,
     if size > limits.max_upload_bytes:
         raise UploadRefused("too_large",
                             f"the file is {size} bytes; at most {limits.max_upload_bytes} are "
-                            "audited")
+                            f"audited{raised_by('max_audit_bytes')}")
     fp.seek(0)
     head = fp.read(16)
     if head.startswith(_ZIP_STARTS):

@@ -13,6 +13,7 @@ from seedbed.core.plan_types import Plan
 from seedbed.core.render import iter_tensor_bytes
 from seedbed.core.request.limits import Limits
 from seedbed.core.request.problems import BODY, Problem, RequestRejected, describe_input
+from seedbed.core.request.suggest import did_you_mean
 from seedbed.registry.records import canonical_text
 
 NAME_PATTERN_TEXT = r"[a-z0-9][a-z0-9._-]{0,99}"
@@ -69,7 +70,8 @@ def validate_body(body: object, limits: Limits) -> tuple[str, str, Plan]:
         )])
     problems: list[Problem] = [
         Problem(key, "unknown_field",
-                f"unknown field {key!r}; allowed fields: {', '.join(BODY_FIELDS)}")
+                f"unknown field {key!r}; allowed fields: {', '.join(BODY_FIELDS)}"
+                f"{did_you_mean(key, BODY_FIELDS)}")
         for key in body if key not in BODY_FIELDS
     ]
     name = body.get("name")

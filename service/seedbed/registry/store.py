@@ -78,10 +78,12 @@ class RecipeVersion:
         return value
 
 
-def _next_version(conn: Connection, name: str) -> int:
+def _next_version(conn: Connection, name: str, published: datetime) -> int:
+    # Version 1's publication time is the name's first publication time: one clock reading, so
+    # first_published_at can never precede (or differ from) version 1's published_at.
     dialect: Any = postgresql if is_postgres(conn) else sqlite
     stmt = dialect.insert(recipe_heads).values(
-        name=name, latest_version=1, first_published_at=now_utc()
+        name=name, latest_version=1, first_published_at=published
     )
     stmt = stmt.on_conflict_do_update(
         index_elements=[recipe_heads.c.name],
@@ -147,12 +149,12 @@ def _publish_in_transaction(engine: Engine, prepared: PreparedRecipe, token: str
                             ) -> VersionSummary:
     with writing(engine) as conn:
         publisher = identify(conn, token, lock=True)
-        version = _next_version(conn, prepared.name)
+        published = now_utc()
+        version = _next_version(conn, prepared.name, published)
         if reuse:
             existing = _newest_if_same(conn, prepared, version)
             if existing is not None:
                 raise _SameAsNewest(existing)
-        published = now_utc()
         digest = content_digest(
             name=prepared.name, version=version, description=prepared.description,
             algorithm=prepared.algorithm, publisher=publisher,

@@ -6,7 +6,7 @@ from collections.abc import AsyncIterator, Mapping
 from contextlib import asynccontextmanager
 
 import anyio.to_thread
-from fastapi import FastAPI
+from fastapi import Depends, FastAPI
 from fastapi.routing import APIRoute
 from starlette.routing import Route
 
@@ -18,6 +18,7 @@ from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
 from seedbed.web.openapi_doc import install_openapi
 from seedbed.web.plan_cache import PlanCache
+from seedbed.web.query_check import refuse_unknown_query
 from seedbed.web.readiness import BAKED_ALGORITHM, self_check
 from seedbed.web.routes import audit, diagnose, onnx_models, ops, plan, recipes, sample, weights
 from seedbed.web.workbench import WORKBENCH_ROUTERS
@@ -75,6 +76,8 @@ def create_app(
         description=DESCRIPTION,
         lifespan=lifespan,
         redoc_url=None,
+        # Every route refuses query parameters it does not define (a typo is not a default).
+        dependencies=[Depends(refuse_unknown_query)],
         docs_url=None,  # served on local assets by the workbench's routers
         openapi_tags=[
             {"name": "weights", "description": "Plans, weights and the catalog."},

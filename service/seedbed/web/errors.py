@@ -10,6 +10,7 @@ read them directly; `problems` lists everything wrong with the request at once.
 from __future__ import annotations
 
 import logging
+import re
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -20,7 +21,8 @@ from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from seedbed.core.request.problems import RequestRejected
+from seedbed.core.request.problems import RequestRejected, describe_input
+from seedbed.core.request.suggest import did_you_mean
 
 log = logging.getLogger("seedbed.errors")
 
@@ -124,8 +126,35 @@ def _validation_faults(exc: RequestValidationError) -> list[Fault]:
             "literal_error": "not_allowed",
             "enum": "not_allowed",
         }.get(kind, "invalid_value")
-        faults.append(Fault(where, code, f"{where}: {err.get('msg', 'invalid value')}"))
+        faults.append(Fault(where, code, _in_our_words(where, kind, err)))
     return faults or [Fault("(request)", "invalid_value", "the request is not valid")]
+
+
+# The choices in a validation error's `expected` context ("'a', 'b' or 'c'").
+_QUOTED = re.compile(r"'([^']*)'")
+
+
+def _in_our_words(where: str, kind: str, err: Mapping[str, Any]) -> str:
+    """A query, path or header problem told the way the core tells body problems: what was
+    sent, what is allowed, and the likely intended value; never the library's wording."""
+    ctx = err.get("ctx") or {}
+    value = err.get("input")
+    got = describe_input(value)
+    if kind in ("literal_error", "enum"):
+        allowed = _QUOTED.findall(str(ctx.get("expected", "")))
+        return (f"{where}: got {got}; allowed values: {', '.join(allowed)}"
+                f"{did_you_mean(value, allowed)}")
+    if kind == "missing":
+        return f"{where} is required"
+    for key, phrase in (("ge", "at least"), ("gt", "greater than"), ("le", "at most"),
+                        ("lt", "less than")):
+        if key in ctx:
+            return f"{where}: got {got}; allowed: a number {phrase} {ctx[key]}"
+    if kind in ("int_parsing", "int_type"):
+        return f"{where}: got {got}; allowed: an integer"
+    if kind in ("string_too_long", "too_long") and "max_length" in ctx:
+        return f"{where}: got {got}; allowed: at most {ctx['max_length']} characters"
+    return f"{where}: got {got}; see the parameter's description in openapi/openapi.json"
 
 
 _STATUS_CODES = {

@@ -315,6 +315,30 @@ class DiagnosedLayer(BaseModel):
     locked_twin_fraction: float | None
 
 
+class DirectionGrade(_Closed):
+    grade: Literal["steady", "drifting", "poor"] | None = Field(
+        description="null when the network has fewer than two main-path layers.")
+    end_to_end_ratio: float | None
+    per_layer_log_ratio: float | None
+    steady_per_layer: float | None
+    drifting_per_layer: float | None
+
+
+class RunGrade(_Closed):
+    forward: DirectionGrade
+    backward: DirectionGrade
+    depth: int = Field(ge=0)
+    score: float | None = Field(description="|ln forward ratio| + |ln backward ratio|.")
+    phase: str | None = Field(description="Mean-field phase of the largest group of hidden "
+                                          "layers: ordered, critical, chaotic or unbounded.")
+    chi_1: float | None
+    layers_covered: int = Field(ge=0)
+    phases_present: list[str]
+    rank: int = Field(ge=1)
+    same_as: str | None = Field(description="The earlier run this one is identical to.")
+    summary: str
+
+
 class DiagnosisRun(BaseModel):
     label: str = Field(description="recommended for the request as given, else the "
                                    "alternative's label.")
@@ -325,6 +349,7 @@ class DiagnosisRun(BaseModel):
     failed_ratio: float | None
     reason: str
     verdict_notes: list[str]
+    grade: RunGrade
     mean_field: list[MeanFieldGroup]
     mean_field_notes: list[str]
     layers: list[DiagnosedLayer]
@@ -336,6 +361,8 @@ class DiagnosisDocument(BaseModel):
     finite_width: FiniteWidth
     definitions: dict[str, Any] = Field(description="What each figure means, in words.")
     runs: list[DiagnosisRun] = Field(min_length=1)
+    ranking: list[str] = Field(description="Labels of the distinct runs, best first (runs "
+                                           "identical to an earlier one are left out).")
 
 
 # --- recipes ----------------------------------------------------------------------------------

@@ -138,7 +138,7 @@ def test_transposed_conv_warns_about_fan_direction() -> None:
 
 def test_identity_on_rectangular_weight_is_refused_with_the_field() -> None:
     with pytest.raises(RequestRejected) as err:
-        plan_of(dense("a", 3, 3), dense("b", 4, 5, init={"method": "identity"}))
+        plan_of(dense("a", 3, 3), dense("b", 3, 5, init={"method": "identity"}))
     (problem,) = err.value.problems
     assert problem.field == "layers[1].init.method"
     assert "orthogonal" in problem.message

@@ -220,7 +220,7 @@ def test_embedding_and_norm_do_not_change_with_layout() -> None:
 
 
 def test_request_slots_in_layer_order_independent_of_neighbours() -> None:
-    body = {"seed": 3, "layers": [EMBED, ATTN, NORM, DENSE]}
+    body = {"seed": 3, "layers": [EMBED, ATTN, NORM, DENSE], "widths": "unchecked"}
     r = parse(body).request
     slots = request_slots(r)
     assert [s.layer for s in slots] == ["tok"] + ["att"] * 8 + ["ln", "ln", "fc", "fc"]
@@ -242,7 +242,8 @@ def test_norm_and_dense_names_can_coexist_when_tensors_differ() -> None:
     # Norm "x" owns the tensor "x.scale"; a dense layer named "x.scale" owns "x.scale.weight"
     # and "x.scale.bias". No tensor name is shared, so this is fine: the check compares whole
     # tensor names, not prefixes.
-    body = {"seed": 1, "layers": [{**NORM, "name": "x"}, {**DENSE, "name": "x.scale"}]}
+    body = {"seed": 1, "layers": [{**NORM, "name": "x"}, {**DENSE, "name": "x.scale"}],
+            "widths": "unchecked"}
     parse(body)
 
 

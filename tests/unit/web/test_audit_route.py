@@ -409,9 +409,16 @@ def test_shifted_integer_and_unread_tensors(client: TestClient) -> None:
     header = {"f8": {"dtype": "F8_E4M3", "shape": [4], "data_offsets": [0, 4]}}
     text = json.dumps(header).encode()
     raw_f8 = len(text).to_bytes(8, "little") + text + bytes(4)
+    # Nothing in that file is read, so there is no verdict to give.
+    alone = send_raw(client, raw_f8)
+    assert alone.status_code == 422 and alone.json()["error"]["code"] == "no_tensors_read"
+    assert "'f8'" in alone.json()["error"]["message"]
+    header["w"] = {"dtype": "F32", "shape": [2], "data_offsets": [4, 12]}
+    text = json.dumps(header).encode()
+    raw_f8 = len(text).to_bytes(8, "little") + text + bytes(4) + np.ones(2, "<f4").tobytes()
     report = send_raw(client, raw_f8).json()
-    assert [(f["code"], f["severity"]) for f in report["findings"]] == [
-        ("not_analysed", "warning")]
+    assert [(f["code"], f["severity"]) for f in report["findings"]
+            if f["tensor"] == "f8"] == [("not_analysed", "warning")]
     data = npz_bytes(shifted=rng.uniform(0, 1, (32, 32)).astype(np.float32),
                      steps=np.arange(5, dtype=np.int64))
     report = send_raw(client, data).json()

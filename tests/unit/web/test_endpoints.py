@@ -45,6 +45,7 @@ GREENHOUSE: dict[str, Any] = {
         {"name": "head", "kind": "dense", "n_in": 12, "n_out": 3, "activation": "linear",
          "role": "output"},
     ],
+    "widths": "unchecked",  # a few of every kind, not one chain
 }
 
 

@@ -100,8 +100,8 @@ CASES = [
         **HIVE, "layers": [{**HIVE["layers"][0], "name": f"l{i}"} for i in range(7)]}),
     Bad("tensor-too-large", 413, "too_large", "layers[0]", body=layer(n_in=200, n_out=100)),
     Bad("request-too-large", 413, "too_large", "layers", body={
-        **HIVE, "layers": [{**HIVE["layers"][0], "name": f"l{i}", "n_in": 90, "n_out": 100}
-                           for i in range(4)]}),
+        **HIVE, "layers": [{**HIVE["layers"][0], "name": f"l{i}", "n_in": 100 if i else 90,
+                            "n_out": 100} for i in range(4)]}),
     # --- query parameters ---
     Bad("bad-format", 422, "not_allowed", "format", body=HIVE, query="?format=xml"),
     Bad("rows-without-tensor", 422, "needs_tensor", "rows", body=HIVE, query="?rows=0:2"),

@@ -9,9 +9,12 @@ from __future__ import annotations
 #   truncated_file     the file ends before the data it declares
 #   unsupported_file   readable, but a kind we do not read (encrypted zip, bzip2 member ...)
 #   empty_file         no bytes at all
+#   no_tensors_read    a readable container in which no member is a tensor we read (a
+#                      framework's pickle-based zip, an empty safetensors file): an audit that
+#                      read nothing has no verdict
 REFUSAL_CODES = frozenset(
     {"pickled_data", "too_large", "corrupt_file", "truncated_file", "unsupported_file",
-     "empty_file"}
+     "empty_file", "no_tensors_read"}
 )
 
 

@@ -22,6 +22,7 @@ from seedbed.core.audit.matching import (
     plan_coverage,
     shape_finding,
 )
+from seedbed.core.audit.nothing_read import require_something_read
 from seedbed.core.audit.rank import numerical_rank, work_of
 from seedbed.core.audit.stats import ValueStats, value_stats
 from seedbed.core.audit.stored import FLOAT_ROUNDOFF, StoredTensor, Upload
@@ -269,8 +270,10 @@ def _output_layers(plan: Plan) -> set[str]:
 def audit_stored(upload: Upload, size: int, limits: AuditLimits | None = None,
                  plan: Plan | None = None) -> dict[str, Any]:
     """Audit a file already read by seedbed.formats.upload_in (`size`: its bytes); returns the
-    JSON-ready report. Tensor values are read here, one tensor at a time."""
+    JSON-ready report. Tensor values are read here, one tensor at a time. Raises
+    UploadRefused (no_tensors_read) when no tensor of the file would be read."""
     limits = limits if limits is not None else AuditLimits()
+    require_something_read(upload)
     planned = {t.tensor: t for t in plan.tensors} if plan else {}
     budget = _Budget(limits.rank_budget)
     output_layers = frozenset(_output_layers(plan)) if plan else frozenset()

@@ -57,3 +57,4 @@ class Upload:
     container: str  # "npz" | "safetensors"
     tensors: tuple[StoredTensor, ...]
     notes: tuple[str, ...] = ()
+    skipped: tuple[str, ...] = ()  # names of members that are not tensors, in file order

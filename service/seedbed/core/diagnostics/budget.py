@@ -22,12 +22,17 @@ from dataclasses import dataclass, fields
 
 from seedbed.core.diagnostics.network import Network, Step
 from seedbed.core.plan_types import Plan
+from seedbed.core.request.limits import SETTING_PREFIX, raised_by
 from seedbed.core.request.problems import Problem
 
 # Elementwise cost of an activation (forward and derivative) in multiply-add equivalents.
 ACTIVATION_COST: dict[str, int] = {"linear": 4, "relu": 60, "gelu": 3000}
 DEFAULT_ACTIVATION_COST = 200
 RANDOM_SAMPLERS = frozenset({"uniform", "normal", "truncated_normal", "orthogonal"})
+
+
+# The service reads these limits from SEEDBED_DIAGNOSE_<NAME> (seedbed.settings).
+DIAGNOSE_SETTING_PREFIX = SETTING_PREFIX + "DIAGNOSE_"
 
 
 @dataclass(frozen=True)
@@ -135,19 +140,22 @@ def cost_problems(costs: list[Cost], batch: int, limits: DiagnosticLimits) -> li
             f"these diagnostics would take about {work:.3g} multiply-adds ({runs} run(s) at "
             f"batch {batch}); the limit is {limits.max_multiply_adds} "
             f"({limits.max_multiply_adds:.3g}); try a batch of at most about {fit}, fewer "
-            "alternatives or a smaller network"))
+            "alternatives or a smaller network"
+            f"{raised_by('max_multiply_adds', DIAGNOSE_SETTING_PREFIX)}"))
     if generated > limits.max_generated_values:
         problems.append(Problem(
             "alternatives", "too_large",
             f"these diagnostics would generate {generated} random weight values ({runs} run(s) "
             f"of the whole network); the limit is {limits.max_generated_values}; use fewer "
-            "alternatives or a smaller network"))
+            "alternatives or a smaller network"
+            f"{raised_by('max_generated_values', DIAGNOSE_SETTING_PREFIX)}"))
     if memory > limits.max_memory_bytes:
         problems.append(Problem(
             "batch", "too_large",
             f"one run would need about {memory} bytes of memory (weights and the values kept "
             f"for the backward pass at batch {batch}); the limit is {limits.max_memory_bytes} "
-            "bytes; use a smaller batch or a smaller network"))
+            "bytes; use a smaller batch or a smaller network"
+            f"{raised_by('max_memory_bytes', DIAGNOSE_SETTING_PREFIX)}"))
     return problems
 
 

@@ -135,7 +135,19 @@ def build_network(parsed: ParsedRequest) -> Network:
     """The steps of a parsed request, or RequestRejected naming every unsupported layer."""
     layers = list(parsed.request.layers)
     problems: list[Problem] = []
+    if parsed.request.widths == "unchecked":
+        problems.append(Problem(
+            "widths", "not_allowed",
+            "widths \"unchecked\" says the layers are a collection, not one network; "
+            "diagnostics run a signal through the layers in order, so they need layers that "
+            "chain: omit widths"))
     for i, lay in enumerate(layers):
+        if lay.reads is not None:
+            problems.append(Problem(
+                f"layers[{i}].reads", "not_allowed",
+                f"layer {lay.name!r} reads {list(lay.reads) or 'an input of the network'} "
+                "rather than the layer before it; diagnostics simulate one chain of layers. "
+                "Diagnose each path (the trunk with one head) as its own request"))
         if lay.kind == "recurrent":
             problems.append(Problem(
                 f"layers[{i}].kind", "not_allowed",

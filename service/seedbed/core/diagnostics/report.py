@@ -16,9 +16,23 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
 
-from seedbed.core.diagnostics.budget import DiagnosticLimits, cost_problems, run_cost
+from seedbed.core.diagnostics.budget import (
+    DIAGNOSE_SETTING_PREFIX,
+    DiagnosticLimits,
+    cost_problems,
+    run_cost,
+)
 from seedbed.core.diagnostics.diagnose_request import RECOMMENDED, AlternativeSpec, parse_body
 from seedbed.core.diagnostics.engine import INPUT_SEED, LayerRecord, Simulation, simulate
+from seedbed.core.diagnostics.grading import (
+    DRIFTING_FACTOR,
+    STEADY_FACTOR,
+    directions,
+    phase_of,
+    plan_signature,
+    rank,
+    score,
+)
 from seedbed.core.diagnostics.network import Network, build_network
 from seedbed.core.diagnostics.unit_stats import SATURATION_RULES
 from seedbed.core.diagnostics.verdict import HIGH, LOW, SYMMETRIC_SHARE, Verdict, judge
@@ -28,7 +42,7 @@ from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.references import short_cite
 from seedbed.core.request.blocks import relocate_problems
 from seedbed.core.request.checks import size_problems
-from seedbed.core.request.limits import Limits
+from seedbed.core.request.limits import Limits, raised_by
 from seedbed.core.request.network import NetworkRequest
 from seedbed.core.request.parse import parse
 from seedbed.core.request.parsed import ParsedRequest
@@ -182,11 +196,13 @@ def _limit_problems(batch: int, alternatives: int, dl: DiagnosticLimits) -> list
     problems = []
     if batch > dl.max_batch:
         problems.append(Problem("batch", "too_large",
-                                f"batch {batch} is over the limit of {dl.max_batch} samples"))
+                                f"batch {batch} is over the limit of {dl.max_batch} samples"
+                                f"{raised_by('max_batch', DIAGNOSE_SETTING_PREFIX)}"))
     if alternatives > dl.max_alternatives:
         problems.append(Problem("alternatives", "too_large",
                                 f"{alternatives} alternatives given; the limit is "
-                                f"{dl.max_alternatives}"))
+                                f"{dl.max_alternatives}"
+                                f"{raised_by('max_alternatives', DIAGNOSE_SETTING_PREFIX)}"))
     return problems
 
 
@@ -264,13 +280,57 @@ def _layer_entry(r: LayerRecord, act_ref: float | None, grad_ref: float | None
     return entry
 
 
-def _run_document(run: Run) -> dict[str, Any]:
+def _grades(runs: list[Run]) -> dict[str, dict[str, Any]]:
+    """Per run label: forward and backward grades, the mean-field phase, rank and same_as."""
+    out: dict[str, dict[str, Any]] = {}
+    entries = []
+    for run in runs:
+        forward, backward, depth = directions(run.simulation.records)
+        value = score(forward, backward)
+        entries.append((run.label, run.verdict.verdict == "stable", value,
+                        plan_signature(run.plan)))
+        out[run.label] = {
+            "forward": forward.as_dict(depth),
+            "backward": backward.as_dict(depth),
+            "depth": depth,
+            "score": value if math.isfinite(value) else None,
+            **phase_of(run.mean_field),
+        }
+    for label, (position, same_as) in rank(entries).items():
+        out[label]["rank"] = position
+        out[label]["same_as"] = same_as
+    return out
+
+
+def _summary(run: Run, grade: dict[str, Any]) -> str:
+    """One sentence a reader can choose by."""
+    if grade["same_as"] is not None:
+        return (f"{run.label!r} draws every tensor exactly as {grade['same_as']!r} does (same "
+                "values): not a separate choice.")
+    chi = grade["chi_1"]
+    phase = (f"; mean field: {grade['phase']} (chi_1 = {chi:.3g})"
+             if grade["phase"] is not None and chi is not None else "")
+    parts = []
+    for name in ("forward", "backward"):
+        d = grade[name]
+        if d["grade"] is None:
+            continue
+        ratio = d["end_to_end_ratio"]
+        shown = "not finite" if ratio is None else f"x{ratio:.3g} over {grade['depth']} layers"
+        parts.append(f"{name} {d['grade']} ({shown})")
+    graded = ", ".join(parts) if parts else "too shallow to grade"
+    return f"rank {grade['rank']}: {graded}{phase}. An estimate on one synthetic batch."
+
+
+def _run_document(run: Run, grade: dict[str, Any] | None = None) -> dict[str, Any]:
     records = run.simulation.records
     main = [r for r in records if r.main_path]
     act_ref = main[0].activation_std if main else None
     grad_ref = main[-1].gradient_std if main else None
     doc: dict[str, Any] = {"label": run.label}
     doc.update(run.verdict.as_dict())
+    if grade is not None:
+        doc["grade"] = {**grade, "summary": _summary(run, grade)}
     doc["mean_field"] = run.mean_field
     doc["mean_field_notes"] = run.mean_field_notes
     doc["layers"] = [_layer_entry(r, act_ref, grad_ref) for r in records]
@@ -291,6 +351,7 @@ def notice(d: Diagnosis) -> str:
 
 def diagnosis_document(d: Diagnosis) -> dict[str, Any]:
     """The JSON-ready body of a diagnose response (deterministic for a given body)."""
+    grades = _grades(d.runs)
     return {
         "notice": notice(d),
         "simulation": {
@@ -319,8 +380,20 @@ def diagnosis_document(d: Diagnosis) -> dict[str, Any]:
                     "tanh/sigmoid: derivative exactly 0 for every value; linear/softmax: never",
             "saturated": dict(SATURATION_RULES),
             "symmetric_share": SYMMETRIC_SHARE,
+            "grade": f"forward: last main-path activation std over the first's; backward: "
+                     f"first main-path gradient std over the output's; steady within "
+                     f"{STEADY_FACTOR:g}x end to end (ln({STEADY_FACTOR:g})/L per layer over "
+                     f"L layers), drifting within {DRIFTING_FACTOR:g}x, poor beyond",
+            "rank": "runs whose verdict is stable first, then by |ln forward ratio| + "
+                    "|ln backward ratio|; an alternative identical to an earlier run shares "
+                    "its rank and names it in same_as",
+            "phase": "mean-field phase (ordered, critical, chaotic) and chi_1 of the largest "
+                     "group of hidden dense/conv layers (Poole et al. 2016; Schoenholz et al. "
+                     "2017)",
         },
-        "runs": [_run_document(r) for r in d.runs],
+        "runs": [_run_document(r, grades[r.label]) for r in d.runs],
+        "ranking": sorted((r.label for r in d.runs if grades[r.label]["same_as"] is None),
+                          key=lambda label: grades[label]["rank"]),
     }
 
 

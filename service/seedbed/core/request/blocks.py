@@ -48,7 +48,7 @@ from seedbed.core.request.layers import (
     NormLayer,
     RecurrentLayer,
 )
-from seedbed.core.request.limits import MAX_SIZE, Limits, limits_from_context
+from seedbed.core.request.limits import MAX_SIZE, Limits, limits_from_context, raised_by
 from seedbed.core.request.problems import (
     Allowed,
     Problem,
@@ -266,7 +266,7 @@ def _expand_blocks(layers: list[Any], info: ValidationInfo) -> list[Any]:
         raise field_error(
             "too_large",
             f"the layers expand to {total} layers; the limit is {limits.max_layers} per "
-            "request, counted after expanding block shorthands",
+            f"request, counted after expanding block shorthands{raised_by('max_layers')}",
         )
     return expand_layers(layers, info.context)
 
@@ -300,7 +300,8 @@ def check_expanded_count(data: object, limits: Limits) -> None:
         return
     refusal = wire_facts.expanded_count_refusal(data["layers"], limits.max_layers)
     if refusal is not None:
-        raise RequestRejected([Problem(*refusal)])
+        field, code, message = refusal
+        raise RequestRejected([Problem(field, code, message + raised_by("max_layers"))])
 
 
 def _activation(block: BlockBase) -> dict[str, Any]:

@@ -19,13 +19,14 @@ from math import prod
 from seedbed.core.policies import policy_problems
 from seedbed.core.request.branches import branch_problems
 from seedbed.core.request.layers import RecurrentLayer
-from seedbed.core.request.limits import Limits
+from seedbed.core.request.limits import Limits, raised_by
 from seedbed.core.request.names import layer_name_problems
 from seedbed.core.request.network import NetworkRequest
 from seedbed.core.request.parsed import ParsedRequest
 from seedbed.core.request.policy_models import ScaledResidualPolicy
 from seedbed.core.request.problems import Problem
 from seedbed.core.request.vocabulary import DTYPE_MAX, DTYPE_TINY, NORMAL_EXTREME
+from seedbed.core.request.width_chain import chain_problems
 from seedbed.core.tensors import TensorSlot, tensor_name_problems
 
 RequestCheck = Callable[[ParsedRequest, Limits], list[Problem]]
@@ -58,7 +59,9 @@ def _policy(parsed: ParsedRequest, limits: Limits) -> list[Problem]:
 # Checks whose problems make a depth policy's fit meaningless (the policy check is skipped).
 STRUCTURE_CHECKS: tuple[RequestCheck, ...] = (_branches,)
 # Every request-wide check, in the order its problems are reported.
-CHECKS: tuple[RequestCheck, ...] = (_layer_names, _tensor_names, _branches, _dtype_ranges, _sizes)
+CHECKS: tuple[RequestCheck, ...] = (
+    _layer_names, _tensor_names, _branches, chain_problems, _dtype_ranges, _sizes
+)
 POLICY_CHECK: RequestCheck = _policy
 
 
@@ -163,7 +166,8 @@ def size_problems(
                         "too_large",
                         f"tensor {slot.tensor!r} would have {count} elements (shape "
                         f"{list(slot.served_shape)}); the limit is "
-                        f"{limits.max_tensor_elements} elements per tensor",
+                        f"{limits.max_tensor_elements} elements per tensor"
+                        f"{raised_by('max_tensor_elements')}",
                     )
                 )
         problems.extend(_orthogonal_problems(request, i, layer_slots, limits))
@@ -173,7 +177,8 @@ def size_problems(
                 "layers",
                 "too_large",
                 f"the request's tensors have {total} elements in total; the limit is "
-                f"{limits.max_request_elements} elements per request",
+                f"{limits.max_request_elements} elements per request"
+                f"{raised_by('max_request_elements')}",
             )
         )
     return problems
@@ -196,7 +201,8 @@ def _orthogonal_problems(
                         f"layers[{i}].init.method",
                         "too_large",
                         f"orthogonal initialisation of {slot.tensor!r} needs a QR factorisation "
-                        f"of a {rows} x {cols} matrix; the larger side may be at most {cap}",
+                        f"of a {rows} x {cols} matrix; the larger side may be at most {cap}"
+                        f"{raised_by('max_orthogonal_dim')}",
                     )
                 )
         elif init is None and slot.part == "recurrent_weight":
@@ -211,7 +217,7 @@ def _orthogonal_problems(
                         f"hidden = {hidden}: the recurrent matrix is initialised orthogonal, "
                         f"which needs a QR factorisation of a {hidden} x {hidden} matrix; "
                         f"hidden may be at most {cap} (or give an init override that is not "
-                        "orthogonal)",
+                        f"orthogonal){raised_by('max_orthogonal_dim')}",
                     )
                 )
     return problems

@@ -14,6 +14,7 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationInfo
 from seedbed.core.activations import activation_names, describe_activation
 from seedbed.core.request.limits import MAX_SIZE, limits_from_context
 from seedbed.core.request.problems import Allowed, describe_input, field_error
+from seedbed.core.request.suggest import did_you_mean
 from seedbed.core.request.vocabulary import GAIN_MAX, GAIN_MIN
 
 NAME_PATTERN = re.compile(r"[A-Za-z0-9_][A-Za-z0-9_.\-]*")
@@ -39,7 +40,8 @@ def checked_activation(value: str | None) -> str | None:
     if value is not None and value not in activation_names():
         raise field_error(
             "invalid_value",
-            f"got {describe_input(value)}; allowed activations: {activation_allowed_text()}",
+            f"got {describe_input(value)}; allowed activations: {activation_allowed_text()}"
+            f"{did_you_mean(value, activation_names())}",
         )
     return value
 

@@ -25,6 +25,9 @@ from seedbed.core.request.overrides import BiasOverride, WeightOverride
 from seedbed.core.request.problems import Allowed, field_error
 from seedbed.core.request.vocabulary import GATES, RANDOM_METHODS, Cell, Role
 
+# Sources a layer's `reads` may join: more than any concatenating skip in common use.
+MAX_READS = 16
+
 
 class LayerBase(StrictModel):
     name: Annotated[str, Allowed(NAME_TEXT)] = Field(
@@ -81,6 +84,23 @@ class LayerBase(StrictModel):
         description="For a dense or conv output layer with a bias: the prior probability of "
         "the positive class; the bias becomes log(pi/(1-pi)) (Lin et al. 2017, sec. 4.1).",
         examples=[0.01],
+    )
+    reads: (
+        Annotated[
+            list[Annotated[str, Allowed("the name of an earlier layer")]],
+            Field(max_length=MAX_READS),
+            Allowed(f"a list of at most {MAX_READS} names of earlier layers"),
+        ]
+        | None
+    ) = Field(
+        default=None,
+        description="What this layer reads when it is not the output of the layer before it: "
+        "the names of earlier layers whose outputs are joined (concatenated along features) "
+        "into its input, e.g. a second head on a trunk, or a skip that concatenates. Its input "
+        "width is then checked against their sum. An empty list: the layer reads an input of "
+        "the network, not checked. Omit it for the usual chain "
+        "(seedbed.core.request.width_chain).",
+        examples=[["trunk.3"], ["encoder.1", "decoder.0"], []],
     )
 
     @field_validator("name", "branch", "block", mode="after")

@@ -74,7 +74,18 @@ def check_layer_count(data: object, limits: Limits) -> None:
         if isinstance(layers, list | tuple):
             refusal = wire_facts.layer_count_refusal(layers, limits.max_layers)
             if refusal is not None:
-                raise RequestRejected([Problem(*refusal)])
+                field, code, message = refusal
+                raise RequestRejected([Problem(field, code, message + raised_by("max_layers"))])
+
+
+# The service reads each limit from the environment variable of its name (seedbed.settings);
+# a refusal names it so that whoever runs the service knows which one to raise.
+SETTING_PREFIX = "SEEDBED_"
+
+
+def raised_by(limit: str, prefix: str = SETTING_PREFIX) -> str:
+    """"; the service's setting SEEDBED_<LIMIT> raises it", to end a refusal with."""
+    return f"; the service's setting {prefix}{limit.upper()} raises it"
 
 
 def limits_from_context(info: ValidationInfo) -> Limits:

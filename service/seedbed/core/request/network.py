@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Annotated, Any
+from typing import Annotated, Any, Literal
 
 from pydantic import (
     ConfigDict,
@@ -93,6 +93,17 @@ class NetworkRequest(StrictModel):
         description="The layers, in the order the signal meets them. Block shorthands "
         "(transformer_block, residual_conv_block) expand into named basic layers.",
         examples=[_EXAMPLE_REQUEST["layers"][:2], _EXAMPLE_BLOCKS["layers"][1:2]],
+    )
+    widths: (
+        Annotated[Literal["unchecked"], Allowed("unchecked, or omit the field (widths chain)")]
+        | None
+    ) = Field(
+        default=None,
+        description="Omit it: each layer's input width must equal what it reads (the layer "
+        "before it, or the layers named in its `reads`). \"unchecked\": the layers are a "
+        "collection of separate layers rather than one network, and no width between them is "
+        "checked (diagnose refuses such a request: it needs a chain).",
+        examples=["unchecked"],
     )
     depth_policy: Annotated[PolicyField, Allowed(POLICY_TEXT)] | None = Field(
         default=None,

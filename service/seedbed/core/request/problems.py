@@ -24,6 +24,7 @@ the caller sees the format errors first.
 
 from __future__ import annotations
 
+import re
 import types
 import typing
 from collections.abc import Sequence
@@ -33,6 +34,7 @@ from typing import Any, Literal, Union, get_args, get_origin
 from pydantic import BaseModel, ValidationError
 from pydantic_core import PydanticCustomError
 
+from seedbed.core.request.suggest import did_you_mean
 from seedbed_client import wire_facts
 
 ProblemCode = Literal[
@@ -210,6 +212,9 @@ def _members_at(root: type[BaseModel], loc: Sequence[str | int]) -> list[type[Ba
 # ---------------------------------------------------------------------------------------------
 # Translating pydantic errors
 
+# The choices in pydantic's `expected` context ("'a', 'b' or 'c'").
+_QUOTED = re.compile(r"'([^']*)'")
+
 _TYPE_ERRORS = {
     "int_type", "int_parsing", "int_from_float", "float_type", "float_parsing", "string_type",
     "bool_type", "bool_parsing", "list_type", "dict_type", "model_type", "model_attributes_type",
@@ -260,18 +265,22 @@ def _translate(root: type[BaseModel], error: Any) -> Problem:
         # pydantic reports the tag as a string even when it was an object or a list: describe
         # the value as sent.
         sent = value.get("kind") if isinstance(value, dict) else ctx.get("tag")
-        return Problem(path, "invalid_value", f"got {describe_input(sent)}; allowed kinds: {tags}")
+        hint = did_you_mean(sent, tags.split(", "))
+        return Problem(path, "invalid_value",
+                       f"got {describe_input(sent)}; allowed kinds: {tags}{hint}")
 
     where = locate(root, loc)
     path = where.path
     allowed = where.allowed.text if where.allowed is not None else None
 
     if kind == "extra_forbidden":
+        known = list(where.container.model_fields) if where.container else []
         return Problem(
             path,
             "unknown_field",
             f"unknown field {where.leaf!r}; allowed fields {_what(where.container)}: "
-            f"{_allowed_fields(where.container) if where.container else '(none)'}",
+            f"{_allowed_fields(where.container) if where.container else '(none)'}"
+            f"{did_you_mean(where.leaf, known)}",
         )
     if kind == "missing":
         return Problem(
@@ -308,7 +317,11 @@ def _translate(root: type[BaseModel], error: Any) -> Problem:
         if isinstance(value, str) and kind in ("int_type", "float_type", "int_parsing"):
             hint = " (numbers must not be quoted)"
         expected = allowed or _expected_from_ctx(ctx) or _type_phrase(kind)
-        return Problem(path, code, f"got {describe_input(value)}{hint}; allowed: {expected}")
+        suggestion = ""
+        if choice:
+            suggestion = did_you_mean(value, _QUOTED.findall(str(ctx.get("expected", ""))))
+        return Problem(path, code,
+                       f"got {describe_input(value)}{hint}; allowed: {expected}{suggestion}")
     # Range and pattern checks on numbers and strings.
     expected = allowed or _expected_from_ctx(ctx) or "see the field's description"
     return Problem(path, "invalid_value", f"got {describe_input(value)}; allowed: {expected}")

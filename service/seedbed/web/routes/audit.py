@@ -15,7 +15,8 @@ from __future__ import annotations
 
 import json
 import tempfile
-from collections.abc import Mapping
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
 from typing import IO, Any, NoReturn
 
 from fastapi import APIRouter, Request
@@ -327,11 +328,46 @@ _REQUEST_BODY = {
     response_class=JSONResponse,
     responses={
         200: {"model": AuditReportDoc, "description": "The audit report."},
-        **error_responses(400, 413, 415, 422),
+        **error_responses(400, 413, 415, 422, 503,
+                          s503="Too many audits are running at once (code too_many_audits); "
+                               "the Retry-After header says when to try again."),
     },
     openapi_extra=_REQUEST_BODY,
 )
 async def audit_weights(request: Request) -> JSONResponse:
+    with _audit_slot(request):
+        return await _audit(request)
+
+
+# Seconds a caller refused for want of a free audit slot is asked to wait: an audit of a file
+# near the default limit takes a few seconds.
+AUDIT_RETRY_AFTER_S = 2
+
+
+@contextmanager
+def _audit_slot(request: Request) -> Iterator[None]:
+    """Hold one of the worker's audit slots, or refuse with 503 + Retry-After when none is free.
+
+    The count lives on the app and changes only on the event loop, so no lock is needed.
+    """
+    state = request.app.state
+    cap = settings_of(request).max_concurrent_audits
+    running = getattr(state, "audits_running", 0)
+    if running >= cap:
+        raise ApiError.one(
+            503, "(request)", "too_many_audits",
+            f"{running} audits are running, the most this service runs at once (the "
+            f"service's setting SEEDBED_MAX_CONCURRENT_AUDITS raises it); retry after "
+            f"{AUDIT_RETRY_AFTER_S} seconds",
+            headers={"Retry-After": str(AUDIT_RETRY_AFTER_S)})
+    state.audits_running = running + 1
+    try:
+        yield
+    finally:
+        state.audits_running -= 1
+
+
+async def _audit(request: Request) -> JSONResponse:
     limits = audit_limits_of(request)
     raw_type = request.headers.get("content-type")
     media = (raw_type or "").split(";", 1)[0].strip().lower()

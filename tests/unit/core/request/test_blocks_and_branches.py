@@ -263,7 +263,7 @@ def test_two_blocks_with_one_name_are_reported_once_per_block() -> None:
 
 
 def test_sizes_of_expanded_layers_are_limited_at_the_block() -> None:
-    err = rejected({"seed": 1, "layers": [dense("stem"), block(dim=32768, heads=1)]})
+    err = rejected({"seed": 1, "layers": [dense("stem", 8, 32768), block(dim=32768, heads=1)]})
     assert ("layers[1]", "too_large") in fields(err)
     assert "enc.0.attn.query.weight" in err.problems[0].message
 
@@ -321,9 +321,11 @@ def test_matching_branches_are_accepted_and_found() -> None:
     assert found == [("r0", 1, 3, (1, 2)), ("r1", 3, 5, (3, 4)), ("r2", 5, 7, (5, 6))]
 
 
-def test_an_embedding_opening_a_branch_has_no_input_width_to_check() -> None:
-    parse({"seed": 1, "layers": [
+def test_an_embedding_cannot_sit_in_a_branch() -> None:
+    # It reads token ids, not the branch's input, so its output cannot be added back to it.
+    err = rejected({"seed": 1, "layers": [
         {"name": "e", "kind": "embedding", "vocab": 10, "dim": 4, "branch": "b"}]})
+    assert ("layers[0].branch", "not_allowed") in fields(err)
 
 
 def test_branches_keep_the_drift_estimate_to_the_trunk() -> None:

@@ -62,7 +62,7 @@ def test_check_layer_count_ignores_what_it_cannot_measure() -> None:
 def test_tensor_element_limit_with_exact_numbers() -> None:
     limits = Limits(max_tensor_elements=1000)
     parse({"seed": 1, "layers": [dense("fits", 25, 40)]}, limits)  # exactly 1000
-    err = rejected({"seed": 1, "layers": [dense("ok", 2, 2), dense("big", 25, 41)]}, limits)
+    err = rejected({"seed": 1, "layers": [dense("ok", 2, 25), dense("big", 25, 41)]}, limits)
     (p,) = err.problems
     assert (p.field, p.code) == ("layers[1]", "too_large")
     assert "'big.weight'" in p.message
@@ -81,7 +81,8 @@ def test_request_element_limit_sums_every_tensor() -> None:
     limits = Limits(max_request_elements=100)
     # 9*10 weight + 9 bias = 99 elements: fits; one more layer of 2x1 (+1 bias) does not.
     parse({"seed": 1, "layers": [dense("a", 10, 9)]}, limits)
-    err = rejected({"seed": 1, "layers": [dense("a", 10, 9), dense("b", 1, 2)]}, limits)
+    err = rejected({"seed": 1, "layers": [dense("a", 10, 9), dense("b", 1, 2)],
+                    "widths": "unchecked"}, limits)
     (p,) = err.problems
     assert (p.field, p.code) == ("layers", "too_large")
     assert "103 elements in total" in p.message and "limit is 100" in p.message

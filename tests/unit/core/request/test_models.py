@@ -306,6 +306,7 @@ def test_every_kind_is_accepted_with_defaults_filled() -> None:
         seed="team-baseline",
         dtype="bfloat16",
         layout="in_out",
+        widths="unchecked",  # one of each kind: a collection, not a chain
     )  # fmt: skip
     r = parse(body).request
     assert (r.seed, r.dtype, r.layout) == ("team-baseline", "bfloat16", "in_out")
@@ -338,6 +339,7 @@ def test_override_defaults() -> None:
         dense("c", init={"method": "lecun", "distribution": "truncated_normal", "std": 0.02}),
         dense("d", init={"method": "symmetric_uniform", "bound": 0.05}),
         dense("e", init={"method": "orthogonal", "gain": 2}),
+        widths="unchecked",
     )).request  # fmt: skip
     inits = [layer.init for layer in r.layers]
     assert all(i is not None for i in inits)
@@ -350,7 +352,7 @@ def test_override_defaults() -> None:
 
 
 def test_simple_cell_defaults_to_tanh_and_lstm_without_bias_has_no_forget_bias() -> None:
-    r = parse(req(lstm("s", cell="simple"), lstm("l", bias=False))).request
+    r = parse(req(lstm("s", cell="simple"), lstm("l", bias=False), widths="unchecked")).request
     assert r.layers[0].activation == "tanh"
     second = r.layers[1]
     assert isinstance(second, RecurrentLayer) and second.forget_bias is None
@@ -410,11 +412,13 @@ def test_same_meaning_same_canonical_form() -> None:
         lstm("b"),
         conv("c", kernel=[3]),
         dense("d", activation="leaky_relu", init={"method": "he", "gain": 1}),
+        widths="unchecked",
     )
     explicit = {
         "seed": 7,
         "dtype": "float32",
         "layout": "out_in",
+        "widths": "unchecked",
         "layers": [
             dense("a", bias=True, role="hidden", activation="linear", init=None),
             lstm("b", gate_order=["input", "forget", "cell", "output"], forget_bias=1,
@@ -548,6 +552,7 @@ def _request(draw: st.DrawFn) -> dict[str, Any]:
     body: dict[str, Any] = {
         "seed": draw(st.integers(0, 2**63 - 1) | st.text(min_size=1, max_size=20)),
         "layers": [draw(_layer(n)) for n in names],
+        "widths": "unchecked",  # the drawn layers do not chain
     }
     if draw(st.booleans()):
         body["dtype"] = draw(st.sampled_from(["float32", "float64", "float16", "bfloat16"]))
