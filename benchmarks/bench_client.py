@@ -86,8 +86,14 @@ def request_of(mib: int) -> dict[str, Any]:
     # Invented: the projection stack of a seismograph-denoising model.
     side = int(((mib * MIB) // 4 // 4) ** 0.5)
     layers = [
-        {"name": f"quake.{i}", "kind": "dense", "n_in": side, "n_out": side, "bias": False,
-         "activation": "relu"}
+        {
+            "name": f"quake.{i}",
+            "kind": "dense",
+            "n_in": side,
+            "n_out": side,
+            "bias": False,
+            "activation": "relu",
+        }
         for i in range(4)
     ]
     return {"seed": "seismograph/denoise", "dtype": "float32", "layers": layers}
@@ -96,7 +102,9 @@ def request_of(mib: int) -> dict[str, Any]:
 def measure(mode: str, url: str, request: dict[str, Any], target: Path) -> dict[str, float]:
     done = subprocess.run(
         [sys.executable, "-c", CHILD, mode, url, json.dumps(request), str(target)],
-        capture_output=True, text=True, check=False,
+        capture_output=True,
+        text=True,
+        check=False,
         env={"PYTHONPATH": str(ROOT / "client"), "PATH": "/usr/bin:/bin"},
     )
     if done.returncode != 0:
@@ -115,8 +123,9 @@ def main() -> None:
     total = 4 * side * side * 4
     largest = side * side * 4
     with tempfile.TemporaryDirectory() as scratch:
-        server = start_server({"SEEDBED_MAX_JSON_RESPONSE_BYTES": str(1 << 20)},
-                              log_dir=Path(scratch))
+        server = start_server(
+            {"SEEDBED_MAX_JSON_RESPONSE_BYTES": str(1 << 20)}, log_dir=Path(scratch)
+        )
         try:
             target = Path(scratch) / "weights.npz"
             rows = {
@@ -129,18 +138,30 @@ def main() -> None:
         finally:
             server.stop()
     base = rows["numpy baseline"]
-    print(f"request: 4 dense layers {side} x {side} float32 = {total / MIB:.0f} MiB "
-          f"(largest tensor {largest / MIB:.0f} MiB); cache off; fresh process per row")
-    print(f"{'operation':<24}{'seconds':>9}{'x numpy':>9}{'peak RSS growth':>17}{'x numpy':>9}"
-          "  budget")
-    budgets = {"fetch, arrays returned": 64 * MIB + largest,
-               "fetch, arrays read": 64 * MIB + largest, "fetch, saved to disk": 64 * MIB}
+    print(
+        f"request: 4 dense layers {side} x {side} float32 = {total / MIB:.0f} MiB "
+        f"(largest tensor {largest / MIB:.0f} MiB); cache off; fresh process per row"
+    )
+    print(
+        f"{'operation':<24}{'seconds':>9}{'x numpy':>9}{'peak RSS growth':>17}{'x numpy':>9}"
+        "  budget"
+    )
+    budgets = {
+        "fetch, arrays returned": 64 * MIB + largest,
+        "fetch, arrays read": 64 * MIB + largest,
+        "fetch, saved to disk": 64 * MIB,
+    }
     for name, r in rows.items():
         budget = budgets.get(name)
-        verdict = "" if budget is None else (
-            f"  {'within' if r['growth'] <= budget else 'OVER'} {budget / MIB:.0f} MiB")
-        print(f"{name:<24}{r['seconds']:>9.2f}{r['seconds'] / base['seconds']:>9.2f}"
-              f"{r['growth'] / MIB:>13.1f} MiB{r['growth'] / base['growth']:>9.2f}{verdict}")
+        verdict = (
+            ""
+            if budget is None
+            else (f"  {'within' if r['growth'] <= budget else 'OVER'} {budget / MIB:.0f} MiB")
+        )
+        print(
+            f"{name:<24}{r['seconds']:>9.2f}{r['seconds'] / base['seconds']:>9.2f}"
+            f"{r['growth'] / MIB:>13.1f} MiB{r['growth'] / base['growth']:>9.2f}{verdict}"
+        )
 
 
 if __name__ == "__main__":

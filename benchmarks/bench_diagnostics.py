@@ -44,9 +44,20 @@ def main() -> None:
     args = parser.parse_args()
     batch = args.batch
 
-    request = {"seed": "bench-diagnostics", "layers": [
-        {"name": f"h{i}", "kind": "dense", "n_in": WIDTH, "n_out": WIDTH, "activation": "relu",
-         "bias": False} for i in range(DEPTH)]}
+    request = {
+        "seed": "bench-diagnostics",
+        "layers": [
+            {
+                "name": f"h{i}",
+                "kind": "dense",
+                "n_in": WIDTH,
+                "n_out": WIDTH,
+                "activation": "relu",
+                "bias": False,
+            }
+            for i in range(DEPTH)
+        ],
+    }
     body = {"request": request, "batch": batch}
 
     rng = np.random.default_rng(1)
@@ -60,6 +71,7 @@ def main() -> None:
                 y = y @ weights[i % len(weights)].T
                 y /= 32.0  # keeps values finite; one cheap pass, like an activation
             return y
+
         return run
 
     plan = build_plan(request)
@@ -78,8 +90,10 @@ def main() -> None:
     ]
     reference = rows[1][1]
     blas = os.environ.get("OPENBLAS_NUM_THREADS", "default")
-    print(f"{DEPTH}-layer ReLU MLP, width {WIDTH}, batch {batch}, float64; "
-          f"best of {args.repeats}; OPENBLAS_NUM_THREADS={blas}, {os.cpu_count()} CPUs")
+    print(
+        f"{DEPTH}-layer ReLU MLP, width {WIDTH}, batch {batch}, float64; "
+        f"best of {args.repeats}; OPENBLAS_NUM_THREADS={blas}, {os.cpu_count()} CPUs"
+    )
     rows.append(("simulation (diagnose - rendering)", rows[3][1] - rows[2][1]))
     print(f"{'case':<36}{'seconds':>10}{'x 100 products':>16}")
     for name, seconds in rows:

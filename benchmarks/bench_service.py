@@ -148,9 +148,12 @@ def stream_memory(server: RunningServer) -> None:
     sampler.start()
     received = 0
     began = time.perf_counter()
-    with httpx.Client(base_url=server.base_url, timeout=600) as http, http.stream(
-        "POST", "/v1/weights", params={"format": "safetensors"}, json=request
-    ) as response:
+    with (
+        httpx.Client(base_url=server.base_url, timeout=600) as http,
+        http.stream(
+            "POST", "/v1/weights", params={"format": "safetensors"}, json=request
+        ) as response,
+    ):
         response.raise_for_status()
         for piece in response.iter_bytes():
             received += len(piece)
@@ -159,9 +162,11 @@ def stream_memory(server: RunningServer) -> None:
     sampler.join()
     mib = 2**20
     print(f"(c) 1 GiB safetensors stream ({received / mib:.0f} MiB in {seconds:.1f} s)")
-    print(f"    server RSS idle {idle / mib:.1f} MiB, peak {peak / mib:.1f} MiB, "
-          f"rise {(peak - idle) / mib:.1f} MiB = {(peak - idle) / (128 * mib):.2f} x the "
-          "128 MiB budget")
+    print(
+        f"    server RSS idle {idle / mib:.1f} MiB, peak {peak / mib:.1f} MiB, "
+        f"rise {(peak - idle) / mib:.1f} MiB = {(peak - idle) / (128 * mib):.2f} x the "
+        "128 MiB budget"
+    )
 
 
 def percentile(sorted_values: list[float], q: float) -> float:

@@ -106,14 +106,26 @@ def generation_rows(repeats: int) -> tuple[list[Row], float]:
     rows = [
         Row("normal f32 16M, 1 thread", base_n, ours("normal", 1), normal, "<= 0.8"),
         Row(f"normal f32 16M, {CORES} threads", base_n, ours("normal", CORES), normal, "<= 0.5"),
-        Row("uniform f32 16M, 1 thread", "numpy random f32, 1 thread", ours("uniform", 1),
-            uniform, "<= 0.5"),
+        Row(
+            "uniform f32 16M, 1 thread",
+            "numpy random f32, 1 thread",
+            ours("uniform", 1),
+            uniform,
+            "<= 0.5",
+        ),
     ]
     if kernel.active() is not None:
         kernel.set_enabled(False)
         try:
-            rows.append(Row("  (numpy reference generator, normal, 1 thread)", base_n,
-                            ours("normal", 1), normal, ""))
+            rows.append(
+                Row(
+                    "  (numpy reference generator, normal, 1 thread)",
+                    base_n,
+                    ours("normal", 1),
+                    normal,
+                    "",
+                )
+            )
         finally:
             kernel.set_enabled(True)
     return rows, normal
@@ -124,14 +136,22 @@ def per_value_rows(repeats: int, sizes: list[int]) -> list[Row]:
     per_value: list[tuple[int, float]] = []
     for n in sizes:
         out = np.empty(n, dtype=np.float32)
-        seconds = _warm_best(max(1, repeats if n <= 1 << 24 else 2),
-                             lambda out=out: fill_scaled("normal", key, out, 0, 1.0))
+        seconds = _warm_best(
+            max(1, repeats if n <= 1 << 24 else 2),
+            lambda out=out: fill_scaled("normal", key, out, 0, 1.0),
+        )
         per_value.append((n, seconds / n))
         del out
     first_n, first = per_value[0]
     return [
-        Row(f"normal f32 per value, {n >> 20}M values", f"same, {first_n >> 20}M values",
-            cost * 1e9, first * 1e9, "within 20%", "ns")
+        Row(
+            f"normal f32 per value, {n >> 20}M values",
+            f"same, {first_n >> 20}M values",
+            cost * 1e9,
+            first * 1e9,
+            "within 20%",
+            "ns",
+        )
         for n, cost in per_value[1:]
     ]
 
@@ -139,8 +159,7 @@ def per_value_rows(repeats: int, sizes: list[int]) -> list[Row]:
 # ------------------------------------------------------------------------------ HTTP fetch
 
 
-def fetch_seconds(server: RunningServer, request: dict[str, Any], fmt: str,
-                  repeats: int) -> float:
+def fetch_seconds(server: RunningServer, request: dict[str, Any], fmt: str, repeats: int) -> float:
     with httpx.Client(base_url=server.base_url, timeout=600) as http:
 
         def fetch() -> None:
@@ -165,13 +184,21 @@ def fetch_rows(server: RunningServer, repeats: int, normal: float) -> tuple[list
     rows = []
     targets = {"safetensors": "<= 1.3", "npz": "<= 1.5", "json": "<= 3"}
     for fmt, target in targets.items():
-        rows.append(Row(f"4096^2 f32 fetch, {fmt}", base,
-                        fetch_seconds(server, request, fmt, repeats), normal, target))
+        rows.append(
+            Row(
+                f"4096^2 f32 fetch, {fmt}",
+                base,
+                fetch_seconds(server, request, fmt, repeats),
+                normal,
+                target,
+            )
+        )
 
     threads = CORES  # what the server uses by default (cores / 1 worker)
     data = b"".join(iter_tensor_bytes(plan, tensor, threads=threads))
-    generation = _warm_best(repeats, lambda: [None for _ in iter_tensor_bytes(
-        plan, tensor, threads=threads)])
+    generation = _warm_best(
+        repeats, lambda: [None for _ in iter_tensor_bytes(plan, tensor, threads=threads)]
+    )
     hashing = _warm_best(repeats, lambda: hashlib.sha256(data).digest())
 
     def encode(fmt: str) -> Callable[[], None]:
@@ -180,6 +207,7 @@ def fetch_rows(server: RunningServer, repeats: int, normal: float) -> tuple[list
             body = getattr(encoded, "body", None)
             for _ in body if body is not None else ():
                 pass
+
         return run
 
     profile = [
@@ -233,8 +261,9 @@ async def _connection(host: str, port: int, requests: list[bytes], latencies: li
 LOADER_CPU = {"per_request": 0.0}
 
 
-def load(server: RunningServer, method: str, path: str, bodies: list[bytes | None],
-         concurrency: int) -> float:
+def load(
+    server: RunningServer, method: str, path: str, bodies: list[bytes | None], concurrency: int
+) -> float:
     """Requests per second for `bodies` (one request each) over `concurrency` keep-alive
     connections; each connection first sends one request outside the clock."""
     host, port = server.base_url.removeprefix("http://").rsplit(":", 1)
@@ -268,20 +297,39 @@ def plan_rows(
     distinct = [json.dumps({**network, "seed": 10_000 + i}).encode() for i in range(requests)]
     best = {"healthz": 0.0, "same": 0.0, "distinct": 0.0, "loader": 1.0}
     for r in range(rounds):  # interleaved, so that a busy moment hits all three alike
-        best["healthz"] = max(best["healthz"],
-                              load(server, "GET", "/healthz", [None] * requests * 4, 32))
+        best["healthz"] = max(
+            best["healthz"], load(server, "GET", "/healthz", [None] * requests * 4, 32)
+        )
         best["loader"] = min(best["loader"], LOADER_CPU["per_request"])
         best["same"] = max(best["same"], load(server, "POST", "/v1/plan", [same] * requests, 32))
-        fresh = [json.dumps({**network, "seed": 10_000 + r * requests + i}).encode()
-                 for i in range(requests)] if r else distinct
+        fresh = (
+            [
+                json.dumps({**network, "seed": 10_000 + r * requests + i}).encode()
+                for i in range(requests)
+            ]
+            if r
+            else distinct
+        )
         best["distinct"] = max(best["distinct"], load(server, "POST", "/v1/plan", fresh, 32))
     base = f"/healthz, {best['healthz']:.0f} req/s"
     # Stored as seconds per request so the ratio reads "throughput x healthz" when inverted.
     rows = [
-        Row("/v1/plan 12 layers, conc. 32, repeated", base, 1 / best["healthz"],
-            1 / best["same"], ">= 0.6", "req/s"),
-        Row("/v1/plan 12 layers, conc. 32, distinct seeds", base, 1 / best["healthz"],
-            1 / best["distinct"], ">= 0.3", "req/s"),
+        Row(
+            "/v1/plan 12 layers, conc. 32, repeated",
+            base,
+            1 / best["healthz"],
+            1 / best["same"],
+            ">= 0.6",
+            "req/s",
+        ),
+        Row(
+            "/v1/plan 12 layers, conc. 32, distinct seeds",
+            base,
+            1 / best["healthz"],
+            1 / best["distinct"],
+            ">= 0.3",
+            "req/s",
+        ),
     ]
     return rows, (best["healthz"], best["loader"])
 
@@ -293,9 +341,20 @@ def diagnose_row(repeats: int) -> Row:
     from seedbed.core.diagnostics import diagnose
 
     width, depth, batch = 1024, 50, 256
-    request = {"seed": "bench-diagnostics", "layers": [
-        {"name": f"h{i}", "kind": "dense", "n_in": width, "n_out": width, "activation": "relu",
-         "bias": False} for i in range(depth)]}
+    request = {
+        "seed": "bench-diagnostics",
+        "layers": [
+            {
+                "name": f"h{i}",
+                "kind": "dense",
+                "n_in": width,
+                "n_out": width,
+                "activation": "relu",
+                "bias": False,
+            }
+            for i in range(depth)
+        ],
+    }
     rng = np.random.default_rng(1)
     x = rng.standard_normal((batch, width))
     weights = [rng.standard_normal((width, width)) for _ in range(4)]
@@ -309,8 +368,9 @@ def diagnose_row(repeats: int) -> Row:
 
     bare = _warm_best(repeats, products)
     engine = _warm_best(repeats, lambda: diagnose({"request": request, "batch": batch}))
-    return Row("diagnose 50x1024 ReLU MLP, batch 256", "100 bare numpy matmuls", engine, bare,
-               "<= 2")
+    return Row(
+        "diagnose 50x1024 ReLU MLP, batch 256", "100 bare numpy matmuls", engine, bare, "<= 2"
+    )
 
 
 def cache_row(server: RunningServer, repeats: int) -> Row:
@@ -319,24 +379,33 @@ def cache_row(server: RunningServer, repeats: int) -> Row:
     request = single_dense(SIDE, SIDE, activation="relu", seed=4242)
     firsts, hits = [], []
     for _ in range(repeats):
-        with tempfile.TemporaryDirectory(prefix="seedbed-bench-cache-") as folder, \
-                Client(server.base_url, cache_dir=folder, timeout=600) as client:
+        with (
+            tempfile.TemporaryDirectory(prefix="seedbed-bench-cache-") as folder,
+            Client(server.base_url, cache_dir=folder, timeout=600) as client,
+        ):
             t0 = time.perf_counter()
             client.weights(request, "safetensors")
             firsts.append(time.perf_counter() - t0)
             t0 = time.perf_counter()
             client.weights(request, "safetensors")
             hits.append(time.perf_counter() - t0)
-    return Row("client cache hit, 64 MiB, verified", "first fetch of the same", min(hits),
-               min(firsts), "<= 0.1")
+    return Row(
+        "client cache hit, 64 MiB, verified",
+        "first fetch of the same",
+        min(hits),
+        min(firsts),
+        "<= 0.1",
+    )
 
 
 # ------------------------------------------------------------------------------ report
 
 
 def table(rows: list[Row]) -> list[str]:
-    lines = ["| Figure | Baseline (same run) | Figure | Baseline | Ratio | Target | |",
-             "|---|---|---:|---:|---:|---|---|"]
+    lines = [
+        "| Figure | Baseline (same run) | Figure | Baseline | Ratio | Target | |",
+        "|---|---|---:|---:|---:|---|---|",
+    ]
     for r in rows:
         if r.unit == "req/s":
             shown = (f"{1 / r.base_seconds:.0f} req/s", f"{1 / r.seconds:.0f} req/s")
@@ -345,8 +414,10 @@ def table(rows: list[Row]) -> list[str]:
         else:
             shown = (f"{r.seconds:.3f} s", f"{r.base_seconds:.3f} s")
         target = f"{r.target}×" if r.target and not r.target.startswith("within") else r.target
-        lines.append(f"| {r.figure} | {r.baseline} | {shown[0]} | {shown[1]} | "
-                     f"{r.ratio:.2f}× | {target} | {r.met()} |")
+        lines.append(
+            f"| {r.figure} | {r.baseline} | {shown[0]} | {shown[1]} | "
+            f"{r.ratio:.2f}× | {target} | {r.met()} |"
+        )
     return lines
 
 
@@ -354,32 +425,38 @@ def write_docs(lines: list[str], header: str) -> None:
     text = DOC.read_text("utf-8")
     begin, end = "<!-- last-result:begin -->", "<!-- last-result:end -->"
     a, b = text.index(begin) + len(begin), text.index(end)
-    DOC.write_text(text[:a] + "\n" + header + "\n\n" + "\n".join(lines) + "\n" + text[b:],
-                   "utf-8")
+    DOC.write_text(text[:a] + "\n" + header + "\n\n" + "\n".join(lines) + "\n" + text[b:], "utf-8")
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--repeats", type=int, default=5, help="timed repeats per figure")
     parser.add_argument("--requests", type=int, default=800, help="requests per load figure")
-    parser.add_argument("--quick", action="store_true",
-                        help="2 repeats, 200 requests, per-value sizes up to 32M")
-    parser.add_argument("--write-docs", action="store_true",
-                        help="replace the table of the last result in docs/performance.md")
+    parser.add_argument(
+        "--quick", action="store_true", help="2 repeats, 200 requests, per-value sizes up to 32M"
+    )
+    parser.add_argument(
+        "--write-docs",
+        action="store_true",
+        help="replace the table of the last result in docs/performance.md",
+    )
     args = parser.parse_args(argv)
     repeats, requests = (2, 200) if args.quick else (args.repeats, args.requests)
     sizes = [1 << 20, 1 << 23, 1 << 25] + ([] if args.quick else [1 << 27])
 
-    header = (f"{time.strftime('%Y-%m-%d', time.gmtime())}, {platform.machine()}, {CORES} "
-              f"cores, Python {platform.python_version()}, numpy {np.__version__}, generator "
-              f"{kernel.status().describe()}; best of {repeats}")
+    header = (
+        f"{time.strftime('%Y-%m-%d', time.gmtime())}, {platform.machine()}, {CORES} "
+        f"cores, Python {platform.python_version()}, numpy {np.__version__}, generator "
+        f"{kernel.status().describe()}; best of {repeats}"
+    )
     print(header)
     rows, normal = generation_rows(repeats)
     rows += per_value_rows(repeats, sizes)
     rows.append(diagnose_row(repeats))
     with tempfile.TemporaryDirectory(prefix="seedbed-bench-") as scratch:
-        server = start_server({"SEEDBED_MAX_JSON_RESPONSE_BYTES": str(256 << 20)},
-                              log_dir=Path(scratch))
+        server = start_server(
+            {"SEEDBED_MAX_JSON_RESPONSE_BYTES": str(256 << 20)}, log_dir=Path(scratch)
+        )
         try:
             fetched, profile = fetch_rows(server, repeats, normal)
             rows += fetched
@@ -390,9 +467,11 @@ def main(argv: list[str] | None = None) -> int:
             server.stop()
     lines = table(rows)
     print("\n".join(lines))
-    loader = (f"/healthz through the load generator: {healthz:.0f} req/s at concurrency 32; "
-              f"the generator itself spends {loader_cpu * 1e6:.0f} µs of CPU per request "
-              f"(its own ceiling: about {1 / loader_cpu:.0f} req/s on one core)")
+    loader = (
+        f"/healthz through the load generator: {healthz:.0f} req/s at concurrency 32; "
+        f"the generator itself spends {loader_cpu * 1e6:.0f} µs of CPU per request "
+        f"(its own ceiling: about {1 / loader_cpu:.0f} req/s on one core)"
+    )
     print("\n" + loader)
     print("where the 4096^2 fetch time goes:")
     for line in profile:

@@ -222,11 +222,13 @@ def _recipes(args: argparse.Namespace) -> int:
         if args.action == "list":
             return checks.recipes_list(client, sys.stdout)
         if args.action == "show":
-            return checks.recipe_show(client, args.ref, sys.stdout, plan_table,
-                                      checks.terminal_width(None))
+            return checks.recipe_show(
+                client, args.ref, sys.stdout, plan_table, checks.terminal_width(None)
+            )
         request = _read_request(args.request)
-        return checks.recipe_publish(client, args.ref, request, args.description,
-                                     args.key_file, sys.stdout)
+        return checks.recipe_publish(
+            client, args.ref, request, args.description, args.key_file, sys.stdout
+        )
 
 
 def _audit(args: argparse.Namespace) -> int:
@@ -364,16 +366,21 @@ def register(subparsers: Any) -> None:
         "comes from --format or OUTPUT's suffix. Uses the local cache unless --no-cache.",
     )
     fetch.add_argument("request", nargs="?", help="request JSON file, or - for standard input")
-    fetch.add_argument("--recipe", metavar="NAME@VERSION",
-                       help="a published recipe instead of a request file (NAME@latest, or a "
-                       "bare NAME, is the newest version)")
+    fetch.add_argument(
+        "--recipe",
+        metavar="NAME@VERSION",
+        help="a published recipe instead of a request file (NAME@latest, or a "
+        "bare NAME, is the newest version)",
+    )
     fetch.add_argument("-o", "--output", required=True, help="file to write")
     fetch.add_argument("--format", choices=FORMATS, help="json, npz or safetensors")
     fetch.add_argument("--tensor", metavar="NAME", help="only this tensor")
     fetch.add_argument("--rows", metavar="START:STOP", help="only these rows of --tensor")
     fetch.add_argument("--no-cache", action="store_true", help="neither read nor fill the cache")
     fetch.add_argument(
-        "--origin", choices=("service", "local"), default="service",
+        "--origin",
+        choices=("service", "local"),
+        default="service",
         help="service (default): download the weights; local: fetch only the plan and make "
         "every tensor here (npz or safetensors; the same tensors and digests)",
     )
@@ -404,12 +411,15 @@ def register(subparsers: Any) -> None:
         "--format", choices=FORMATS, help="the file's format (default: recognised from its bytes)"
     )
     verify.add_argument(
-        "--against", metavar="REQUEST.json|NAME@VERSION",
+        "--against",
+        metavar="REQUEST.json|NAME@VERSION",
         help="also check every tensor against what it should be: a request (planned by the "
         "service, digests computed here) or a published recipe (its stored fingerprints)",
     )
     verify.add_argument(
-        "--origin", choices=("local", "service"), default="local",
+        "--origin",
+        choices=("local", "service"),
+        default="local",
         help="with a request: compute the expected digests here (local, default) or download "
         "the service's weights (service)",
     )
@@ -417,7 +427,8 @@ def register(subparsers: Any) -> None:
     verify.set_defaults(**{_HANDLER: _verify})
 
     recipes = subparsers.add_parser(
-        "recipes", help="list, show and publish team recipes",
+        "recipes",
+        help="list, show and publish team recipes",
         description="Team recipes: list the names, show one version (NAME@VERSION, "
         "NAME@latest, or NAME for the newest) with its plan, or publish a request file under a "
         "name. Publishing takes the key from SEEDBED_PUBLISH_KEY, --key-file or "
@@ -431,41 +442,52 @@ def register(subparsers: Any) -> None:
     publish.add_argument("ref", metavar="NAME")
     publish.add_argument("request", help="request JSON file, or - for standard input")
     publish.add_argument("--description", default="", help="what this version is for")
-    publish.add_argument("--key-file", metavar="PATH",
-                         help="file holding the publishing key (default SEEDBED_PUBLISH_KEY, "
-                         "else the file SEEDBED_PUBLISH_KEY_FILE names)")
+    publish.add_argument(
+        "--key-file",
+        metavar="PATH",
+        help="file holding the publishing key (default SEEDBED_PUBLISH_KEY, "
+        "else the file SEEDBED_PUBLISH_KEY_FILE names)",
+    )
     # On each action only: argparse lets a sub-parser's defaults overwrite its parent's values.
     for sub in actions.choices.values():
         _add_service_options(sub)
     recipes.set_defaults(**{_HANDLER: _recipes})
 
     audit = subparsers.add_parser(
-        "audit", help="audit a weights file; exit 5 on an error-level finding",
+        "audit",
+        help="audit a weights file; exit 5 on an error-level finding",
         description="Send an NPZ or safetensors file to the service's audit and print its "
         "findings. Exit code 5 when any finding is an error (usable as a CI gate), 0 "
         "otherwise. The audit checks a starting point, not a trained model.",
     )
     audit.add_argument("file", help="the weights file")
-    audit.add_argument("--request", metavar="REQUEST.json",
-                       help="the request describing the network, to compare with its plan")
+    audit.add_argument(
+        "--request",
+        metavar="REQUEST.json",
+        help="the request describing the network, to compare with its plan",
+    )
     audit.add_argument("--json", action="store_true", help="print the whole report as JSON")
     _add_service_options(audit)
     audit.set_defaults(**{_HANDLER: _audit})
 
     diagnose = subparsers.add_parser(
-        "diagnose", help="simulate signal propagation; exit 5 unless the request is stable",
+        "diagnose",
+        help="simulate signal propagation; exit 5 unless the request is stable",
         description="Run the service's diagnosis of a request (and alternatives) and print a "
         "verdict per run. Exit code 5 when the request as given is not stable. Estimates from "
         "one synthetic batch, not a promise that training succeeds.",
     )
     diagnose.add_argument("request", help="request JSON file, or - for standard input")
-    diagnose.add_argument("--alternatives", metavar="FILE",
-                          help='JSON: {"label": init override, ...} or [{"label", "init"}]')
+    diagnose.add_argument(
+        "--alternatives",
+        metavar="FILE",
+        help='JSON: {"label": init override, ...} or [{"label", "init"}]',
+    )
     diagnose.add_argument("--batch", type=_attempts, metavar="N", help="synthetic batch size")
-    diagnose.add_argument("--chart", metavar="FILE",
-                          help="also save the chart (SVG; HTML when FILE ends in .html)")
-    diagnose.add_argument("--json", action="store_true",
-                          help="print the whole diagnosis as JSON")
+    diagnose.add_argument(
+        "--chart", metavar="FILE", help="also save the chart (SVG; HTML when FILE ends in .html)"
+    )
+    diagnose.add_argument("--json", action="store_true", help="print the whole diagnosis as JSON")
     _add_service_options(diagnose)
     diagnose.set_defaults(**{_HANDLER: _diagnose})
 

@@ -289,7 +289,11 @@ class _Setup:
         spool_dir: Path | None = None,
     ) -> Flow:
         return recipe_weights_flow(
-            ref, check_format(fmt), self.base_url, self.context, progress=progress,
+            ref,
+            check_format(fmt),
+            self.base_url,
+            self.context,
+            progress=progress,
             spool_dir=spool_dir,
         )
 
@@ -312,12 +316,19 @@ class _Setup:
     ) -> Flow:
         ref = parse_ref(name, "name")
         if ref.version is not None or "@" in name:
-            raise SpecInvalid([Problem("name", "invalid_value",
-                                       f"got {name!r}; publish takes a bare name: the service "
-                                       "assigns the version")])
+            raise SpecInvalid(
+                [
+                    Problem(
+                        "name",
+                        "invalid_value",
+                        f"got {name!r}; publish takes a bare name: the service assigns the version",
+                    )
+                ]
+            )
         secret = publishing_key(key, key_file)
-        return publish_flow(ref.name, request_dict(request, self.limits), description, secret,
-                            self.context)
+        return publish_flow(
+            ref.name, request_dict(request, self.limits), description, secret, self.context
+        )
 
     def audit_flow(self, path: str | os.PathLike[str], request: RequestLike | None) -> Flow:
         data = None if request is None else request_dict(request, self.limits)
@@ -327,8 +338,9 @@ class _Setup:
         body = diagnose_body(request_dict(request, self.limits), alternatives, batch)
         return diagnose_flow(body, self.context)
 
-    def chart_flow(self, request: RequestLike, alternatives: Any, batch: int | None,
-                   kind: str) -> Flow:
+    def chart_flow(
+        self, request: RequestLike, alternatives: Any, batch: int | None, kind: str
+    ) -> Flow:
         body = diagnose_body(request_dict(request, self.limits), alternatives, batch)
         return chart_flow(body, kind, self.context)
 
@@ -340,20 +352,32 @@ class _Setup:
     @staticmethod
     def recipe_set(got: RecipeDelivery) -> WeightSet:
         d = got.delivery
-        return WeightSet(_arrays_of(d), d.manifest, d.etag, d.source,
-                         recipe=str(got.ref), note=got.note)
+        return WeightSet(
+            _arrays_of(d), d.manifest, d.etag, d.source, recipe=str(got.ref), note=got.note
+        )
 
     def recipe_saved(self, got: RecipeDelivery, target: Path, fmt: WeightFormat) -> SavedWeights:
         saved = self.saved(got.delivery, target, fmt)
-        return SavedWeights(saved.path, saved.format, saved.size, saved.manifest, saved.source,
-                            recipe=str(got.ref), note=got.note)
+        return SavedWeights(
+            saved.path,
+            saved.format,
+            saved.size,
+            saved.manifest,
+            saved.source,
+            recipe=str(got.ref),
+            note=got.note,
+        )
 
     @staticmethod
-    def local_set(plan: dict[str, Any], made: tuple[list[dict[str, Any]], list[Any]]
-                  ) -> WeightSet:
+    def local_set(plan: dict[str, Any], made: tuple[list[dict[str, Any]], list[Any]]) -> WeightSet:
         entries, tensors = made
-        return WeightSet({t.name: t.array for t in tensors}, local_manifest(plan, entries), None,
-                         "local", platform_made=tuple(t.name for t in tensors if t.platform))
+        return WeightSet(
+            {t.name: t.array for t in tensors},
+            local_manifest(plan, entries),
+            None,
+            "local",
+            platform_made=tuple(t.name for t in tensors if t.platform),
+        )
 
     @staticmethod
     def one_tensor(delivery: Delivery, name: str) -> np.ndarray:
@@ -445,8 +469,9 @@ class Client:
         if check_origin(origin) == "local":
             return self._local(request, None, None, check_platform(platform_tensors), format)
         if isinstance(request, str):
-            got = drive_sync(self._setup.recipe_weights_flow(parse_ref(request), format),
-                             self._http)
+            got = drive_sync(
+                self._setup.recipe_weights_flow(parse_ref(request), format), self._http
+            )
             return self._setup.recipe_set(got)
         flow = self._setup.weights_flow(request, format, None, None)
         return self._setup.weight_set(drive_sync(flow, self._http))
@@ -468,8 +493,9 @@ class Client:
         """
         request = self._request_of(request)
         if check_origin(origin) == "local":
-            made = self._local(request, name, parse_rows(rows), check_platform(platform_tensors),
-                               format)
+            made = self._local(
+                request, name, parse_rows(rows), check_platform(platform_tensors), format
+            )
             return made[name]
         flow = self._setup.weights_flow(request, format, name, rows)
         return self._setup.one_tensor(drive_sync(flow, self._http), name)
@@ -494,8 +520,9 @@ class Client:
             name: self.tensor(request, name, rows, fmt)
             for name in platform_names(plan, only, platform)
         }
-        made = make_tensors(plan, only=only, rows=rows, platform_tensors=platform,
-                            fetch=lambda n, _r: fetched[n])
+        made = make_tensors(
+            plan, only=only, rows=rows, platform_tensors=platform, fetch=lambda n, _r: fetched[n]
+        )
         return self._setup.local_set(plan, made)
 
     def expected_digests(
@@ -529,8 +556,7 @@ class Client:
 
     def recipe_versions(self, name: str) -> list[RecipeSummary]:
         """The versions of one recipe, oldest first."""
-        result: list[RecipeSummary] = drive_sync(self._setup.recipe_versions_flow(name),
-                                                 self._http)
+        result: list[RecipeSummary] = drive_sync(self._setup.recipe_versions_flow(name), self._http)
         return result
 
     def recipe(self, ref: str) -> StoredRecipe:
@@ -556,23 +582,31 @@ class Client:
 
     # --- audit and diagnose ----------------------------------------------------------------
 
-    def audit(self, path: str | os.PathLike[str], request: RequestLike | None = None
-              ) -> AuditReport:
+    def audit(
+        self, path: str | os.PathLike[str], request: RequestLike | None = None
+    ) -> AuditReport:
         """The service's audit of a weights file (NPZ or safetensors), compared with
         `request`'s plan when given. `report.passed` is False on any error-level finding."""
         result: AuditReport = drive_sync(self._setup.audit_flow(path, request), self._http)
         return result
 
-    def diagnose(self, request: RequestLike, alternatives: Any = None, *,
-                 batch: int | None = None) -> DiagnosisReport:
+    def diagnose(
+        self, request: RequestLike, alternatives: Any = None, *, batch: int | None = None
+    ) -> DiagnosisReport:
         """How signal and gradients travel through the network at the start, for the request
         and each alternative ({label: init override} or [{"label", "init"}]). Estimates."""
         flow = self._setup.diagnose_flow(request, alternatives, batch)
         result: DiagnosisReport = drive_sync(flow, self._http)
         return result
 
-    def diagnosis_chart(self, request: RequestLike, alternatives: Any = None, *,
-                        batch: int | None = None, kind: str = "svg") -> str:
+    def diagnosis_chart(
+        self,
+        request: RequestLike,
+        alternatives: Any = None,
+        *,
+        batch: int | None = None,
+        kind: str = "svg",
+    ) -> str:
         """The diagnosis chart: an SVG image (kind "svg") or an HTML page ("html")."""
         flow = self._setup.chart_flow(request, alternatives, batch, kind)
         result: str = drive_sync(flow, self._http)
@@ -601,13 +635,23 @@ class Client:
         spool = self._setup.spool_dir_for(target)
         if check_origin(origin) == "local":
             if tensor is not None:
-                raise SpecInvalid([Problem("tensor", "not_allowed",
-                                           "save with origin='local' writes every tensor; use "
-                                           "tensor(..., origin='local') for one")])
+                raise SpecInvalid(
+                    [
+                        Problem(
+                            "tensor",
+                            "not_allowed",
+                            "save with origin='local' writes every tensor; use "
+                            "tensor(..., origin='local') for one",
+                        )
+                    ]
+                )
             local_request = self._request_of(request)
             plan = self.plan(local_request)
             manifest, size = write_local(
-                plan, target, fmt, check_platform(platform_tensors),
+                plan,
+                target,
+                fmt,
+                check_platform(platform_tensors),
                 lambda name: self.tensor(local_request, name),
             )
             return SavedWeights(target, fmt, size, manifest, "local")
@@ -678,8 +722,7 @@ class AsyncClient:
         platform_tensors: str = "fetch",
     ) -> WeightSet:
         if check_origin(origin) == "local":
-            return await self._local(request, None, None, check_platform(platform_tensors),
-                                     format)
+            return await self._local(request, None, None, check_platform(platform_tensors), format)
         if isinstance(request, str):
             flow = self._setup.recipe_weights_flow(parse_ref(request), format)
             got = await drive_async(flow, self._http)
@@ -700,8 +743,9 @@ class AsyncClient:
     ) -> np.ndarray:
         request = await self._request_of(request)
         if check_origin(origin) == "local":
-            made = await self._local(request, name, parse_rows(rows),
-                                     check_platform(platform_tensors), format)
+            made = await self._local(
+                request, name, parse_rows(rows), check_platform(platform_tensors), format
+            )
             return made[name]
         flow = self._setup.weights_flow(request, format, name, rows)
         delivery = await drive_async(flow, self._http)
@@ -727,24 +771,27 @@ class AsyncClient:
             for name in platform_names(plan, only, platform)
         }
         made = await asyncio.to_thread(
-            make_tensors, plan, only=only, rows=rows, platform_tensors=platform,
+            make_tensors,
+            plan,
+            only=only,
+            rows=rows,
+            platform_tensors=platform,
             fetch=lambda n, _r: fetched[n],
         )
         return self._setup.local_set(plan, made)
 
     async def recipes(self) -> list[RecipeSummary]:
-        result: list[RecipeSummary] = await drive_async(self._setup.recipe_list_flow(),
-                                                        self._http)
+        result: list[RecipeSummary] = await drive_async(self._setup.recipe_list_flow(), self._http)
         return result
 
     async def recipe_versions(self, name: str) -> list[RecipeSummary]:
         result: list[RecipeSummary] = await drive_async(
-            self._setup.recipe_versions_flow(name), self._http)
+            self._setup.recipe_versions_flow(name), self._http
+        )
         return result
 
     async def recipe(self, ref: str) -> StoredRecipe:
-        result: StoredRecipe = await drive_async(self._setup.stored_recipe_flow(ref),
-                                                 self._http)
+        result: StoredRecipe = await drive_async(self._setup.stored_recipe_flow(ref), self._http)
         return result
 
     async def publish(
@@ -760,20 +807,28 @@ class AsyncClient:
         result: PublishedRecipe = await drive_async(flow, self._http)
         return result
 
-    async def audit(self, path: str | os.PathLike[str], request: RequestLike | None = None
-                    ) -> AuditReport:
+    async def audit(
+        self, path: str | os.PathLike[str], request: RequestLike | None = None
+    ) -> AuditReport:
         flow = await asyncio.to_thread(self._setup.audit_flow, path, request)
         result: AuditReport = await drive_async(flow, self._http)
         return result
 
-    async def diagnose(self, request: RequestLike, alternatives: Any = None, *,
-                       batch: int | None = None) -> DiagnosisReport:
+    async def diagnose(
+        self, request: RequestLike, alternatives: Any = None, *, batch: int | None = None
+    ) -> DiagnosisReport:
         flow = self._setup.diagnose_flow(request, alternatives, batch)
         result: DiagnosisReport = await drive_async(flow, self._http)
         return result
 
-    async def diagnosis_chart(self, request: RequestLike, alternatives: Any = None, *,
-                              batch: int | None = None, kind: str = "svg") -> str:
+    async def diagnosis_chart(
+        self,
+        request: RequestLike,
+        alternatives: Any = None,
+        *,
+        batch: int | None = None,
+        kind: str = "svg",
+    ) -> str:
         flow = self._setup.chart_flow(request, alternatives, batch, kind)
         result: str = await drive_async(flow, self._http)
         return result
@@ -795,14 +850,23 @@ class AsyncClient:
         spool = self._setup.spool_dir_for(target)
         if check_origin(origin) == "local":
             if tensor is not None:
-                raise SpecInvalid([Problem("tensor", "not_allowed",
-                                           "save with origin='local' writes every tensor; use "
-                                           "tensor(..., origin='local') for one")])
+                raise SpecInvalid(
+                    [
+                        Problem(
+                            "tensor",
+                            "not_allowed",
+                            "save with origin='local' writes every tensor; use "
+                            "tensor(..., origin='local') for one",
+                        )
+                    ]
+                )
             platform = check_platform(platform_tensors)
             local_request = await self._request_of(request)
             plan = await self.plan(local_request)
-            fetched = {name: await self.tensor(local_request, name)
-                       for name in platform_names(plan, None, platform)}
+            fetched = {
+                name: await self.tensor(local_request, name)
+                for name in platform_names(plan, None, platform)
+            }
             manifest, size = await asyncio.to_thread(
                 write_local, plan, target, fmt, platform, lambda name: fetched[name]
             )

@@ -415,8 +415,9 @@ def weights_flow(
         if cached is None or entry is None or cache is None:
             raise IntegrityError("the service answered 304 Not Modified to a plain request")
         cache.touch(entry, reply.headers.get("etag"))
-        return Delivery(cached.inspection, cached.buffer, cached.etag, "revalidated", cached.path,
-                        cached.handle)
+        return Delivery(
+            cached.inspection, cached.buffer, cached.etag, "revalidated", cached.path, cached.handle
+        )
     if cached is not None and cached.path is not None:
         Path(cached.path).unlink(missing_ok=True)  # superseded by the new answer
     if cached is not None and cached.handle is not None:

@@ -67,11 +67,16 @@ def recipes_of(plan: Mapping[str, Any]) -> list[tuple[dict[str, Any], TensorReci
     if not isinstance(seed, int | str) or not isinstance(dtype, str):
         raise IntegrityError("the plan has no usable seed and dtype; cannot generate locally")
     if dtype == "bfloat16" and importlib.util.find_spec("ml_dtypes") is None:
-        raise SpecInvalid([Problem(
-            "origin", "needs_extra",
-            "generating bfloat16 locally rounds with ml_dtypes, which is not installed: "
-            "pip install 'seedbed-client[bfloat16]', or use origin='service'",
-        )])
+        raise SpecInvalid(
+            [
+                Problem(
+                    "origin",
+                    "needs_extra",
+                    "generating bfloat16 locally rounds with ml_dtypes, which is not installed: "
+                    "pip install 'seedbed-client[bfloat16]', or use origin='service'",
+                )
+            ]
+        )
     out = []
     for entry in plan.get("tensors", []):
         try:

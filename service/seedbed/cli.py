@@ -162,15 +162,21 @@ def _settings(args: argparse.Namespace) -> int:
     except RegistryConfigError as exc:
         print(f"seedbed: {exc}", file=sys.stderr)
         return 2
-    print(f"registry database: {registry.describe()} ({registry.backend}; "
-          "SEEDBED_DATABASE_URL, default an SQLite file under SEEDBED_DATA_DIR)")
-    print(f"registry reads need a key: {'on' if registry.read_requires_key else 'off'} "
-          "(SEEDBED_READ_REQUIRES_KEY)")
+    print(
+        f"registry database: {registry.describe()} ({registry.backend}; "
+        "SEEDBED_DATABASE_URL, default an SQLite file under SEEDBED_DATA_DIR)"
+    )
+    print(
+        f"registry reads need a key: {'on' if registry.read_requires_key else 'off'} "
+        "(SEEDBED_READ_REQUIRES_KEY)"
+    )
     from seedbed_client.generator import kernel
 
     state = kernel.status() if current.generator_kernel else kernel.set_enabled(False)
-    print(f"generator: {state.describe()}; {current.threads_per_request()} thread(s) per "
-          "request (SEEDBED_GENERATOR_KERNEL, SEEDBED_GENERATION_THREADS)")
+    print(
+        f"generator: {state.describe()}; {current.threads_per_request()} thread(s) per "
+        "request (SEEDBED_GENERATOR_KERNEL, SEEDBED_GENERATION_THREADS)"
+    )
     _client_settings()
     return 0
 
@@ -197,8 +203,10 @@ def _client_settings() -> None:
     print("client commands:")
     url = client_environment(ENV_URL) or DEFAULT_URL
     print(f"  {ENV_URL}={url}  ({_origin(ENV_URL, DEFAULT_URL)})")
-    print(f"  {ENV_DIR}={default_cache_dir()}  "
-          f"({_origin(ENV_DIR, 'the per-user cache directory + seedbed')})")
+    print(
+        f"  {ENV_DIR}={default_cache_dir()}  "
+        f"({_origin(ENV_DIR, 'the per-user cache directory + seedbed')})"
+    )
     try:
         limit: object = default_max_bytes()
     except ValueError as exc:

@@ -70,17 +70,26 @@ def run(args: argparse.Namespace, out: TextIO | None = None, err: TextIO | None 
         return 2
     except SQLAlchemyError as exc:
         inner = getattr(exc, "orig", None) or exc
-        _out(err, f"seedbed: cannot open the registry database: {type(inner).__name__}: "
-                  f"{str(inner).strip().splitlines()[0]}")
+        _out(
+            err,
+            f"seedbed: cannot open the registry database: {type(inner).__name__}: "
+            f"{str(inner).strip().splitlines()[0]}",
+        )
         return 2
     try:
         action = args.keys_action
         if action == "create":
             made = create_key(registry.engine, args.name)
-            _out(out, f"created key {made.info.name!r} at {iso(made.info.created_at)} "
-                      f"in {registry.config.describe()}")
-            _out(out, "Copy the token below now: it is shown only this once; only its hash is "
-                      "stored. Send it as 'Authorization: Bearer <token>'.")
+            _out(
+                out,
+                f"created key {made.info.name!r} at {iso(made.info.created_at)} "
+                f"in {registry.config.describe()}",
+            )
+            _out(
+                out,
+                "Copy the token below now: it is shown only this once; only its hash is "
+                "stored. Send it as 'Authorization: Bearer <token>'.",
+            )
             _out(out, made.token)  # must stay the last line: scripts read it with tail -n 1
         elif action == "list":
             rows = list_keys(registry.engine)
@@ -95,8 +104,11 @@ def run(args: argparse.Namespace, out: TextIO | None = None, err: TextIO | None 
         elif action == "revoke":
             info = revoke_key(registry.engine, args.name)
             assert info.revoked_at is not None
-            _out(out, f"revoked key {info.name!r} at {iso(info.revoked_at)}; every replica "
-                      "refuses it from the next request on")
+            _out(
+                out,
+                f"revoked key {info.name!r} at {iso(info.revoked_at)}; every replica "
+                "refuses it from the next request on",
+            )
         else:  # argparse only lets the three through
             _out(err, f"seedbed: unknown keys action {action!r}")
             return 2
@@ -105,8 +117,11 @@ def run(args: argparse.Namespace, out: TextIO | None = None, err: TextIO | None 
         return 1
     except SQLAlchemyError as exc:
         inner = getattr(exc, "orig", None) or exc
-        _out(err, f"seedbed: the registry database failed: {type(inner).__name__}: "
-                  f"{str(inner).strip().splitlines()[0]}")
+        _out(
+            err,
+            f"seedbed: the registry database failed: {type(inner).__name__}: "
+            f"{str(inner).strip().splitlines()[0]}",
+        )
         return 2
     finally:
         registry.close()

@@ -221,8 +221,11 @@ def settings_table() -> list[tuple[str, str, str]]:
         for f in dataclasses.fields(Limits)
     ]
     rows += [
-        (DIAGNOSE_PREFIX + f.name.upper(), shown(getattr(defaults.diagnostics, f.name)),
-         f"diagnostics.{f.name}")
+        (
+            DIAGNOSE_PREFIX + f.name.upper(),
+            shown(getattr(defaults.diagnostics, f.name)),
+            f"diagnostics.{f.name}",
+        )
         for f in dataclasses.fields(DiagnosticLimits)
     ]
     return rows

@@ -93,7 +93,10 @@ def client_only(tmp_path_factory: pytest.TempPathFactory) -> ClientOnly:
 @pytest.mark.slow
 def test_client_installs_alone_with_only_its_dependencies(client_only: ClientOnly) -> None:
     python, venv, tmp_path, baseline = (
-        client_only.python, client_only.venv, client_only.home, client_only.baseline
+        client_only.python,
+        client_only.venv,
+        client_only.home,
+        client_only.baseline,
     )
 
     closure = _run(str(python), "-c", _CLOSURE_SCRIPT, json.dumps(baseline), cwd=tmp_path)
@@ -169,10 +172,21 @@ def _policy_requests() -> list[tuple[str, dict[str, object]]]:
     blocks = {
         "seed": "tidal-turbine/v3",
         "layers": [
-            {"name": "stem", "kind": "conv", "channels_in": 3, "channels_out": 12,
-             "kernel": [3, 3], "activation": "relu"},
-            {"name": "res", "kind": "residual_conv_block", "channels": 12, "kernel": [3, 3],
-             "repeat": 3},
+            {
+                "name": "stem",
+                "kind": "conv",
+                "channels_in": 3,
+                "channels_out": 12,
+                "kernel": [3, 3],
+                "activation": "relu",
+            },
+            {
+                "name": "res",
+                "kind": "residual_conv_block",
+                "channels": 12,
+                "kernel": [3, 3],
+                "repeat": 3,
+            },
             {"name": "head", "kind": "dense", "n_in": 12, "n_out": 4, "role": "output"},
         ],
     }
@@ -182,8 +196,15 @@ def _policy_requests() -> list[tuple[str, dict[str, object]]]:
         "layout": "in_out",
         "layers": [
             {"name": "tokens", "kind": "embedding", "vocab": 50, "dim": 16},
-            {"name": "enc", "kind": "transformer_block", "dim": 16, "heads": 2, "mlp_dim": 32,
-             "norm": "pre", "repeat": 3},
+            {
+                "name": "enc",
+                "kind": "transformer_block",
+                "dim": 16,
+                "heads": 2,
+                "mlp_dim": 32,
+                "norm": "pre",
+                "repeat": 3,
+            },
             {"name": "out", "kind": "dense", "n_in": 16, "n_out": 50, "role": "output"},
         ],
     }
@@ -191,8 +212,14 @@ def _policy_requests() -> list[tuple[str, dict[str, object]]]:
         ("fixup", {**blocks, "depth_policy": {"name": "fixup"}}),
         ("skip_gate", {**blocks, "dtype": "bfloat16", "depth_policy": {"name": "skip_gate"}}),
         ("scaled_residual", {**stack, "depth_policy": {"name": "scaled_residual"}}),
-        ("deepnorm", {**stack, "layout": "out_in",
-                      "depth_policy": {"name": "deepnorm", "architecture": "encoder"}}),
+        (
+            "deepnorm",
+            {
+                **stack,
+                "layout": "out_in",
+                "depth_policy": {"name": "deepnorm", "architecture": "encoder"},
+            },
+        ),
     ]
 
 
@@ -208,10 +235,12 @@ def test_local_generation_equals_the_service_without_the_service_installed(
     # Row blocks on every kind of served axis: generation order (out_in), transposed conv
     # kernels and dense matrices (in_out), embeddings, recurrent gate stacks.
     block_choice = {
-        "float32-out_in": [("patch.weight", 3, 11), ("memory.recurrent_weight", 5, 30),
-                           ("tokens.weight", 90, 97)],
-        "float64-in_out": [("patch.weight", 1, 3), ("body.weight", 7, 19),
-                           ("lift.weight", 0, 1)],
+        "float32-out_in": [
+            ("patch.weight", 3, 11),
+            ("memory.recurrent_weight", 5, 30),
+            ("tokens.weight", 90, 97),
+        ],
+        "float64-in_out": [("patch.weight", 1, 3), ("body.weight", 7, 19), ("lift.weight", 0, 1)],
         "bfloat16-in_out": [("memory.input_weight", 2, 9), ("mixer.query.weight", 0, 5)],
         "scaled_residual": [("enc.1.mlp_in.weight", 3, 12)],
     }
@@ -219,13 +248,21 @@ def test_local_generation_equals_the_service_without_the_service_installed(
         case["blocks"] = block_choice.get(case["name"], [])
     # bfloat16 rounding needs ml_dtypes, which the client's `bfloat16` extra brings; still no
     # web framework, pydantic or database layer. Installed after the closure test has looked.
-    extra = _run(str(client_only.python), "-m", "pip", "install", "-q", "ml_dtypes",
-                 cwd=client_only.home)
+    extra = _run(
+        str(client_only.python), "-m", "pip", "install", "-q", "ml_dtypes", cwd=client_only.home
+    )
     assert extra.returncode == 0, extra.stderr
     table = client_only.home / "table.json"
     table.write_text(json.dumps({"cases": cases, "golden": golden}), encoding="utf-8")
-    done = _run(str(client_only.python), "-c", _LOCAL_SCRIPT, service.base_url, str(table),
-                cwd=client_only.home, timeout=600)
+    done = _run(
+        str(client_only.python),
+        "-c",
+        _LOCAL_SCRIPT,
+        service.base_url,
+        str(table),
+        cwd=client_only.home,
+        timeout=600,
+    )
     assert done.returncode == 0, done.stdout + done.stderr
     checked = json.loads(done.stdout.strip().splitlines()[-1])
     # Every golden case's non-orthogonal tensors were compared with the committed digests.

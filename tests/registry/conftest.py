@@ -36,8 +36,9 @@ def pg_admin_url() -> Iterator[str]:
     except (ClusterUnavailable, OSError) as exc:
         if os.environ.get("SEEDBED_REQUIRE_ORACLES") == "1":
             pytest.fail(f"PostgreSQL is required here but could not be started: {exc}")
-        pytest.skip(f"PostgreSQL unavailable (set SEEDBED_TEST_POSTGRES_URL or install "
-                    f"postgresql): {exc}")
+        pytest.skip(
+            f"PostgreSQL unavailable (set SEEDBED_TEST_POSTGRES_URL or install postgresql): {exc}"
+        )
     try:
         yield cluster.admin_url
     finally:

@@ -36,8 +36,10 @@ class ClusterUnavailable(RuntimeError):  # noqa: N818 - reads as a state, like t
 
 
 def _binaries() -> Path:
-    found = sorted(glob.glob("/usr/lib/postgresql/*/bin/initdb"),
-                   key=lambda p: int(Path(p).parts[4]) if Path(p).parts[4].isdigit() else 0)
+    found = sorted(
+        glob.glob("/usr/lib/postgresql/*/bin/initdb"),
+        key=lambda p: int(Path(p).parts[4]) if Path(p).parts[4].isdigit() else 0,
+    )
     if not found:
         raise ClusterUnavailable(
             "no PostgreSQL binaries under /usr/lib/postgresql/*/bin (apt-get install postgresql)"
@@ -67,9 +69,18 @@ class Cluster:
 
     def stop(self) -> None:
         subprocess.run(
-            self._cmd(str(self.bin_dir / "pg_ctl"), "-D", str(self.directory / "data"),
-                      "-m", "immediate", "-w", "stop"),
-            capture_output=True, timeout=60, check=False,
+            self._cmd(
+                str(self.bin_dir / "pg_ctl"),
+                "-D",
+                str(self.directory / "data"),
+                "-m",
+                "immediate",
+                "-w",
+                "stop",
+            ),
+            capture_output=True,
+            timeout=60,
+            check=False,
         )
         shutil.rmtree(self.directory, ignore_errors=True)
 
@@ -89,19 +100,38 @@ def start_cluster() -> Cluster:
     cluster = Cluster(directory, _free_port(), bin_dir, run_as)
     data = directory / "data"
     steps = [
-        cluster._cmd(str(bin_dir / "initdb"), "-D", str(data), "-U", "postgres", "-A", "trust",
-                     "-E", "UTF8", "--locale=C", "--no-sync"),
         cluster._cmd(
-            str(bin_dir / "pg_ctl"), "-D", str(data), "-l", str(directory / "server.log"),
-            "-w", "-t", str(START_TIMEOUT_S), "-o",
+            str(bin_dir / "initdb"),
+            "-D",
+            str(data),
+            "-U",
+            "postgres",
+            "-A",
+            "trust",
+            "-E",
+            "UTF8",
+            "--locale=C",
+            "--no-sync",
+        ),
+        cluster._cmd(
+            str(bin_dir / "pg_ctl"),
+            "-D",
+            str(data),
+            "-l",
+            str(directory / "server.log"),
+            "-w",
+            "-t",
+            str(START_TIMEOUT_S),
+            "-o",
             f"-p {cluster.port} -k {directory} -c listen_addresses=127.0.0.1 -c fsync=off "
             "-c full_page_writes=off -c max_connections=300",
             "start",
         ),
     ]
     for command in steps:
-        done = subprocess.run(command, capture_output=True, text=True, timeout=START_TIMEOUT_S + 30,
-                              check=False)
+        done = subprocess.run(
+            command, capture_output=True, text=True, timeout=START_TIMEOUT_S + 30, check=False
+        )
         if done.returncode != 0:
             log = ""
             with contextlib.suppress(OSError):

@@ -21,8 +21,10 @@ from seedbed.registry.store import publish
 
 def main(name: str, count: int, token: str, go_file: str) -> None:
     registry = open_registry()
-    body = {"name": name, "request": {"seed": 77, "layers": [
-        {"name": "w", "kind": "dense", "n_in": 6, "n_out": 4}]}}
+    body = {
+        "name": name,
+        "request": {"seed": 77, "layers": [{"name": "w", "kind": "dense", "n_in": 6, "n_out": 4}]},
+    }
     prepared = prepare_recipe(body)
     deadline = time.monotonic() + 60
     while not Path(go_file).exists():

@@ -36,16 +36,22 @@ def start_registry_server(env: Mapping[str, str], log_dir: Path) -> RunningServe
     command = _command(port)
     log_path = log_dir / f"server-{port}.log"
     with open(log_path, "wb") as log:
-        process = subprocess.Popen(command, cwd=ROOT, env=child_environment(env, log_dir),
-                                   stdin=subprocess.DEVNULL, stdout=log,
-                                   stderr=subprocess.STDOUT)
+        process = subprocess.Popen(
+            command,
+            cwd=ROOT,
+            env=child_environment(env, log_dir),
+            stdin=subprocess.DEVNULL,
+            stdout=log,
+            stderr=subprocess.STDOUT,
+        )
     server = RunningServer(port=port, process=process, log_path=log_path, command=command)
     deadline = time.monotonic() + STARTUP_TIMEOUT_S
     with httpx.Client(base_url=server.base_url, timeout=5.0) as client:
         while time.monotonic() < deadline:
             if not server.alive():
-                raise ServerStartError(f"server exited ({process.returncode}):\n"
-                                       f"{server.log_tail()}")
+                raise ServerStartError(
+                    f"server exited ({process.returncode}):\n{server.log_tail()}"
+                )
             try:
                 if client.get("/v1/recipes").status_code == 200:
                     return server

@@ -16,12 +16,11 @@ def test_data_dir_precedence(tmp_path: Path) -> None:
     # value is invalid and ignored (common practice, from the spec's text [from memory]).
     home = str(tmp_path / "home")
     assert default_data_dir({"HOME": home}) == Path(home) / ".local/share/seedbed"
-    assert default_data_dir({"HOME": home, "XDG_DATA_HOME": "/srv/xdg"}) == Path(
-        "/srv/xdg/seedbed"
+    assert default_data_dir({"HOME": home, "XDG_DATA_HOME": "/srv/xdg"}) == Path("/srv/xdg/seedbed")
+    assert (
+        default_data_dir({"HOME": home, "XDG_DATA_HOME": "rel/dir"})
+        == Path(home) / ".local/share/seedbed"
     )
-    assert default_data_dir({"HOME": home, "XDG_DATA_HOME": "rel/dir"}) == Path(
-        home
-    ) / ".local/share/seedbed"
     assert default_data_dir(
         {"HOME": home, "XDG_DATA_HOME": "/srv/xdg", "SEEDBED_DATA_DIR": "/var/lib/seedbed"}
     ) == Path("/var/lib/seedbed")
@@ -39,8 +38,10 @@ def test_default_is_an_sqlite_file_in_the_data_dir(tmp_path: Path) -> None:
     [
         ("postgresql://u:p@db:5432/seedbed", "postgresql+psycopg://u:p@db:5432/seedbed"),
         ("postgres://u@db/seedbed", "postgresql+psycopg://u@db/seedbed"),
-        ("postgresql+psycopg://u@db/s?sslmode=require",
-         "postgresql+psycopg://u@db/s?sslmode=require"),
+        (
+            "postgresql+psycopg://u@db/s?sslmode=require",
+            "postgresql+psycopg://u@db/s?sslmode=require",
+        ),
         ("sqlite:////var/lib/seedbed/x.sqlite3", "sqlite+pysqlite:////var/lib/seedbed/x.sqlite3"),
     ],
 )
@@ -89,16 +90,22 @@ def test_shared_database_refuses_sqlite(tmp_path: Path) -> None:
     with pytest.raises(RegistryConfigError, match="SEEDBED_SHARED_DATABASE=1 but neither"):
         config_from_env({"SEEDBED_SHARED_DATABASE": "1", "SEEDBED_DATA_DIR": str(tmp_path)})
     with pytest.raises(RegistryConfigError, match="is an SQLite file"):
-        config_from_env({"SEEDBED_SHARED_DATABASE": "on",
-                         "SEEDBED_DATABASE_URL": f"sqlite:///{tmp_path}/x.sqlite3"})
-    ok = config_from_env({"SEEDBED_SHARED_DATABASE": "1",
-                          "SEEDBED_DATABASE_URL": "postgresql://u@db/x"})
+        config_from_env(
+            {
+                "SEEDBED_SHARED_DATABASE": "on",
+                "SEEDBED_DATABASE_URL": f"sqlite:///{tmp_path}/x.sqlite3",
+            }
+        )
+    ok = config_from_env(
+        {"SEEDBED_SHARED_DATABASE": "1", "SEEDBED_DATABASE_URL": "postgresql://u@db/x"}
+    )
     assert ok.backend == "postgresql"
 
 
 def test_read_protection_switch() -> None:
-    assert config_from_env({"SEEDBED_READ_REQUIRES_KEY": "1",
-                            "SEEDBED_DATA_DIR": "/tmp/x"}).read_requires_key
+    assert config_from_env(
+        {"SEEDBED_READ_REQUIRES_KEY": "1", "SEEDBED_DATA_DIR": "/tmp/x"}
+    ).read_requires_key
     with pytest.raises(RegistryConfigError, match="SEEDBED_READ_REQUIRES_KEY='maybe'"):
         config_from_env({"SEEDBED_READ_REQUIRES_KEY": "maybe"})
 

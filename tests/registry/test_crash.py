@@ -23,10 +23,13 @@ WRITERS = 6
 
 def _request(i: int) -> dict[str, Any]:
     # Invented scenario: per-pump anomaly detectors, one small network per publish.
-    return {"seed": i, "layers": [
-        {"name": "flow", "kind": "dense", "n_in": 10, "n_out": 8 + i % 5, "activation": "relu"},
-        {"name": "alarm", "kind": "dense", "n_in": 8 + i % 5, "n_out": 2, "role": "output"},
-    ]}
+    return {
+        "seed": i,
+        "layers": [
+            {"name": "flow", "kind": "dense", "n_in": 10, "n_out": 8 + i % 5, "activation": "relu"},
+            {"name": "alarm", "kind": "dense", "n_in": 8 + i % 5, "n_out": 2, "role": "output"},
+        ],
+    }
 
 
 def test_sigkill_mid_publish_loses_nothing_acknowledged(
@@ -49,8 +52,9 @@ def test_sigkill_mid_publish_loses_nothing_acknowledged(
                     i = next(counter)
                 body = {"name": NAMES[i % len(NAMES)], "request": _request(i)}
                 try:
-                    r = client.post("/v1/recipes", json=body,
-                                    headers={"Authorization": f"Bearer {token}"})
+                    r = client.post(
+                        "/v1/recipes", json=body, headers={"Authorization": f"Bearer {token}"}
+                    )
                 except httpx.TransportError:
                     with lock:
                         interrupted.append(i)  # cut off in flight: never acknowledged
@@ -101,4 +105,3 @@ def test_sigkill_mid_publish_loses_nothing_acknowledged(
         assert {(r.summary.name, r.summary.version) for r in records} >= set(acked)
     finally:
         restarted.stop()
-

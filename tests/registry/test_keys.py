@@ -64,9 +64,7 @@ def test_authentication(registry: Registry) -> None:
         authenticate(registry.engine, "hunter2")
 
 
-def test_comparison_is_constant_time(
-    registry: Registry, monkeypatch: pytest.MonkeyPatch
-) -> None:
+def test_comparison_is_constant_time(registry: Registry, monkeypatch: pytest.MonkeyPatch) -> None:
     made = create_key(registry.engine, "timing")
     seen: list[tuple[str, str]] = []
     real = keys_mod.hmac.compare_digest
@@ -114,8 +112,12 @@ def test_list_shows_names_and_times(registry: Registry) -> None:
 
 @pytest.mark.parametrize(
     ("header", "words"),
-    [(None, "needs a publishing key"), ("", "needs a publishing key"),
-     ("Basic dXNlcjpwdw==", "must be 'Bearer <key>'"), ("Bearer   ", "must be 'Bearer <key>'")],
+    [
+        (None, "needs a publishing key"),
+        ("", "needs a publishing key"),
+        ("Basic dXNlcjpwdw==", "must be 'Bearer <key>'"),
+        ("Bearer   ", "must be 'Bearer <key>'"),
+    ],
 )
 def test_authorization_header_parsing(header: str | None, words: str) -> None:
     with pytest.raises(AuthenticationError, match=words):
@@ -123,8 +125,9 @@ def test_authorization_header_parsing(header: str | None, words: str) -> None:
     assert bearer_token("bearer  sbk1_x ") == "sbk1_x"
 
 
-def _run_cli(argv: list[str], env: dict[str, str], monkeypatch: pytest.MonkeyPatch
-             ) -> tuple[int, str, str]:
+def _run_cli(
+    argv: list[str], env: dict[str, str], monkeypatch: pytest.MonkeyPatch
+) -> tuple[int, str, str]:
     for k, v in env.items():
         monkeypatch.setenv(k, v)
     parser = argparse.ArgumentParser(prog="seedbed")
@@ -158,9 +161,9 @@ def test_cli_create_list_revoke(
 
 
 def test_cli_reports_an_unreachable_database(monkeypatch: pytest.MonkeyPatch) -> None:
-    code, _, err = _run_cli(["keys", "list"],
-                            {"SEEDBED_DATABASE_URL": "postgresql://u@127.0.0.1:1/none"},
-                            monkeypatch)
+    code, _, err = _run_cli(
+        ["keys", "list"], {"SEEDBED_DATABASE_URL": "postgresql://u@127.0.0.1:1/none"}, monkeypatch
+    )
     assert code == 2 and "cannot open the registry database" in err
 
 
@@ -177,8 +180,14 @@ def test_token_is_the_last_line_of_a_real_process(tmp_path: Path) -> None:
     env = {k: v for k, v in os.environ.items() if not k.startswith("SEEDBED_")}
     env["SEEDBED_DATA_DIR"] = str(tmp_path)
     env["PYTHONPATH"] = str(ROOT / "service")
-    done = subprocess.run([*_cli_command(), "keys", "create", "river-gauges"], env=env,
-                          capture_output=True, text=True, timeout=60, check=False)
+    done = subprocess.run(
+        [*_cli_command(), "keys", "create", "river-gauges"],
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=60,
+        check=False,
+    )
     assert done.returncode == 0, done.stderr
     token = done.stdout.rstrip("\n").splitlines()[-1]
     registry = open_registry(config_from_env(env))

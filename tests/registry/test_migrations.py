@@ -16,10 +16,13 @@ from seedbed.registry.store import every_version, get_version, integrity_problem
 from seedbed.registry.tables import metadata, recipe_heads, schema_steps
 
 # Invented scenario: a beehive-sound classifier a team versioned under schema 1.
-HIVE = {"seed": 5150, "layers": [
-    {"name": "hum", "kind": "dense", "n_in": 16, "n_out": 8, "activation": "tanh"},
-    {"name": "verdict", "kind": "dense", "n_in": 8, "n_out": 3, "role": "output"},
-]}
+HIVE = {
+    "seed": 5150,
+    "layers": [
+        {"name": "hum", "kind": "dense", "n_in": 16, "n_out": 8, "activation": "tanh"},
+        {"name": "verdict", "kind": "dense", "n_in": 8, "n_out": 3, "role": "output"},
+    ],
+}
 TOKEN = "sbk1_0123456789abcdef_" + "A" * 43
 
 
@@ -37,22 +40,38 @@ def _insert_v1_rows(config: RegistryConfig) -> None:
         assert not inspect(engine).has_table("recipe_heads")
         when = datetime(2026, 3, 1, 12, 0, tzinfo=UTC)
         with engine.begin() as conn:
-            conn.execute(text(
-                "INSERT INTO publish_keys (name, lookup_id, token_sha256, created_at) "
-                "VALUES ('hive-team', '0123456789abcdef', :h, :t)"), {"h": token_hash(TOKEN),
-                                                                     "t": when})
+            conn.execute(
+                text(
+                    "INSERT INTO publish_keys (name, lookup_id, token_sha256, created_at) "
+                    "VALUES ('hive-team', '0123456789abcdef', :h, :t)"
+                ),
+                {"h": token_hash(TOKEN), "t": when},
+            )
             for name, count in (("hive-sounds", 3), ("queen-piping", 1)):
                 for version in range(1, count + 1):
-                    body = {"name": name, "description": f"take {version}",
-                            "request": {**HIVE, "seed": version}}
+                    body = {
+                        "name": name,
+                        "description": f"take {version}",
+                        "request": {**HIVE, "seed": version},
+                    }
                     p = prepare_recipe(body)
-                    conn.execute(text(
-                        "INSERT INTO recipe_versions (name, version, description, request_json,"
-                        " plan_json, fingerprints_json, algorithm, publisher, published_at) "
-                        "VALUES (:n, :v, :d, :r, :p, :f, :a, 'hive-team', :t)"),
-                        {"n": name, "v": version, "d": p.description, "r": p.request_json,
-                         "p": p.plan_json, "f": p.fingerprints_json, "a": p.algorithm,
-                         "t": when})
+                    conn.execute(
+                        text(
+                            "INSERT INTO recipe_versions (name, version, description, request_json,"
+                            " plan_json, fingerprints_json, algorithm, publisher, published_at) "
+                            "VALUES (:n, :v, :d, :r, :p, :f, :a, 'hive-team', :t)"
+                        ),
+                        {
+                            "n": name,
+                            "v": version,
+                            "d": p.description,
+                            "r": p.request_json,
+                            "p": p.plan_json,
+                            "f": p.fingerprints_json,
+                            "a": p.algorithm,
+                            "t": when,
+                        },
+                    )
     finally:
         engine.dispose()
 
@@ -65,12 +84,17 @@ def test_upgrade_from_version_1_keeps_and_completes_the_data(
     try:
         assert migrations.schema_version(registry.engine) == migrations.LATEST == 2
         with registry.engine.connect() as conn:
-            heads = dict(conn.execute(
-                select(recipe_heads.c.name, recipe_heads.c.latest_version)).all())
+            heads = dict(
+                conn.execute(select(recipe_heads.c.name, recipe_heads.c.latest_version)).all()
+            )
         assert heads == {"hive-sounds": 3, "queen-piping": 1}
         stored = list(every_version(registry.engine))
         assert [(r.summary.name, r.summary.version) for r in stored] == [
-            ("hive-sounds", 1), ("hive-sounds", 2), ("hive-sounds", 3), ("queen-piping", 1)]
+            ("hive-sounds", 1),
+            ("hive-sounds", 2),
+            ("hive-sounds", 3),
+            ("queen-piping", 1),
+        ]
         for record in stored:  # the backfilled digest matches the untouched texts
             assert record.content_sha256 is not None
             assert integrity_problems(record) == []
@@ -99,9 +123,13 @@ def test_a_database_from_a_newer_seedbed_is_refused(empty_config: RegistryConfig
     registry = open_registry(empty_config)
     try:
         with registry.engine.begin() as conn:
-            conn.execute(schema_steps.insert().values(
-                version=migrations.LATEST + 1, description="from the future",
-                applied_at=datetime.now(UTC)))
+            conn.execute(
+                schema_steps.insert().values(
+                    version=migrations.LATEST + 1,
+                    description="from the future",
+                    applied_at=datetime.now(UTC),
+                )
+            )
         with pytest.raises(migrations.SchemaTooNewError, match="at least as new"):
             migrations.upgrade(registry.engine)
         assert registry.ping() is not None and "schema version" in (registry.ping() or "")
@@ -153,8 +181,11 @@ def test_replicas_starting_together_migrate_once(empty_config: RegistryConfig) -
     engine = open_engine(empty_config)
     try:
         with engine.connect() as conn:
-            versions = conn.execute(select(schema_steps.c.version)
-                                    .order_by(schema_steps.c.version)).scalars().all()
+            versions = (
+                conn.execute(select(schema_steps.c.version).order_by(schema_steps.c.version))
+                .scalars()
+                .all()
+            )
             count = conn.execute(select(func.count()).select_from(recipe_heads)).scalar()
         assert versions == list(range(1, migrations.LATEST + 1))
         assert count == 0

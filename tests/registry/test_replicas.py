@@ -32,8 +32,14 @@ TURBINE: dict[str, Any] = {
     "dtype": "bfloat16",
     "layout": "in_out",
     "layers": [
-        {"name": "blade", "kind": "conv", "channels_in": 3, "channels_out": 6, "kernel": [5],
-         "activation": "gelu"},
+        {
+            "name": "blade",
+            "kind": "conv",
+            "channels_in": 3,
+            "channels_out": 6,
+            "kernel": [5],
+            "activation": "gelu",
+        },
         {"name": "nacelle", "kind": "dense", "n_in": 30, "n_out": 20, "activation": "silu"},
         {"name": "fault", "kind": "dense", "n_in": 20, "n_out": 4, "role": "output"},
     ],
@@ -49,8 +55,9 @@ def database(pg_admin_url: str) -> Iterator[dict[str, str]]:
 
 
 @pytest.fixture(scope="module")
-def replicas(database: dict[str, str], tmp_path_factory: pytest.TempPathFactory
-             ) -> Iterator[list[RunningServer]]:
+def replicas(
+    database: dict[str, str], tmp_path_factory: pytest.TempPathFactory
+) -> Iterator[list[RunningServer]]:
     logs = tmp_path_factory.mktemp("replicas")
     started: list[RunningServer] = []
     errors: list[BaseException] = []
@@ -93,15 +100,17 @@ def test_published_through_one_is_served_identically_by_all(
 ) -> None:
     a, b, c = (httpx.Client(base_url=s.base_url, timeout=60) for s in replicas)
     try:
-        r = a.post("/v1/recipes", headers=_auth(token),
-                   json={"name": "turbine", "request": TURBINE, "description": "v1 of the rig"})
+        r = a.post(
+            "/v1/recipes",
+            headers=_auth(token),
+            json={"name": "turbine", "request": TURBINE, "description": "v1 of the rig"},
+        )
         assert r.status_code == 201, r.text
         version = r.json()["version"]
         for fmt in ("json", "npz", "safetensors"):
             reference = a.post("/v1/weights", params={"format": fmt}, json=TURBINE)
             for client in (b, c):
-                got = client.get(f"/v1/recipes/turbine/{version}/weights",
-                                 params={"format": fmt})
+                got = client.get(f"/v1/recipes/turbine/{version}/weights", params={"format": fmt})
                 assert got.status_code == 200
                 assert got.content == reference.content, fmt
                 assert got.headers["etag"] == reference.headers["etag"]
@@ -127,16 +136,22 @@ def test_concurrent_publishes_through_all_replicas_get_distinct_versions(
             for i in range(5):
                 # Distinct requests: one identical to the newest version would reuse it.
                 seed = 100 * lane + i
-                r = client.post("/v1/recipes", headers=_auth(token),
-                                json={"name": "gearbox", "request": {**TURBINE, "seed": seed}})
+                r = client.post(
+                    "/v1/recipes",
+                    headers=_auth(token),
+                    json={"name": "gearbox", "request": {**TURBINE, "seed": seed}},
+                )
                 with lock:
                     if r.status_code == 201:
                         got.append(r.json()["version"])
                     else:
                         failures.append(r.text)
 
-    threads = [threading.Thread(target=worker, args=(s, 2 * k + j))
-               for k, s in enumerate(replicas) for j in range(2)]
+    threads = [
+        threading.Thread(target=worker, args=(s, 2 * k + j))
+        for k, s in enumerate(replicas)
+        for j in range(2)
+    ]
     for t in threads:
         t.start()
     for t in threads:
@@ -159,18 +174,28 @@ def test_a_key_revoked_once_is_refused_by_every_replica(
     for i, server in enumerate(replicas):
         # Distinct requests: the newest version's own request would be answered 200, unchanged.
         fresh = {"name": "nacelle", "request": {**TURBINE, "seed": 60061 + i}}
-        assert httpx.post(server.base_url + "/v1/recipes", headers=_auth(doomed), json=fresh,
-                          timeout=60).status_code == 201
+        assert (
+            httpx.post(
+                server.base_url + "/v1/recipes", headers=_auth(doomed), json=fresh, timeout=60
+            ).status_code
+            == 201
+        )
     env = {k: v for k, v in os.environ.items() if not k.startswith("SEEDBED_")}
     env.update(database)
     env["PYTHONPATH"] = str(ROOT / "service")
-    done = subprocess.run([sys.executable, "-m", "seedbed.keys_cli", "keys", "revoke",
-                           "temp-contractor"], env=env, capture_output=True, text=True,
-                          timeout=60, check=False)
+    done = subprocess.run(
+        [sys.executable, "-m", "seedbed.keys_cli", "keys", "revoke", "temp-contractor"],
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=60,
+        check=False,
+    )
     assert done.returncode == 0, done.stderr
     for server in replicas:  # no waiting: the very next request is refused everywhere
-        r = httpx.post(server.base_url + "/v1/recipes", headers=_auth(doomed), json=body,
-                       timeout=60)
+        r = httpx.post(
+            server.base_url + "/v1/recipes", headers=_auth(doomed), json=body, timeout=60
+        )
         assert r.status_code == 401 and "revoked" in r.json()["error"]["message"]
     for server in replicas:
         assert server.alive(), server.log_tail()

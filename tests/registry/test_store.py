@@ -31,21 +31,28 @@ from seedbed.registry.store import (
 ROOT = Path(__file__).resolve().parents[2]
 
 # Invented scenario: a kiln-temperature regressor a ceramics studio keeps versions of.
-KILN: dict[str, Any] = {"seed": "kiln-7", "dtype": "float32", "layers": [
-    {"name": "probe", "kind": "dense", "n_in": 12, "n_out": 24, "activation": "relu"},
-    {"name": "glaze", "kind": "dense", "n_in": 24, "n_out": 1, "role": "output"},
-]}
+KILN: dict[str, Any] = {
+    "seed": "kiln-7",
+    "dtype": "float32",
+    "layers": [
+        {"name": "probe", "kind": "dense", "n_in": 12, "n_out": 24, "activation": "relu"},
+        {"name": "glaze", "kind": "dense", "n_in": 24, "n_out": 1, "role": "output"},
+    ],
+}
 
 
 def _prepared(name: str, seed: int | str = "kiln-7", description: str = "") -> Any:
-    return prepare_recipe({"name": name, "request": {**KILN, "seed": seed},
-                           "description": description})
+    return prepare_recipe(
+        {"name": name, "request": {**KILN, "seed": seed}, "description": description}
+    )
 
 
 def test_versions_count_up_per_name(registry: Registry, make_token: Callable[[str], str]) -> None:
     token = make_token("studio")
-    got = [publish(registry.engine, _prepared(n, i), token).version
-           for i, n in enumerate(["kiln", "kiln", "glaze", "kiln"])]
+    got = [
+        publish(registry.engine, _prepared(n, i), token).version
+        for i, n in enumerate(["kiln", "kiln", "glaze", "kiln"])
+    ]
     assert got == [1, 2, 1, 3]
     names = [(r.name, r.latest_version) for r in list_recipes(registry.engine)]
     assert names == [("glaze", 1), ("kiln", 3)]
@@ -60,10 +67,15 @@ def test_a_stored_version_is_complete_and_canonical(
 ) -> None:
     token = make_token("studio")
     # The same network spelled differently: keys reordered, defaults left out.
-    spelled = {"layers": [dict(reversed(list(layer.items()))) for layer in KILN["layers"]],
-               "seed": "kiln-7"}
-    publish(registry.engine, prepare_recipe({"name": "kiln", "request": spelled,
-                                             "description": "first firing"}), token)
+    spelled = {
+        "layers": [dict(reversed(list(layer.items()))) for layer in KILN["layers"]],
+        "seed": "kiln-7",
+    }
+    publish(
+        registry.engine,
+        prepare_recipe({"name": "kiln", "request": spelled, "description": "first firing"}),
+        token,
+    )
     record = get_version(registry.engine, "kiln", 1)
     plan = build_plan(KILN)
     assert record.request == plan.canonical_request
@@ -141,7 +153,9 @@ def test_concurrent_threads_get_distinct_versions(
 
 
 def test_concurrent_processes_get_distinct_versions(
-    registry: Registry, registry_env: dict[str, str], make_token: Callable[[str], str],
+    registry: Registry,
+    registry_env: dict[str, str],
+    make_token: Callable[[str], str],
     tmp_path: Path,
 ) -> None:
     token = make_token("studio")
@@ -150,9 +164,20 @@ def test_concurrent_processes_get_distinct_versions(
     env.update(registry_env)
     env["PYTHONPATH"] = str(ROOT / "service")
     workers = [
-        subprocess.Popen([sys.executable, str(Path(__file__).with_name("publish_worker.py")),
-                          "kiln", "8", token, str(go)],
-                         env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        subprocess.Popen(
+            [
+                sys.executable,
+                str(Path(__file__).with_name("publish_worker.py")),
+                "kiln",
+                "8",
+                token,
+                str(go),
+            ],
+            env=env,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
         for _ in range(3)
     ]
     go.touch()

@@ -45,12 +45,17 @@ def raw_tensor(
         for size in cycle(pieces):
             if pos >= len(raw):
                 return
-            yield raw[pos:pos + size]
+            yield raw[pos : pos + size]
             pos += size
 
-    return OutgoingTensor(name=name, dtype=dtype, shape=shape, nbytes=len(raw),
-                          entry=dict(entry) if entry is not None else demo_entry(name),
-                          chunks=chunks)
+    return OutgoingTensor(
+        name=name,
+        dtype=dtype,
+        shape=shape,
+        nbytes=len(raw),
+        entry=dict(entry) if entry is not None else demo_entry(name),
+        chunks=chunks,
+    )
 
 
 def demo_entry(name: str) -> dict[str, Any]:
@@ -60,18 +65,18 @@ def demo_entry(name: str) -> dict[str, Any]:
         "method": "demo",
         "std": 0.0625,
         "bound": None,
-        "rationale": "Invented entry for a container-format test: \"quotes\", unicode é.",
+        "rationale": 'Invented entry for a container-format test: "quotes", unicode é.',
         "references": ["none"],
     }
 
 
-def array_tensor(name: str, array: np.ndarray, dtype: str | None = None,
-                 pieces: Sequence[int] = (4096,)) -> OutgoingTensor:
+def array_tensor(
+    name: str, array: np.ndarray, dtype: str | None = None, pieces: Sequence[int] = (4096,)
+) -> OutgoingTensor:
     arr = np.asarray(array)  # not ascontiguousarray: it turns 0-d arrays into 1-d ones
     if arr.dtype.kind == "f":  # ml_dtypes' bfloat16 has kind "V"; test hosts are little-endian
         arr = arr.astype(arr.dtype.newbyteorder("<"))
-    return raw_tensor(name, arr.tobytes(), dtype or str(arr.dtype), tuple(arr.shape),
-                      pieces=pieces)
+    return raw_tensor(name, arr.tobytes(), dtype or str(arr.dtype), tuple(arr.shape), pieces=pieces)
 
 
 def collect(encoded: EncodedBody) -> bytes:
@@ -93,11 +98,11 @@ def parse_safetensors(body: bytes) -> tuple[dict[str, Any], dict[str, bytes]]:
     object and each tensor's raw bytes; asserts the layout rules on the way."""
     (n,) = struct.unpack("<Q", body[:8])
     assert (8 + n) % 8 == 0, "header must pad the data start to 8 bytes"
-    text = body[8:8 + n]
+    text = body[8 : 8 + n]
     stripped = text.rstrip(b" ")
     assert stripped.startswith(b"{") and stripped.endswith(b"}")
     header = json.loads(text)
-    data = body[8 + n:]
+    data = body[8 + n :]
     out: dict[str, bytes] = {}
     cursor = 0
     for name, info in header.items():

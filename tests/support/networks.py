@@ -84,8 +84,14 @@ def river_gauge_forecaster() -> dict[str, Any]:
         },
         {"name": "rain.norm", "kind": "norm", "dim": 32},
         # The two encodings side by side: 32 + 32 features.
-        {"name": "merge", "kind": "dense", "n_in": 64, "n_out": 96, "activation": "gelu",
-         "reads": ["gauge.id", "rain.norm"]},
+        {
+            "name": "merge",
+            "kind": "dense",
+            "n_in": 64,
+            "n_out": 96,
+            "activation": "gelu",
+            "reads": ["gauge.id", "rain.norm"],
+        },
         {"name": "hydrograph", "kind": "recurrent", "cell": "lstm", "n_in": 96, "hidden": 128},
         {"name": "context", "kind": "attention", "dim": 128, "heads": 8},
         {"name": "context.norm", "kind": "norm", "dim": 128},

@@ -288,8 +288,11 @@ class JaxprFacts:
     def _tanh_gelu_end(self, var: Any) -> int | None:
         """x * 0.5 * (1 + tanh(sqrt(2/pi) (x + 0.044715 x^3))) (jax.nn.gelu's default)."""
         readers = self.readers.get(var, [])
-        pows = [j for j in readers if self.eqns[j].primitive.name == "integer_pow"
-                and self.eqns[j].params.get("y") == 3]
+        pows = [
+            j
+            for j in readers
+            if self.eqns[j].primitive.name == "integer_pow" and self.eqns[j].params.get("y") == 3
+        ]
         if not pows:
             return None
         v, seen_tanh = self.eqns[pows[0]].outvars[0], False

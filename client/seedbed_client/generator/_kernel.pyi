@@ -2,8 +2,13 @@
 from collections.abc import Sequence
 
 def init(
-    series: Sequence[float], ln2_hi: float, ln2_lo: float, mass: float, bound: float,
-    use_wide: bool, /,
+    series: Sequence[float],
+    ln2_hi: float,
+    ln2_lo: float,
+    mass: float,
+    bound: float,
+    use_wide: bool,
+    /,
 ) -> str: ...
 def raw(k0: int, k1: int, stream: int, start: int, out: object, /) -> None: ...
 def fill(

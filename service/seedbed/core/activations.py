@@ -161,58 +161,176 @@ class GainResult:
 
 _GAIN_FORWARD = short_cite("he-2015", "sec. 2.2")
 
-_SLOPE = ParamSpec("slope", "slope a of the negative side, phi(x) = a*x for x < 0",
-                   0.01, 0.0, 1.0, True, True)
-_ALPHA = ParamSpec("alpha", "saturation value -alpha of the negative side",
-                   1.0, 0.0, 10.0, False, True)
+_SLOPE = ParamSpec(
+    "slope", "slope a of the negative side, phi(x) = a*x for x < 0", 0.01, 0.0, 1.0, True, True
+)
+_ALPHA = ParamSpec(
+    "alpha", "saturation value -alpha of the negative side", 1.0, 0.0, 10.0, False, True
+)
 
 # ONNX HardSigmoid defaults to 0.2 (opset 6); PyTorch's and Howard et al.'s h-sigmoid use 1/6.
-_HARD_SLOPE = ParamSpec("slope", "slope a of the ramp, phi(x) = clip(a*x + 1/2, 0, 1)",
-                        1.0 / 6.0, 0.0, 10.0, False, True)
+_HARD_SLOPE = ParamSpec(
+    "slope",
+    "slope a of the ramp, phi(x) = clip(a*x + 1/2, 0, 1)",
+    1.0 / 6.0,
+    0.0,
+    10.0,
+    False,
+    True,
+)
 
 _INFOS: tuple[ActivationInfo, ...] = (
-    ActivationInfo("linear", "phi(x) = x", "linear", False, False, False, None,
-                   "identity map", short_cite("he-2015", "eq. 10 with a linear unit")),
-    ActivationInfo("relu", "phi(x) = max(x, 0)", "rectifier", True, False, False, None,
-                   cite("nair-2010"), short_cite("he-2015", "eq. 10")),
-    ActivationInfo("leaky_relu", "phi(x) = x for x >= 0, a*x for x < 0", "rectifier", True,
-                   False, False, _SLOPE, cite("maas-2013"), short_cite("he-2015", "eq. 15")),
-    ActivationInfo("elu", "phi(x) = x for x > 0, alpha*(exp(x) - 1) for x <= 0", "rectifier",
-                   True, False, False, _ALPHA, cite("clevert-2016"),
-                   f"numeric second moment ({_GAIN_FORWARD} argument)"),
-    ActivationInfo("selu", "phi(x) = lambda*x for x > 0, lambda*alpha*(exp(x) - 1) for x <= 0",
-                   "self_normalizing", False, False, False, None, cite("klambauer-2017"),
-                   short_cite("klambauer-2017", "fixed point with unit second moment"),
-                   notes="Unbounded above, but its own rule applies: LeCun scaling (gain 1), "
-                         "lambda and alpha from their closed forms in Klambauer et al. 2017."),
-    ActivationInfo("gelu", "phi(x) = x*Phi(x), Phi the standard normal CDF (exact erf form)",
-                   "smooth", True, False, False, None, cite("hendrycks-2016"),
-                   f"numeric second moment ({_GAIN_FORWARD} argument)"),
-    ActivationInfo("silu", "phi(x) = x*sigmoid(x)", "smooth", True, False, False, None,
-                   cite("elfwing-2018"), f"numeric second moment ({_GAIN_FORWARD} argument)"),
-    ActivationInfo("hard_swish", "phi(x) = x*clip(x/6 + 1/2, 0, 1)", "smooth", True, False,
-                   False, None, cite("howard-2019"),
-                   f"numeric second moment ({_GAIN_FORWARD} argument)",
-                   notes="Piecewise: 0 below -3, x above 3; the kinks sit on quadrature "
-                         "breakpoints."),
-    ActivationInfo("hard_sigmoid", "phi(x) = clip(a*x + 1/2, 0, 1)", "saturating", False, True,
-                   False, _HARD_SLOPE, cite("howard-2019"),
-                   "closed-form second moment (normal CDF and density at the kinks)",
-                   notes="Flat outside |x| <= 1/(2a): saturates like sigmoid, with a zero "
-                         "gradient there."),
-    ActivationInfo("softplus", "phi(x) = log(1 + exp(x))", "smooth", True, False, False, None,
-                   cite("dugas-2001"), f"numeric second moment ({_GAIN_FORWARD} argument)"),
-    ActivationInfo("tanh", "phi(x) = tanh(x)", "saturating", False, True, False, None,
-                   "hyperbolic tangent", f"numeric second moment ({_GAIN_FORWARD} argument)",
-                   notes="Gain 1.5925 = 1/sqrt(E[tanh(z)^2]), not the 5/3 common in frameworks "
-                         "(an empirical rounding): one definition for every activation."),
-    ActivationInfo("sigmoid", "phi(x) = 1/(1 + exp(-x))", "saturating", False, True, False, None,
-                   "logistic function", f"numeric second moment ({_GAIN_FORWARD} argument)",
-                   notes="Non-zero mean output; the second-moment gain accounts for it."),
-    ActivationInfo("softmax", "phi(x)_i = exp(x_i) / sum_j exp(x_j) (last axis)", "output", False,
-                   True, True, None, "normalised exponential",
-                   "convention: output-only, gain 1",
-                   notes="Output layers only: no next layer to preserve, so gain 1."),
+    ActivationInfo(
+        "linear",
+        "phi(x) = x",
+        "linear",
+        False,
+        False,
+        False,
+        None,
+        "identity map",
+        short_cite("he-2015", "eq. 10 with a linear unit"),
+    ),
+    ActivationInfo(
+        "relu",
+        "phi(x) = max(x, 0)",
+        "rectifier",
+        True,
+        False,
+        False,
+        None,
+        cite("nair-2010"),
+        short_cite("he-2015", "eq. 10"),
+    ),
+    ActivationInfo(
+        "leaky_relu",
+        "phi(x) = x for x >= 0, a*x for x < 0",
+        "rectifier",
+        True,
+        False,
+        False,
+        _SLOPE,
+        cite("maas-2013"),
+        short_cite("he-2015", "eq. 15"),
+    ),
+    ActivationInfo(
+        "elu",
+        "phi(x) = x for x > 0, alpha*(exp(x) - 1) for x <= 0",
+        "rectifier",
+        True,
+        False,
+        False,
+        _ALPHA,
+        cite("clevert-2016"),
+        f"numeric second moment ({_GAIN_FORWARD} argument)",
+    ),
+    ActivationInfo(
+        "selu",
+        "phi(x) = lambda*x for x > 0, lambda*alpha*(exp(x) - 1) for x <= 0",
+        "self_normalizing",
+        False,
+        False,
+        False,
+        None,
+        cite("klambauer-2017"),
+        short_cite("klambauer-2017", "fixed point with unit second moment"),
+        notes="Unbounded above, but its own rule applies: LeCun scaling (gain 1), "
+        "lambda and alpha from their closed forms in Klambauer et al. 2017.",
+    ),
+    ActivationInfo(
+        "gelu",
+        "phi(x) = x*Phi(x), Phi the standard normal CDF (exact erf form)",
+        "smooth",
+        True,
+        False,
+        False,
+        None,
+        cite("hendrycks-2016"),
+        f"numeric second moment ({_GAIN_FORWARD} argument)",
+    ),
+    ActivationInfo(
+        "silu",
+        "phi(x) = x*sigmoid(x)",
+        "smooth",
+        True,
+        False,
+        False,
+        None,
+        cite("elfwing-2018"),
+        f"numeric second moment ({_GAIN_FORWARD} argument)",
+    ),
+    ActivationInfo(
+        "hard_swish",
+        "phi(x) = x*clip(x/6 + 1/2, 0, 1)",
+        "smooth",
+        True,
+        False,
+        False,
+        None,
+        cite("howard-2019"),
+        f"numeric second moment ({_GAIN_FORWARD} argument)",
+        notes="Piecewise: 0 below -3, x above 3; the kinks sit on quadrature breakpoints.",
+    ),
+    ActivationInfo(
+        "hard_sigmoid",
+        "phi(x) = clip(a*x + 1/2, 0, 1)",
+        "saturating",
+        False,
+        True,
+        False,
+        _HARD_SLOPE,
+        cite("howard-2019"),
+        "closed-form second moment (normal CDF and density at the kinks)",
+        notes="Flat outside |x| <= 1/(2a): saturates like sigmoid, with a zero gradient there.",
+    ),
+    ActivationInfo(
+        "softplus",
+        "phi(x) = log(1 + exp(x))",
+        "smooth",
+        True,
+        False,
+        False,
+        None,
+        cite("dugas-2001"),
+        f"numeric second moment ({_GAIN_FORWARD} argument)",
+    ),
+    ActivationInfo(
+        "tanh",
+        "phi(x) = tanh(x)",
+        "saturating",
+        False,
+        True,
+        False,
+        None,
+        "hyperbolic tangent",
+        f"numeric second moment ({_GAIN_FORWARD} argument)",
+        notes="Gain 1.5925 = 1/sqrt(E[tanh(z)^2]), not the 5/3 common in frameworks "
+        "(an empirical rounding): one definition for every activation.",
+    ),
+    ActivationInfo(
+        "sigmoid",
+        "phi(x) = 1/(1 + exp(-x))",
+        "saturating",
+        False,
+        True,
+        False,
+        None,
+        "logistic function",
+        f"numeric second moment ({_GAIN_FORWARD} argument)",
+        notes="Non-zero mean output; the second-moment gain accounts for it.",
+    ),
+    ActivationInfo(
+        "softmax",
+        "phi(x)_i = exp(x_i) / sum_j exp(x_j) (last axis)",
+        "output",
+        False,
+        True,
+        True,
+        None,
+        "normalised exponential",
+        "convention: output-only, gain 1",
+        notes="Output layers only: no next layer to preserve, so gain 1.",
+    ),
 )
 
 ACTIVATIONS: Mapping[str, ActivationInfo] = MappingProxyType({a.name: a for a in _INFOS})
@@ -304,15 +422,17 @@ def _mp_sigmoid(z: Any, _: Any) -> Any:
     return 1 / (1 + _MP.exp(-z))
 
 
-_MP_FUNCS: Mapping[str, MpFn] = MappingProxyType({
-    "elu": _mp_elu,
-    "gelu": _mp_gelu,
-    "silu": _mp_silu,
-    "softplus": _mp_softplus,
-    "hard_swish": _mp_hard_swish,
-    "tanh": _mp_tanh,
-    "sigmoid": _mp_sigmoid,
-})
+_MP_FUNCS: Mapping[str, MpFn] = MappingProxyType(
+    {
+        "elu": _mp_elu,
+        "gelu": _mp_gelu,
+        "silu": _mp_silu,
+        "softplus": _mp_softplus,
+        "hard_swish": _mp_hard_swish,
+        "tanh": _mp_tanh,
+        "sigmoid": _mp_sigmoid,
+    }
+)
 
 
 @functools.cache
@@ -380,8 +500,10 @@ def _selu_constants_mp() -> tuple[Any, Any]:
         c2 = _MP.erfc(_MP.sqrt(2))
         pi = _MP.pi
         alpha = -_MP.sqrt(2 / pi) / (c1 * _MP.sqrt(e) - 1)
-        lam = (1 - c1 * _MP.sqrt(e)) * _MP.sqrt(2 * pi) / _MP.sqrt(
-            2 * c2 * e**2 + pi * c1**2 * e - 2 * (2 + pi) * c1 * _MP.sqrt(e) + pi + 2
+        lam = (
+            (1 - c1 * _MP.sqrt(e))
+            * _MP.sqrt(2 * pi)
+            / _MP.sqrt(2 * c2 * e**2 + pi * c1**2 * e - 2 * (2 + pi) * c1 * _MP.sqrt(e) + pi + 2)
         )
         return lam, alpha
 
@@ -399,13 +521,26 @@ def _fmt(x: float) -> str:
 def _closed_form_gain(name: str, param: float | None) -> GainResult:
     refs_he = (cite("he-2015"),)
     if name == "linear":
-        return GainResult(name, None, 1.0, True, 1.0,
-                          f"1 (E[z^2] = 1; {short_cite('he-2015', 'eq. 10')} with a linear unit)",
-                          refs_he)
+        return GainResult(
+            name,
+            None,
+            1.0,
+            True,
+            1.0,
+            f"1 (E[z^2] = 1; {short_cite('he-2015', 'eq. 10')} with a linear unit)",
+            refs_he,
+        )
     if name == "relu":
-        return GainResult(name, None, math.sqrt(2.0), True, 0.5,
-                          f"sqrt(2) = {_fmt(math.sqrt(2.0))} (E[relu(z)^2] = 1/2; "
-                          f"{short_cite('he-2015', 'eq. 10')})", refs_he)
+        return GainResult(
+            name,
+            None,
+            math.sqrt(2.0),
+            True,
+            0.5,
+            f"sqrt(2) = {_fmt(math.sqrt(2.0))} (E[relu(z)^2] = 1/2; "
+            f"{short_cite('he-2015', 'eq. 10')})",
+            refs_he,
+        )
     if name == "leaky_relu":
         assert param is not None
         with _MP_LOCK:
@@ -413,16 +548,29 @@ def _closed_form_gain(name: str, param: float | None) -> GainResult:
             m2 = (1 + a * a) / 2
             gain = float(_MP.sqrt(1 / m2))
             m2_f = float(m2)
-        return GainResult(name, param, gain, True, m2_f,
-                          f"sqrt(2/(1+{param!r}^2)) = {_fmt(gain)} (E[phi(z)^2] = (1+a^2)/2 = "
-                          f"{_fmt(m2_f)}; {short_cite('he-2015', 'eq. 15')})", refs_he)
+        return GainResult(
+            name,
+            param,
+            gain,
+            True,
+            m2_f,
+            f"sqrt(2/(1+{param!r}^2)) = {_fmt(gain)} (E[phi(z)^2] = (1+a^2)/2 = "
+            f"{_fmt(m2_f)}; {short_cite('he-2015', 'eq. 15')})",
+            refs_he,
+        )
     if name == "selu":
         lam, alpha = selu_constants()
-        return GainResult(name, None, 1.0, True, 1.0,
-                          f"1: with lambda = {lam!r} and alpha = {alpha!r} the SELU fixed point "
-                          f"has E[selu(z)^2] = 1, so LeCun scaling "
-                          f"({short_cite('klambauer-2017')})",
-                          (cite("klambauer-2017"), cite("lecun-1998")))
+        return GainResult(
+            name,
+            None,
+            1.0,
+            True,
+            1.0,
+            f"1: with lambda = {lam!r} and alpha = {alpha!r} the SELU fixed point "
+            f"has E[selu(z)^2] = 1, so LeCun scaling "
+            f"({short_cite('klambauer-2017')})",
+            (cite("klambauer-2017"), cite("lecun-1998")),
+        )
     if name == "hard_sigmoid":
         assert param is not None
         with _MP_LOCK:
@@ -436,15 +584,29 @@ def _closed_form_gain(name: str, param: float | None) -> GainResult:
             m2 = a * a * ((2 * cdf - 1) - 2 * c * pdf) + (2 * cdf - 1) / 4 + 1 - cdf
             gain = float(1 / _MP.sqrt(m2))
             m2_f = float(m2)
-        return GainResult(name, param, gain, True, m2_f,
-                          f"1/sqrt(E[hard_sigmoid(z; slope={param!r})^2]) = 1/sqrt({_fmt(m2_f)}) "
-                          f"= {_fmt(gain)}, E in closed form from the normal CDF and density at "
-                          f"the kinks +-1/(2a); variance-preserving gain ({_GAIN_FORWARD} "
-                          "argument with the second moment)", (cite("he-2015"),))
+        return GainResult(
+            name,
+            param,
+            gain,
+            True,
+            m2_f,
+            f"1/sqrt(E[hard_sigmoid(z; slope={param!r})^2]) = 1/sqrt({_fmt(m2_f)}) "
+            f"= {_fmt(gain)}, E in closed form from the normal CDF and density at "
+            f"the kinks +-1/(2a); variance-preserving gain ({_GAIN_FORWARD} "
+            "argument with the second moment)",
+            (cite("he-2015"),),
+        )
     if name == "softmax":
-        return GainResult(name, None, 1.0, True, None,
-                          "1 by convention: softmax is an output activation, there is no next "
-                          "layer whose input variance it could preserve", ())
+        return GainResult(
+            name,
+            None,
+            1.0,
+            True,
+            None,
+            "1 by convention: softmax is an output activation, there is no next "
+            "layer whose input variance it could preserve",
+            (),
+        )
     raise AssertionError(name)  # pragma: no cover
 
 

@@ -107,7 +107,8 @@ def _positive_int(name: str, value: Any) -> int:
 
 def _int_tuple(name: str, value: Any, length: int | None) -> tuple[int, ...]:
     allowed = (
-        "1 to 3 positive integers" if length is None
+        "1 to 3 positive integers"
+        if length is None
         else f"{length} positive integer{'s' if length > 1 else ''} (one per kernel dimension)"
     )
     if isinstance(value, str | bytes) or not isinstance(value, Sequence):
@@ -127,7 +128,7 @@ def _product(values: tuple[int, ...]) -> int:
 
 
 def _count(n: int | Fraction, noun: str) -> str:
-    """"1 output", "3 outputs", "1.5 outputs": a number with its noun, in the right number."""
+    """ "1 output", "3 outputs", "1.5 outputs": a number with its noun, in the right number."""
     return f"{_show(n) if isinstance(n, Fraction) else n} {noun}{'' if n == 1 else 's'}"
 
 
@@ -140,9 +141,12 @@ def _choice(name: str, value: Any, allowed: Sequence[str]) -> str:
 def dense_fans(n_in: int, n_out: int) -> Fans:
     n_in = _positive_int("n_in", n_in)
     n_out = _positive_int("n_out", n_out)
-    return Fans(Fraction(n_in), Fraction(n_out),
-                f"dense {n_in} -> {n_out}: each output sums {_count(n_in, 'input')} (fan_in), "
-                f"each input feeds {_count(n_out, 'output')} (fan_out)")
+    return Fans(
+        Fraction(n_in),
+        Fraction(n_out),
+        f"dense {n_in} -> {n_out}: each output sums {_count(n_in, 'input')} (fan_in), "
+        f"each input feeds {_count(n_out, 'output')} (fan_out)",
+    )
 
 
 def conv_fans(
@@ -162,8 +166,7 @@ def conv_fans(
     s = (1,) * len(k) if stride is None else _int_tuple("stride", stride, len(k))
     if c_in % g or c_out % g:
         raise ValueError(
-            f"groups must divide both channels_in ({c_in}) and channels_out ({c_out}) "
-            f"(got {g})"
+            f"groups must divide both channels_in ({c_in}) and channels_out ({c_out}) (got {g})"
         )
     taps, step = _product(k), _product(s)
     per_group_in, per_group_out = Fraction(c_in, g), Fraction(c_out, g)
@@ -174,17 +177,21 @@ def conv_fans(
     if not transposed:
         fan_in = per_group_in * taps
         fan_out = per_group_out * taps / step
-        text = (f"each output sums {c_in}/{g} channels x {taps} taps = "
-                f"{_count(fan_in, 'input')}; "
-                f"each input reaches {c_out}/{g} channels x {taps}/{step} positions = "
-                f"{_count(fan_out, 'output')}")
+        text = (
+            f"each output sums {c_in}/{g} channels x {taps} taps = "
+            f"{_count(fan_in, 'input')}; "
+            f"each input reaches {c_out}/{g} channels x {taps}/{step} positions = "
+            f"{_count(fan_out, 'output')}"
+        )
     else:
         # the adjoint of a conv with the same kernel and stride: in and out swap roles
         fan_in = per_group_in * taps / step
         fan_out = per_group_out * taps
-        text = (f"each output gathers {c_in}/{g} channels x {taps}/{step} positions = "
-                f"{_count(fan_in, 'input')}; each input spreads over {c_out}/{g} channels x "
-                f"{taps} taps = {_count(fan_out, 'output')}")
+        text = (
+            f"each output gathers {c_in}/{g} channels x {taps}/{step} positions = "
+            f"{_count(fan_in, 'input')}; each input spreads over {c_out}/{g} channels x "
+            f"{taps} taps = {_count(fan_out, 'output')}"
+        )
     if fan_in.denominator != 1 or fan_out.denominator != 1:
         text += " (average over positions: the stride does not divide the kernel)"
     return Fans(fan_in, fan_out, head + text)
@@ -193,9 +200,12 @@ def conv_fans(
 def embedding_fans(vocab: int, dim: int) -> Fans:
     vocab = _positive_int("vocab", vocab)
     dim = _positive_int("dim", dim)
-    return Fans(Fraction(1), Fraction(dim),
-                f"embedding {vocab} x {dim}: a lookup selects one row, so each output is "
-                f"exactly 1 weight (fan_in 1); each row feeds {_count(dim, 'output')} (fan_out)")
+    return Fans(
+        Fraction(1),
+        Fraction(dim),
+        f"embedding {vocab} x {dim}: a lookup selects one row, so each output is "
+        f"exactly 1 weight (fan_in 1); each row feeds {_count(dim, 'output')} (fan_out)",
+    )
 
 
 def recurrent_fans(n_in: int, hidden: int, cell: str, part: str) -> Fans:
@@ -206,10 +216,13 @@ def recurrent_fans(n_in: int, hidden: int, cell: str, part: str) -> Fans:
     gates = RECURRENT_GATES[cell]
     source = n_in if part == "input" else hidden
     what = "inputs" if part == "input" else "previous hidden units"
-    return Fans(Fraction(source), Fraction(hidden),
-                f"{cell} {part} weights, per gate block ({gates} block{'s' if gates > 1 else ''} "
-                f"of {hidden} x {source}): each gate unit sums {source} {what} (fan_in); each "
-                f"feeds {hidden} units of every gate (fan_out, per block)")
+    return Fans(
+        Fraction(source),
+        Fraction(hidden),
+        f"{cell} {part} weights, per gate block ({gates} block{'s' if gates > 1 else ''} "
+        f"of {hidden} x {source}): each gate unit sums {source} {what} (fan_in); each "
+        f"feeds {hidden} units of every gate (fan_out, per block)",
+    )
 
 
 def attention_fans(dim: int, heads: int, projection: str) -> Fans:
@@ -218,6 +231,9 @@ def attention_fans(dim: int, heads: int, projection: str) -> Fans:
     projection = _choice("projection", projection, ATTENTION_PROJECTIONS)
     if dim % heads:
         raise ValueError(f"heads must divide dim ({dim}) (got {heads})")
-    return Fans(Fraction(dim), Fraction(dim),
-                f"attention {projection} projection {dim} -> {dim} ({heads} heads): each output "
-                f"sums all {dim} inputs; heads split the output columns, not the sums")
+    return Fans(
+        Fraction(dim),
+        Fraction(dim),
+        f"attention {projection} projection {dim} -> {dim} ({heads} heads): each output "
+        f"sums all {dim} inputs; heads split the output columns, not the sums",
+    )

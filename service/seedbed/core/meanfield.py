@@ -73,8 +73,25 @@ Phase = Literal["ordered", "critical", "chaotic", "unbounded"]
 FixedPointKind = Literal["attracting", "neutral", "unbounded"]
 
 _Z_MAX = 12.0
-_Z_BREAKS = (-12.0, -9.0, -7.0, -5.5, -4.0, -3.0, -2.0, -1.0, 0.0,
-             1.0, 2.0, 3.0, 4.0, 5.5, 7.0, 9.0, 12.0)
+_Z_BREAKS = (
+    -12.0,
+    -9.0,
+    -7.0,
+    -5.5,
+    -4.0,
+    -3.0,
+    -2.0,
+    -1.0,
+    0.0,
+    1.0,
+    2.0,
+    3.0,
+    4.0,
+    5.5,
+    7.0,
+    9.0,
+    12.0,
+)
 _X_BREAKS = (0.25, 0.5, 1.0, 2.0, 4.0, 8.0)
 _LEGENDRE_POINTS = 16
 # Below this length the activation is evaluated at q = _TINY_Q: the q -> 0+ limit in float64.
@@ -155,8 +172,10 @@ class _Act:
 def _resolve(activation: str, param: float | None) -> _Act:
     info = describe_activation(activation)
     if info.output_only:
-        raise ValueError(f"activation: {activation} is an output activation (not elementwise); "
-                         "mean-field figures need an elementwise hidden-layer activation")
+        raise ValueError(
+            f"activation: {activation} is an output activation (not elementwise); "
+            "mean-field figures need an elementwise hidden-layer activation"
+        )
     if info.param is not None and param is None:
         param = info.param.default
     apply_activation(activation, np.zeros(1), param)  # validates param with a clear message
@@ -170,8 +189,9 @@ def _check_variances(sigma_w2: float, sigma_b2: float) -> None:
         raise ValueError(f"sigma_b2 must be a non-negative finite number (got {sigma_b2!r})")
 
 
-def length_map(activation: str, sigma_w2: float, sigma_b2: float, q: float,
-               param: float | None = None) -> float:
+def length_map(
+    activation: str, sigma_w2: float, sigma_b2: float, q: float, param: float | None = None
+) -> float:
     """L(q) = sigma_w^2 E[phi(sqrt(q) z)^2] + sigma_b^2 (Poole et al. 2016)."""
     _check_variances(sigma_w2, sigma_b2)
     if not (math.isfinite(q) and q >= 0):
@@ -180,8 +200,15 @@ def length_map(activation: str, sigma_w2: float, sigma_b2: float, q: float,
     return sigma_w2 * act.second_moment(q) + sigma_b2
 
 
-def _find_root(f: Callable[[float], float], lo: float, hi: float, flo: float, fhi: float,
-               rel: float = 1e-14, tol: float = 1e-300) -> float:
+def _find_root(
+    f: Callable[[float], float],
+    lo: float,
+    hi: float,
+    flo: float,
+    fhi: float,
+    rel: float = 1e-14,
+    tol: float = 1e-300,
+) -> float:
     """A root of f in [lo, hi] (lo < hi) where f(lo) and f(hi) differ in sign: Illinois regula
     falsi, with every fourth step a bisection so the bracket always shrinks."""
     if flo == 0.0:
@@ -211,8 +238,9 @@ def _find_root(f: Callable[[float], float], lo: float, hi: float, flo: float, fh
     return (lo + hi) / 2
 
 
-def _fixed_point_below(act: _Act, sw2: float, sb2: float, start: float,
-                       g: Callable[[float], float], g_start: float) -> float:
+def _fixed_point_below(
+    act: _Act, sw2: float, sb2: float, start: float, g: Callable[[float], float], g_start: float
+) -> float:
     """The largest fixed point below `start` when L(start) < start (iterates decrease)."""
     if sb2 == 0.0 and float(act.phi(np.zeros(1))[0]) == 0.0:
         # L(0) = 0: q = 0 is a fixed point. Search on rho(q) = L(q)/q - 1, whose q -> 0 limit
@@ -243,8 +271,9 @@ def _fixed_point_below(act: _Act, sw2: float, sb2: float, start: float,
     return _find_root(g, 0.0, lo, g(0.0), g(lo))  # L(0) > 0: the root is in (0, lo)
 
 
-def _fixed_point(act: _Act, sw2: float, sb2: float, start: float) -> tuple[float | None,
-                                                                           FixedPointKind]:
+def _fixed_point(
+    act: _Act, sw2: float, sb2: float, start: float
+) -> tuple[float | None, FixedPointKind]:
     if act.name in _HOMOGENEOUS:
         slope = sw2 * act.homogeneous_moment()
         if abs(slope - 1.0) <= 1e-12:
@@ -289,8 +318,9 @@ def _length_slope(act: _Act, sw2: float, q: float) -> float:
     return sw2 * _expect(lambda z: act.phi(s * z) * act.slope(s * z) * z, q) / s
 
 
-def _pair_expectation(f: Callable[[FloatArray], FloatArray],
-                      g: Callable[[FloatArray], FloatArray], q: float, c: float) -> float:
+def _pair_expectation(
+    f: Callable[[FloatArray], FloatArray], g: Callable[[FloatArray], FloatArray], q: float, c: float
+) -> float:
     """E[f(u1) g(u2)], u1 = sqrt(q) z1, u2 = sqrt(q) (c z1 + sqrt(1 - c^2) z2).
 
     The outer integral over z1 uses the usual breakpoints; for each outer node the inner
@@ -404,14 +434,18 @@ def _figures(act: _Act, sw2: float, sb2: float, start: float) -> MeanFieldFigure
     c_star: float | None = None
     if q_star is None:
         phase: Phase = "unbounded"
-        notes.append("the length map has no finite fixed point above the starting length: "
-                     "pre-activation variance grows with depth without limit")
+        notes.append(
+            "the length map has no finite fixed point above the starting length: "
+            "pre-activation variance grows with depth without limit"
+        )
     else:
         phase = _phase(chi)
         slope = _length_slope(act, sw2, q_star)
         if kind == "neutral":
-            notes.append("every length is a fixed point (L(q) = q): the scale is preserved, "
-                         f"not restored; q_star is the starting length {start:g}")
+            notes.append(
+                "every length is a fixed point (L(q) = q): the scale is preserved, "
+                f"not restored; q_star is the starting length {start:g}"
+            )
         else:
             xi_q = _depth(slope)
         if phase == "chaotic" and q_star > 0:
@@ -425,16 +459,27 @@ def _figures(act: _Act, sw2: float, sb2: float, start: float) -> MeanFieldFigure
             c_star = 1.0
             xi_c = _depth(chi)
         if phase == "critical":
-            notes.append("chi_1 = 1 (edge of chaos): the correlation depth scale xi_c is "
-                         "infinite")
+            notes.append("chi_1 = 1 (edge of chaos): the correlation depth scale xi_c is infinite")
     if q_star == 0.0:
-        notes.append("q* = 0: the signal's length decays towards zero with depth; chi_1 is "
-                     "the q -> 0 limit")
+        notes.append(
+            "q* = 0: the signal's length decays towards zero with depth; chi_1 is the q -> 0 limit"
+        )
     return MeanFieldFigures(
-        activation=act.name, activation_param=act.param, sigma_w2=sw2, sigma_b2=sb2,
-        start=start, q_star=q_star, fixed_point=kind, length_slope=slope, chi_1=chi,
-        c_star=c_star, xi_q=xi_q, xi_c=xi_c, phase=phase,
-        critical_sigma_w2=_critical(act, sb2), notes=tuple(notes),
+        activation=act.name,
+        activation_param=act.param,
+        sigma_w2=sw2,
+        sigma_b2=sb2,
+        start=start,
+        q_star=q_star,
+        fixed_point=kind,
+        length_slope=slope,
+        chi_1=chi,
+        c_star=c_star,
+        xi_q=xi_q,
+        xi_c=xi_c,
+        phase=phase,
+        critical_sigma_w2=_critical(act, sb2),
+        notes=tuple(notes),
     )
 
 
@@ -485,24 +530,30 @@ def _critical(act: _Act, sb2: float) -> float | None:
 
 
 @functools.lru_cache(maxsize=512)
-def _mean_field_cached(name: str, param: float | None, sw2: float, sb2: float,
-                       start: float) -> MeanFieldFigures:
+def _mean_field_cached(
+    name: str, param: float | None, sw2: float, sb2: float, start: float
+) -> MeanFieldFigures:
     return _figures(_Act(name, param), sw2, sb2, start)
 
 
-def mean_field(activation: str, sigma_w2: float, sigma_b2: float = 0.0,
-               param: float | None = None, start: float = 1.0) -> MeanFieldFigures:
+def mean_field(
+    activation: str,
+    sigma_w2: float,
+    sigma_b2: float = 0.0,
+    param: float | None = None,
+    start: float = 1.0,
+) -> MeanFieldFigures:
     """Length fixed point, chi_1, depth scales and the critical sigma_w^2 (see module doc)."""
     _check_variances(sigma_w2, sigma_b2)
     if not (math.isfinite(start) and start > 0):
         raise ValueError(f"start must be a positive finite length (got {start!r})")
     act = _resolve(activation, param)
-    return _mean_field_cached(act.name, act.param, float(sigma_w2), float(sigma_b2),
-                              float(start))
+    return _mean_field_cached(act.name, act.param, float(sigma_w2), float(sigma_b2), float(start))
 
 
-def critical_sigma_w2(activation: str, sigma_b2: float = 0.0,
-                      param: float | None = None) -> float | None:
+def critical_sigma_w2(
+    activation: str, sigma_b2: float = 0.0, param: float | None = None
+) -> float | None:
     """sigma_w^2 with chi_1 = 1 at the given sigma_b^2; None if none exists below 1e6."""
     _check_variances(1.0, sigma_b2)
     return _critical(_resolve(activation, param), float(sigma_b2))
@@ -514,19 +565,24 @@ def _num(x: float | None) -> str:
 
 def rationale_sentence(fig: MeanFieldFigures) -> str:
     """One plain sentence for a plan's rationale, with the numbers and the sources."""
-    crit = ("" if fig.critical_sigma_w2 is None
-            else f"; the edge of chaos (chi_1 = 1) at this sigma_b^2 is sigma_w^2 = "
-                 f"{fig.critical_sigma_w2:.4g}")
+    crit = (
+        ""
+        if fig.critical_sigma_w2 is None
+        else f"; the edge of chaos (chi_1 = 1) at this sigma_b^2 is sigma_w^2 = "
+        f"{fig.critical_sigma_w2:.4g}"
+    )
     depth = {
         "critical": "signals and gradients keep their correlations over many layers",
         "ordered": f"input correlations are forgotten over about {_num(fig.xi_c)} layers",
         "chaotic": f"nearby inputs decorrelate over about {_num(fig.xi_c)} layers",
         "unbounded": "the signal's length grows without limit with depth",
     }[fig.phase]
-    return (f"Mean field ({short_cite('poole-2016')}; {short_cite('schoenholz-2017')}): "
-            f"{fig.activation} with sigma_w^2 = {fig.sigma_w2:.4g}, sigma_b^2 = "
-            f"{fig.sigma_b2:.4g} has length fixed point q* = {_num(fig.q_star)} and chi_1 = "
-            f"{_num(fig.chi_1)} ({fig.phase}): {depth}{crit}. Infinite-width estimate.")
+    return (
+        f"Mean field ({short_cite('poole-2016')}; {short_cite('schoenholz-2017')}): "
+        f"{fig.activation} with sigma_w^2 = {fig.sigma_w2:.4g}, sigma_b^2 = "
+        f"{fig.sigma_b2:.4g} has length fixed point q* = {_num(fig.q_star)} and chi_1 = "
+        f"{_num(fig.chi_1)} ({fig.phase}): {depth}{crit}. Infinite-width estimate."
+    )
 
 
 __all__ = [

@@ -39,12 +39,18 @@ def _identity_problem(index: int, layer: Any, slot: TensorSlot) -> Problem | Non
     cols = slot.logical_shape[1]
     if rows == cols:
         return None
-    what = ("channels_out/groups equal to channels_in/groups" if layer.kind == "conv"
-            else "a square weight (per gate block)")
-    return Problem(f"layers[{index}].init.method", "invalid_value",
-                   f"identity needs {what}: {slot.tensor} has {rows} output"
-                   f"{'' if rows == 1 else 's'} and {cols} input{'' if cols == 1 else 's'} "
-                   "per block; use orthogonal for rectangular weights")
+    what = (
+        "channels_out/groups equal to channels_in/groups"
+        if layer.kind == "conv"
+        else "a square weight (per gate block)"
+    )
+    return Problem(
+        f"layers[{index}].init.method",
+        "invalid_value",
+        f"identity needs {what}: {slot.tensor} has {rows} output"
+        f"{'' if rows == 1 else 's'} and {cols} input{'' if cols == 1 else 's'} "
+        "per block; use orthogonal for rectangular weights",
+    )
 
 
 def _largest_magnitude(choice: Choice) -> float:
@@ -55,36 +61,59 @@ def _largest_magnitude(choice: Choice) -> float:
     return abs(choice.scale) * (2.0 if choice.sampler == "truncated_normal" else 1.0)
 
 
-def _dtype_fit(index: int, layer: Any, slot: TensorSlot, choice: Choice, dtype: str,
-               problems: list[Problem]) -> Choice:
+def _dtype_fit(
+    index: int, layer: Any, slot: TensorSlot, choice: Choice, dtype: str, problems: list[Problem]
+) -> Choice:
     """Refuse derived scales that overflow the dtype; warn when they drown in its precision."""
     top, tiny = DTYPE_MAX[dtype], DTYPE_TINY[dtype]
     field = f"layers[{index}].init" if layer.init is not None else f"layers[{index}]"
     if _largest_magnitude(choice) > top:
-        problems.append(Problem(field, "invalid_value",
-                                f"{slot.tensor} would reach {_largest_magnitude(choice):.3g}, "
-                                f"beyond the largest finite {dtype} ({top:g}); allowed: scales "
-                                f"whose values stay within +-{top:g} (lower the gain or use a "
-                                "wider dtype)"))
+        problems.append(
+            Problem(
+                field,
+                "invalid_value",
+                f"{slot.tensor} would reach {_largest_magnitude(choice):.3g}, "
+                f"beyond the largest finite {dtype} ({top:g}); allowed: scales "
+                f"whose values stay within +-{top:g} (lower the gain or use a "
+                "wider dtype)",
+            )
+        )
     elif choice.std is not None and 0.0 < choice.std < tiny:
-        note = (f"std {choice.std:.3g} is below the smallest normal {dtype} number ({tiny:.3g}): "
-                "most values become subnormal or zero, losing precision and the symmetry "
-                "breaking; use a wider dtype.")
+        note = (
+            f"std {choice.std:.3g} is below the smallest normal {dtype} number ({tiny:.3g}): "
+            "most values become subnormal or zero, losing precision and the symmetry "
+            "breaking; use a wider dtype."
+        )
         return replace(choice, warnings=(*choice.warnings, note))
     return choice
 
 
 def _tensor_plan(slot: TensorSlot, dtype: str, choice: Choice) -> TensorPlan:
     return TensorPlan(
-        tensor=slot.tensor, layer=slot.layer, layer_kind=slot.layer_kind, part=slot.part,
-        shape=slot.served_shape, logical_shape=slot.logical_shape, served_axes=slot.served_axes,
-        dtype=dtype, method=choice.method, distribution=choice.distribution,
+        tensor=slot.tensor,
+        layer=slot.layer,
+        layer_kind=slot.layer_kind,
+        part=slot.part,
+        shape=slot.served_shape,
+        logical_shape=slot.logical_shape,
+        served_axes=slot.served_axes,
+        dtype=dtype,
+        method=choice.method,
+        distribution=choice.distribution,
         sampler=choice.sampler,  # type: ignore[arg-type]
-        scale=choice.scale, fan_in=choice.fan_in, fan_out=choice.fan_out, gain=choice.gain,
-        std=choice.std, bound=choice.bound, value=choice.value, gate_blocks=slot.gate_blocks,
+        scale=choice.scale,
+        fan_in=choice.fan_in,
+        fan_out=choice.fan_out,
+        gain=choice.gain,
+        std=choice.std,
+        bound=choice.bound,
+        value=choice.value,
+        gate_blocks=slot.gate_blocks,
         block_values=choice.block_values,
         reproducible=choice.reproducible,  # type: ignore[arg-type]
-        rationale=choice.rationale, references=choice.references, warnings=choice.warnings,
+        rationale=choice.rationale,
+        references=choice.references,
+        warnings=choice.warnings,
     )
 
 
@@ -92,8 +121,9 @@ def _uses_identity_recurrence(layer: Any) -> bool:
     return layer.kind == "recurrent" and layer.cell == "simple" and layer.activation == "relu"
 
 
-def _layer_choices(index: int, layer: Any, slots: list[TensorSlot],
-                   problems: list[Problem]) -> list[tuple[TensorSlot, Choice]]:
+def _layer_choices(
+    index: int, layer: Any, slots: list[TensorSlot], problems: list[Problem]
+) -> list[tuple[TensorSlot, Choice]]:
     out: list[tuple[TensorSlot, Choice]] = []
     for slot in slots:
         if layer.kind == "conv" and not slot.is_bias:
@@ -109,8 +139,9 @@ def _layer_choices(index: int, layer: Any, slots: list[TensorSlot],
     return out
 
 
-def _weight_choice(index: int, layer: Any, slot: TensorSlot,
-                   problems: list[Problem]) -> Choice | None:
+def _weight_choice(
+    index: int, layer: Any, slot: TensorSlot, problems: list[Problem]
+) -> Choice | None:
     recommended = recommend_weight(layer, slot, _uses_identity_recurrence(layer))
     if layer.init is None:
         return recommended
@@ -134,17 +165,18 @@ def _edge_of_chaos(activation: str, depth: int, choice: Choice) -> str:
     if critical is None or here.chi_1 is None:
         return ""
     xi = "unbounded" if here.xi_c is None else f"about {here.xi_c:.3g}"
-    return (f" Mean field: this scale (sigma_w^2 = {sw2:.4g}, sigma_b = 0) is {here.phase} "
-            f"with chi_1 = {here.chi_1:.3g}, so inputs decorrelate over {xi} layers (xi_c) "
-            f"against the stack's {depth}; the critical pair at sigma_b = 0 is sigma_w = "
-            f"{critical ** 0.5:.4g} (the override {{\"method\": \"lecun\", \"gain\": "
-            f"{critical ** 0.5:.4g}}} on these layers, with zero biases), where xi_c is unbounded "
-            "and correlations survive depth. Compare both with /v1/diagnose; these are "
-            "infinite-width estimates.")
+    return (
+        f" Mean field: this scale (sigma_w^2 = {sw2:.4g}, sigma_b = 0) is {here.phase} "
+        f"with chi_1 = {here.chi_1:.3g}, so inputs decorrelate over {xi} layers (xi_c) "
+        f"against the stack's {depth}; the critical pair at sigma_b = 0 is sigma_w = "
+        f'{critical**0.5:.4g} (the override {{"method": "lecun", "gain": '
+        f"{critical**0.5:.4g}}} on these layers, with zero biases), where xi_c is unbounded "
+        "and correlations survive depth. Compare both with /v1/diagnose; these are "
+        "infinite-width estimates."
+    )
 
 
-def _stack_warnings(request: NetworkRequest,
-                    weights: list[tuple[Any, Choice]]) -> list[str]:
+def _stack_warnings(request: NetworkRequest, weights: list[tuple[Any, Choice]]) -> list[str]:
     """Request-wide warnings about what depth does to the chosen scales.
 
     `weights` are the dense and conv weights in signal order; those inside residual branches
@@ -161,16 +193,21 @@ def _stack_warnings(request: NetworkRequest,
         if run_act in ("sigmoid", "tanh") and len(run) >= limit:
             n = len(run)
             if run_act == "sigmoid":
-                detail = (f"sigmoid'(x) <= 1/4, so backpropagated gradients can shrink by up to "
-                          f"4^-{n} = {4.0 ** -n:.3g} from {run[-1]} back to {run[0]}")
+                detail = (
+                    f"sigmoid'(x) <= 1/4, so backpropagated gradients can shrink by up to "
+                    f"4^-{n} = {4.0**-n:.3g} from {run[-1]} back to {run[0]}"
+                )
             else:
-                detail = ("tanh saturates on both sides; gradients shrink wherever units saturate "
-                          "and the shrinkage compounds with depth")
-            warnings.append(f"{n} consecutive {run_act} layers ({run[0]} .. {run[-1]}): {detail}. "
-                            "Expect vanishing gradients; a rectifier family activation, "
-                            "normalisation layers or residual connections avoid this."
-                            + (_edge_of_chaos(run_act, n, choices[run[0]])
-                               if run_act == "tanh" else ""))
+                detail = (
+                    "tanh saturates on both sides; gradients shrink wherever units saturate "
+                    "and the shrinkage compounds with depth"
+                )
+            warnings.append(
+                f"{n} consecutive {run_act} layers ({run[0]} .. {run[-1]}): {detail}. "
+                "Expect vanishing gradients; a rectifier family activation, "
+                "normalisation layers or residual connections avoid this."
+                + (_edge_of_chaos(run_act, n, choices[run[0]]) if run_act == "tanh" else "")
+            )
 
     for layer, _ in weights:
         act = layer.activation or "linear"
@@ -194,7 +231,8 @@ def _stack_warnings(request: NetworkRequest,
                 f"variance-preserving std): the signal {direction} geometrically with depth, "
                 "so activations and gradients will "
                 f"{'vanish' if drift < 1 else 'explode'}. This is an estimate from scales "
-                "alone, not a simulation.")
+                "alone, not a simulation."
+            )
             break
     return warnings
 
@@ -208,9 +246,10 @@ def plan_request(parsed: ParsedRequest) -> Plan:
     """
     request = parsed.request
     problems: list[Problem] = []
-    chosen = [_layer_choices(index, layer, list(slots), problems)
-              for index, (layer, slots) in enumerate(zip(request.layers, parsed.slots,
-                                                         strict=True))]
+    chosen = [
+        _layer_choices(index, layer, list(slots), problems)
+        for index, (layer, slots) in enumerate(zip(request.layers, parsed.slots, strict=True))
+    ]
     if problems:
         raise RequestRejected(problems)
     outcome = apply_policy(parsed, chosen)
@@ -232,11 +271,15 @@ def plan_request(parsed: ParsedRequest) -> Plan:
     if len(set(names)) != len(names):  # pragma: no cover - policy names cannot clash
         raise ValueError("a depth policy produced a tensor name twice")
     return Plan(
-        algorithm=ALGORITHM, seed=request.seed, dtype=request.dtype, layout=request.layout,
+        algorithm=ALGORITHM,
+        seed=request.seed,
+        dtype=request.dtype,
+        layout=request.layout,
         tensors=tuple(tensors),
         warnings=(*_stack_warnings(request, weights), *outcome.warnings),
         canonical_request=canonical_request(request),
-        multipliers=tuple(outcome.multipliers), policy=outcome.summary,
+        multipliers=tuple(outcome.multipliers),
+        policy=outcome.summary,
     )
 
 
@@ -264,8 +307,10 @@ def plan_document(plan: Plan) -> dict[str, Any]:
             "values": values,
             "bytes": sum(t.nbytes for t in plan.tensors),
         },
-        "notice": ("Scales follow published rules for the stated activations; they make a good "
-                   "start likely, not certain. Diagnostics are estimates."),
+        "notice": (
+            "Scales follow published rules for the stated activations; they make a good "
+            "start likely, not certain. Diagnostics are estimates."
+        ),
         "layers": layer_summaries(plan),
         "depth_policy": plan.policy,
         "multipliers": list(plan.multipliers),

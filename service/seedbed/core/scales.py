@@ -140,9 +140,7 @@ _HE_WHERE = {
 }
 
 
-def he_scale(
-    fan_in: float, fan_out: float, gain: float = math.sqrt(2.0), fan: str = "in"
-) -> Scale:
+def he_scale(fan_in: float, fan_out: float, gain: float = math.sqrt(2.0), fan: str = "in") -> Scale:
     n = select_fan(fan_in, fan_out, fan)
     g = _positive("gain", gain)
     std = g / math.sqrt(n)
@@ -165,9 +163,7 @@ def lecun_scale(fan_in: float, gain: float = 1.0) -> Scale:
     return Scale("lecun", std, std * _SQRT3, g, n, text, (cite("lecun-1998"),))
 
 
-def symmetric_uniform_scale(
-    fan_in: float, bound: float | None = None, gain: float = 1.0
-) -> Scale:
+def symmetric_uniform_scale(fan_in: float, bound: float | None = None, gain: float = 1.0) -> Scale:
     """U(-bound, bound). Without an explicit bound: gain/sqrt(fan_in) (Glorot & Bengio eq. 1).
 
     An explicit bound is taken as given; the gain then plays no part.
@@ -184,8 +180,10 @@ def symmetric_uniform_scale(
         refs: tuple[str, ...] = (cite("glorot-2010"),)
     else:
         b = _positive("bound", bound)
-        text = (f"symmetric uniform with the given bound {_fmt(b)}: std = bound/sqrt(3) = "
-                f"{_fmt(b / _SQRT3)}")
+        text = (
+            f"symmetric uniform with the given bound {_fmt(b)}: std = bound/sqrt(3) = "
+            f"{_fmt(b / _SQRT3)}"
+        )
         refs = ()
     return Scale("symmetric_uniform", b / _SQRT3, b, g, n, text, refs)
 
@@ -211,10 +209,15 @@ def _check_distribution(distribution: str) -> str:
 def _truncated(sigma: float, how: str) -> Realised:
     std = sigma * TRUNCATION_STD_FACTOR
     bound = sigma * TRUNCATION_BOUND
-    return Realised("truncated_normal", sigma, std, bound,
-                    f"{how}: untruncated sigma {_fmt(sigma)}, cut at +-{TRUNCATION_BOUND:g} sigma"
-                    f" = +-{_fmt(bound)}; truncation scales the std by {TRUNCATION_STD_FACTOR!r}"
-                    f", realised std {_fmt(std)}")
+    return Realised(
+        "truncated_normal",
+        sigma,
+        std,
+        bound,
+        f"{how}: untruncated sigma {_fmt(sigma)}, cut at +-{TRUNCATION_BOUND:g} sigma"
+        f" = +-{_fmt(bound)}; truncation scales the std by {TRUNCATION_STD_FACTOR!r}"
+        f", realised std {_fmt(std)}",
+    )
 
 
 def distribution_for_std(std: float, distribution: str) -> Realised:
@@ -225,8 +228,7 @@ def distribution_for_std(std: float, distribution: str) -> Realised:
         return Realised(dist, s, s, None, f"normal with std {_fmt(s)}")
     if dist == "uniform":
         b = s * _SQRT3
-        return Realised(dist, b, b / _SQRT3, b,
-                        f"uniform on +-std*sqrt(3) = +-{_fmt(b)}")
+        return Realised(dist, b, b / _SQRT3, b, f"uniform on +-std*sqrt(3) = +-{_fmt(b)}")
     return _truncated(s / TRUNCATION_STD_FACTOR, f"truncated normal with std {_fmt(s)}")
 
 
@@ -272,11 +274,17 @@ def _log_odds(p: float) -> float:
 
 def prior_bias(pi: float) -> PriorBias:
     """Output bias log(pi/(1-pi)), so that sigmoid(bias) = pi at the start (Lin et al. 2017)."""
-    if isinstance(pi, bool) or not isinstance(pi, int | float) or not math.isfinite(pi) \
-            or not 0.0 < float(pi) < 1.0:
+    if (
+        isinstance(pi, bool)
+        or not isinstance(pi, int | float)
+        or not math.isfinite(pi)
+        or not 0.0 < float(pi) < 1.0
+    ):
         raise ValueError(f"prior must be a number strictly between 0 and 1 (got {pi!r})")
     p = float(pi)
     value = _log_odds(p)
-    text = (f"prior bias b = log(pi/(1-pi)) = log({p!r}/(1-{p!r})) = {_fmt(value)}, so that "
-            f"sigmoid(b) = {p!r} at the start ({short_cite('lin-2017', 'sec. 4.1')})")
+    text = (
+        f"prior bias b = log(pi/(1-pi)) = log({p!r}/(1-{p!r})) = {_fmt(value)}, so that "
+        f"sigmoid(b) = {p!r} at the start ({short_cite('lin-2017', 'sec. 4.1')})"
+    )
     return PriorBias(value, p, text, (cite("lin-2017"),))

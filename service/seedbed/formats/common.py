@@ -161,8 +161,9 @@ def check_inputs(document: Mapping[str, Any], tensors: Sequence[OutgoingTensor])
 def canonical_json(value: Any, *, what: str = "value") -> bytes:
     """Stable JSON bytes: sorted keys, compact separators, ASCII only, no NaN/Infinity."""
     try:
-        text = json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=True,
-                          allow_nan=False)
+        text = json.dumps(
+            value, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False
+        )
     except (TypeError, ValueError) as exc:
         raise FormatInputError(f"{what} is not JSON-ready: {exc}") from exc
     return text.encode("ascii")
@@ -198,8 +199,7 @@ def check_digests(digests: Mapping[str, str] | None, tensors: Sequence[OutgoingT
         return
     for t in tensors:
         d = digests.get(t.name)
-        if (not isinstance(d, str) or len(d) != SHA256_HEX_LEN
-                or d.strip("0123456789abcdef") != ""):
+        if not isinstance(d, str) or len(d) != SHA256_HEX_LEN or d.strip("0123456789abcdef") != "":
             raise FormatInputError(
                 f"digests[{t.name!r}] must be a 64-character lower-case hex SHA-256, got {d!r}"
             )
@@ -341,7 +341,7 @@ def tensor_from_array(
 
     def pieces() -> Iterator[Chunk]:
         for start in range(0, len(view), chunk_bytes):
-            yield view[start:start + chunk_bytes]
+            yield view[start : start + chunk_bytes]
 
     return OutgoingTensor(
         name=name,

@@ -75,11 +75,19 @@ def _layout(document: Mapping[str, Any], tensors: Sequence[OutgoingTensor]) -> _
     parts: list[tuple[bytes, bytes, bytes]] = []
     length = len(head) + len(tail) + 2 + max(len(tensors) - 1, 0)  # brackets and commas
     for t in tensors:
-        before, between, after = _render_around(t.entry, [DATA_KEY, DIGEST_KEY],
-                                                f"entry of tensor {t.name!r}")
+        before, between, after = _render_around(
+            t.entry, [DATA_KEY, DIGEST_KEY], f"entry of tensor {t.name!r}"
+        )
         parts.append((before, between, after))
-        length += (len(before) + len(between) + len(after)
-                   + 2 + base64_length(t.nbytes) + 2 + SHA256_HEX_LEN)
+        length += (
+            len(before)
+            + len(between)
+            + len(after)
+            + 2
+            + base64_length(t.nbytes)
+            + 2
+            + SHA256_HEX_LEN
+        )
     return _Layout(head, tail, tuple(parts), length)
 
 
@@ -125,8 +133,7 @@ def json_body(
 
     def produce() -> Iterator[bytes]:
         yield layout.head + b"["
-        for i, (t, (before, between, after)) in enumerate(zip(tensors, layout.parts,
-                                                              strict=True)):
+        for i, (t, (before, between, after)) in enumerate(zip(tensors, layout.parts, strict=True)):
             yield (b"," if i else b"") + before + b'"'
             expected = given[t.name] if given is not None else None
             digest = yield from _base64_of(checked_chunks(t, expected))

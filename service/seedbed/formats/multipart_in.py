@@ -106,8 +106,13 @@ class FormPartsParser:
     """Feed with `feed(bytes)`, end with `finish()`. `open_part` is called once per part, with
     the part's name, file name and content type, and returns where its data goes."""
 
-    def __init__(self, boundary: bytes, open_part: Callable[[PartInfo], PartSink],
-                 max_header_bytes: int = 16384, max_parts: int = 16) -> None:
+    def __init__(
+        self,
+        boundary: bytes,
+        open_part: Callable[[PartInfo], PartSink],
+        max_header_bytes: int = 16384,
+        max_parts: int = 16,
+    ) -> None:
         self._delimiter = b"\r\n--" + boundary
         self._open_part = open_part
         self._max_header = max_header_bytes
@@ -131,8 +136,9 @@ class FormPartsParser:
 
     def finish(self) -> None:
         if self._state != "epilogue":
-            raise FormError("the multipart body ended before its closing boundary "
-                            "(truncated upload?)")
+            raise FormError(
+                "the multipart body ended before its closing boundary (truncated upload?)"
+            )
 
     def _step(self) -> bool:
         """Advance once; False when more input is needed."""

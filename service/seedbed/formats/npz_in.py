@@ -43,8 +43,16 @@ _EOCD_SIZE = 22
 _MAX_COMMENT = 0xFFFF
 _READ_PIECE = 1 << 20
 # Exceptions the zip and NPY readers raise for damaged input (never for our own mistakes).
-_DAMAGE = (zipfile.BadZipFile, zipfile.LargeZipFile, zlib.error, EOFError, OSError, ValueError,
-           struct.error, NotImplementedError)
+_DAMAGE = (
+    zipfile.BadZipFile,
+    zipfile.LargeZipFile,
+    zlib.error,
+    EOFError,
+    OSError,
+    ValueError,
+    struct.error,
+    NotImplementedError,
+)
 
 
 def _declared_entries(fp: IO[bytes], size: int) -> int | None:
@@ -59,7 +67,7 @@ def _declared_entries(fp: IO[bytes], size: int) -> int | None:
     if count != 0xFFFF:
         return count
     loc = at - 20
-    if loc < 0 or tail[loc:loc + 4] != _EOCD64_LOCATOR:
+    if loc < 0 or tail[loc : loc + 4] != _EOCD64_LOCATOR:
         return count
     (offset,) = struct.unpack_from("<Q", tail, loc + 8)
     if offset + 56 > size:
@@ -86,18 +94,24 @@ def _dtype_label(dtype: np.dtype[Any], bf16: bool) -> str | None:
     return None
 
 
-def _bf16_names_from_manifest(zf: zipfile.ZipFile, info: zipfile.ZipInfo,
-                              limits: AuditLimits) -> tuple[set[str], str | None]:
+def _bf16_names_from_manifest(
+    zf: zipfile.ZipFile, info: zipfile.ZipInfo, limits: AuditLimits
+) -> tuple[set[str], str | None]:
     """Tensors that seedbed's own NPZ stored as uint16 bit patterns of bfloat16."""
     if info.file_size > limits.max_header_bytes:
-        return set(), (f"member {info.filename!r} ({info.file_size} bytes) is larger than "
-                       f"{limits.max_header_bytes} bytes and was not read")
+        return set(), (
+            f"member {info.filename!r} ({info.file_size} bytes) is larger than "
+            f"{limits.max_header_bytes} bytes and was not read"
+        )
     try:
         with zf.open(info) as f:
             manifest = json.loads(f.read(limits.max_header_bytes + 1).decode("utf-8"))
         entries = manifest.get("tensors", [])
-        names = {str(e["tensor"]) for e in entries
-                 if isinstance(e, dict) and e.get(STORED_AS_KEY) == BF16_STORED_AS}
+        names = {
+            str(e["tensor"])
+            for e in entries
+            if isinstance(e, dict) and e.get(STORED_AS_KEY) == BF16_STORED_AS
+        }
     except (*_DAMAGE, UnicodeDecodeError, AttributeError, KeyError, TypeError):
         return set(), f"member {info.filename!r} is not a readable seedbed manifest; ignored"
     return names, None
@@ -106,44 +120,56 @@ def _bf16_names_from_manifest(zf: zipfile.ZipFile, info: zipfile.ZipInfo,
 class _MemberHeader:
     __slots__ = ("data_offset", "dtype", "fortran", "shape")
 
-    def __init__(self, dtype: np.dtype[Any], shape: tuple[int, ...], fortran: bool,
-                 data_offset: int) -> None:
+    def __init__(
+        self, dtype: np.dtype[Any], shape: tuple[int, ...], fortran: bool, data_offset: int
+    ) -> None:
         self.dtype = dtype
         self.shape = shape
         self.fortran = fortran
         self.data_offset = data_offset
 
 
-def _read_member_header(zf: zipfile.ZipFile, info: zipfile.ZipInfo,
-                        limits: AuditLimits) -> _MemberHeader:
+def _read_member_header(
+    zf: zipfile.ZipFile, info: zipfile.ZipInfo, limits: AuditLimits
+) -> _MemberHeader:
     name = info.filename
     try:
         with zf.open(info) as f:
             version = npy_format.read_magic(f)
             if version == (1, 0):
                 shape, fortran, dtype = npy_format.read_array_header_1_0(
-                    f, max_header_size=limits.max_npy_header_bytes)
+                    f, max_header_size=limits.max_npy_header_bytes
+                )
             elif version in ((2, 0), (3, 0)):
                 # 3.0 differs from 2.0 only in allowing UTF-8 field names of structured dtypes,
                 # which are listed but never analysed.
                 shape, fortran, dtype = npy_format.read_array_header_2_0(
-                    f, max_header_size=limits.max_npy_header_bytes)
+                    f, max_header_size=limits.max_npy_header_bytes
+                )
             else:
                 raise ValueError(f"NPY format version {version[0]}.{version[1]} is not known")
             offset = f.tell()
     except _DAMAGE as exc:
-        raise UploadRefused("corrupt_file",
-                            f"member {name!r} is not a readable NPY array: {exc}") from None
+        raise UploadRefused(
+            "corrupt_file", f"member {name!r} is not a readable NPY array: {exc}"
+        ) from None
     if any(d < 0 for d in shape):
         # numpy's header reader checks only that the sizes are integers.
-        raise UploadRefused("corrupt_file",
-                            f"member {name!r} declares shape {list(shape)}; sizes must be "
-                            "non-negative")
+        raise UploadRefused(
+            "corrupt_file",
+            f"member {name!r} declares shape {list(shape)}; sizes must be non-negative",
+        )
     return _MemberHeader(dtype, tuple(int(d) for d in shape), bool(fortran), offset)
 
 
-def _loader(zf: zipfile.ZipFile, info: zipfile.ZipInfo, head: _MemberHeader,
-            stored: np.dtype[Any], view_as: Any, expected: int) -> Callable[[], np.ndarray]:
+def _loader(
+    zf: zipfile.ZipFile,
+    info: zipfile.ZipInfo,
+    head: _MemberHeader,
+    stored: np.dtype[Any],
+    view_as: Any,
+    expected: int,
+) -> Callable[[], np.ndarray]:
     def load() -> np.ndarray:
         name = info.filename
         out = bytearray(expected)
@@ -157,24 +183,28 @@ def _loader(zf: zipfile.ZipFile, info: zipfile.ZipInfo, head: _MemberHeader,
                     if not piece:
                         raise UploadRefused(
                             "truncated_file",
-                            f"member {name!r} ends after {pos} of its {expected} data bytes")
-                    view[pos:pos + len(piece)] = piece
+                            f"member {name!r} ends after {pos} of its {expected} data bytes",
+                        )
+                    view[pos : pos + len(piece)] = piece
                     pos += len(piece)
                 # Reading to the end makes zipfile check the member's CRC-32.
                 if f.read(1):
-                    raise UploadRefused("corrupt_file",
-                                        f"member {name!r} has bytes after its array data")
+                    raise UploadRefused(
+                        "corrupt_file", f"member {name!r} has bytes after its array data"
+                    )
         except _DAMAGE as exc:
-            raise UploadRefused("corrupt_file",
-                                f"member {name!r} cannot be decompressed intact: {exc}") from None
+            raise UploadRefused(
+                "corrupt_file", f"member {name!r} cannot be decompressed intact: {exc}"
+            ) from None
         values = np.frombuffer(out, dtype=stored)
         native = stored.newbyteorder("=")
         if stored != native:
             values = values.astype(native)
         if view_as is not None:
             values = values.view(view_as)
-        shaped = values.reshape(head.shape, order="F") if head.fortran \
-            else values.reshape(head.shape)
+        shaped = (
+            values.reshape(head.shape, order="F") if head.fortran else values.reshape(head.shape)
+        )
         return np.ascontiguousarray(shaped)
 
     return load
@@ -183,25 +213,33 @@ def _loader(zf: zipfile.ZipFile, info: zipfile.ZipInfo, head: _MemberHeader,
 def _check_member_meta(info: zipfile.ZipInfo, size: int, limits: AuditLimits) -> None:
     name = info.filename
     if info.flag_bits & 0x1:
-        raise UploadRefused("unsupported_file",
-                            f"member {name!r} is encrypted; upload an unencrypted NPZ")
+        raise UploadRefused(
+            "unsupported_file", f"member {name!r} is encrypted; upload an unencrypted NPZ"
+        )
     if info.compress_type not in (zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED):
-        raise UploadRefused("unsupported_file",
-                            f"member {name!r} uses zip compression method {info.compress_type}; "
-                            "allowed: stored (np.savez) or deflate (np.savez_compressed)")
+        raise UploadRefused(
+            "unsupported_file",
+            f"member {name!r} uses zip compression method {info.compress_type}; "
+            "allowed: stored (np.savez) or deflate (np.savez_compressed)",
+        )
     if info.file_size > limits.max_upload_bytes:
-        raise UploadRefused("too_large",
-                            f"member {name!r} declares {info.file_size} uncompressed bytes; at "
-                            f"most {limits.max_upload_bytes} are unpacked per upload"
-                            f"{raised_by('max_audit_bytes')}")
+        raise UploadRefused(
+            "too_large",
+            f"member {name!r} declares {info.file_size} uncompressed bytes; at "
+            f"most {limits.max_upload_bytes} are unpacked per upload"
+            f"{raised_by('max_audit_bytes')}",
+        )
     if info.header_offset + info.compress_size > size:
-        raise UploadRefused("truncated_file",
-                            f"member {name!r} needs {info.compress_size} bytes from offset "
-                            f"{info.header_offset}, past the end of the {size}-byte file")
+        raise UploadRefused(
+            "truncated_file",
+            f"member {name!r} needs {info.compress_size} bytes from offset "
+            f"{info.header_offset}, past the end of the {size}-byte file",
+        )
 
 
-def read_npz(fp: IO[bytes], size: int, limits: AuditLimits,
-             bfloat16_names: Collection[str] = ()) -> Upload:
+def read_npz(
+    fp: IO[bytes], size: int, limits: AuditLimits, bfloat16_names: Collection[str] = ()
+) -> Upload:
     """Check an NPZ's structure and every member's header; refuse it before any value is read.
 
     `bfloat16_names` are tensors whose 2-byte members hold bfloat16 bit patterns (from a
@@ -209,13 +247,17 @@ def read_npz(fp: IO[bytes], size: int, limits: AuditLimits,
     """
     declared = _declared_entries(fp, size)
     if declared is None:
-        raise UploadRefused("corrupt_file",
-                            "the zip archive has no end-of-central-directory record: the file is "
-                            "truncated, or not a complete NPZ")
+        raise UploadRefused(
+            "corrupt_file",
+            "the zip archive has no end-of-central-directory record: the file is "
+            "truncated, or not a complete NPZ",
+        )
     if declared > limits.max_tensors + 1:
-        raise UploadRefused("too_large",
-                            f"the archive declares {declared} members; at most "
-                            f"{limits.max_tensors} tensors are audited per upload")
+        raise UploadRefused(
+            "too_large",
+            f"the archive declares {declared} members; at most "
+            f"{limits.max_tensors} tensors are audited per upload",
+        )
     try:
         fp.seek(0)
         zf = zipfile.ZipFile(fp)
@@ -227,17 +269,21 @@ def read_npz(fp: IO[bytes], size: int, limits: AuditLimits,
     total = 0
     for info in infos:
         if info.filename in seen:
-            raise UploadRefused("corrupt_file",
-                                f"member {info.filename!r} appears twice in the archive; which "
-                                "one is meant is ambiguous")
+            raise UploadRefused(
+                "corrupt_file",
+                f"member {info.filename!r} appears twice in the archive; which "
+                "one is meant is ambiguous",
+            )
         seen.add(info.filename)
         _check_member_meta(info, size, limits)
         total += info.file_size
     if total > limits.max_upload_bytes:
-        raise UploadRefused("too_large",
-                            f"the members declare {total} uncompressed bytes in total; at most "
-                            f"{limits.max_upload_bytes} are unpacked per upload"
-                            f"{raised_by('max_audit_bytes')}")
+        raise UploadRefused(
+            "too_large",
+            f"the members declare {total} uncompressed bytes in total; at most "
+            f"{limits.max_upload_bytes} are unpacked per upload"
+            f"{raised_by('max_audit_bytes')}",
+        )
 
     notes: list[str] = []
     hinted = set(bfloat16_names)
@@ -262,37 +308,53 @@ def read_npz(fp: IO[bytes], size: int, limits: AuditLimits,
     return Upload("npz", tuple(tensors), tuple(notes), tuple(skipped))
 
 
-def _member_tensor(zf: zipfile.ZipFile, info: zipfile.ZipInfo, limits: AuditLimits,
-                   hinted: set[str]) -> StoredTensor:
+def _member_tensor(
+    zf: zipfile.ZipFile, info: zipfile.ZipInfo, limits: AuditLimits, hinted: set[str]
+) -> StoredTensor:
     name = info.filename
     tensor = name[: -len(".npy")]
     head = _read_member_header(zf, info, limits)
     if head.dtype.hasobject:
-        raise UploadRefused("pickled_data",
-                            f"member {name!r} holds Python objects (dtype {head.dtype.str!r}), "
-                            "stored as a pickle; pickled data is never loaded. Save plain "
-                            "numeric arrays (np.savez of float arrays) or use safetensors")
+        raise UploadRefused(
+            "pickled_data",
+            f"member {name!r} holds Python objects (dtype {head.dtype.str!r}), "
+            "stored as a pickle; pickled data is never loaded. Save plain "
+            "numeric arrays (np.savez of float arrays) or use safetensors",
+        )
     count = 1
     for d in head.shape:
         count *= d
     expected = count * head.dtype.itemsize
     held = info.file_size - head.data_offset
     if held < expected:
-        raise UploadRefused("truncated_file",
-                            f"member {name!r} declares shape {list(head.shape)} of "
-                            f"{head.dtype.str} ({expected} bytes) but holds {max(held, 0)} "
-                            "bytes of data")
+        raise UploadRefused(
+            "truncated_file",
+            f"member {name!r} declares shape {list(head.shape)} of "
+            f"{head.dtype.str} ({expected} bytes) but holds {max(held, 0)} "
+            "bytes of data",
+        )
     if held > expected:
-        raise UploadRefused("corrupt_file",
-                            f"member {name!r} holds {held - expected} bytes after the "
-                            f"{expected} bytes its header declares")
+        raise UploadRefused(
+            "corrupt_file",
+            f"member {name!r} holds {held - expected} bytes after the "
+            f"{expected} bytes its header declares",
+        )
     label = _dtype_label(head.dtype, tensor in hinted)
     if label is None:
-        hint = (" (2-byte opaque values: bfloat16 saved by ml_dtypes looks like this; send a "
-                "request with dtype bfloat16 to have it read as such)"
-                if head.dtype.kind == "V" and head.dtype.itemsize == 2 else "")
-        return StoredTensor(tensor, head.dtype.str, head.shape, expected, None,
-                            f"dtype {head.dtype.str!r} is not analysed{hint}")
+        hint = (
+            " (2-byte opaque values: bfloat16 saved by ml_dtypes looks like this; send a "
+            "request with dtype bfloat16 to have it read as such)"
+            if head.dtype.kind == "V" and head.dtype.itemsize == 2
+            else ""
+        )
+        return StoredTensor(
+            tensor,
+            head.dtype.str,
+            head.shape,
+            expected,
+            None,
+            f"dtype {head.dtype.str!r} is not analysed{hint}",
+        )
     note = None
     view_as: Any = None
     stored = head.dtype
@@ -303,5 +365,11 @@ def _member_tensor(zf: zipfile.ZipFile, info: zipfile.ZipInfo, limits: AuditLimi
         stored = np.dtype(">u2" if head.dtype.byteorder == ">" else "<u2")
         view_as = ml_dtypes.bfloat16
         note = f"stored as {head.dtype.str} bit patterns, read as bfloat16"
-    return StoredTensor(tensor, label, head.shape, expected,
-                        _loader(zf, info, head, stored, view_as, expected), note)
+    return StoredTensor(
+        tensor,
+        label,
+        head.shape,
+        expected,
+        _loader(zf, info, head, stored, view_as, expected),
+        note,
+    )

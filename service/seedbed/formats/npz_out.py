@@ -115,10 +115,24 @@ class _Member:
         if self.zip64_local:
             extra = struct.pack("<HHQQ", 0x0001, 16, size, size)
             size32 = 0xFFFFFFFF
-        return struct.pack(
-            "<IHHHHHIIIHH", _SIG_LOCAL, self.needs(limit), self.flags, _STORED, _DOS_TIME,
-            _DOS_DATE, crc, size32, size32, len(self.name), len(extra),
-        ) + self.name + extra
+        return (
+            struct.pack(
+                "<IHHHHHIIIHH",
+                _SIG_LOCAL,
+                self.needs(limit),
+                self.flags,
+                _STORED,
+                _DOS_TIME,
+                _DOS_DATE,
+                crc,
+                size32,
+                size32,
+                len(self.name),
+                len(extra),
+            )
+            + self.name
+            + extra
+        )
 
     def local_header_length(self) -> int:
         return 30 + len(self.name) + (20 if self.zip64_local else 0)
@@ -136,8 +150,7 @@ class _Member:
         return 24 if self.zip64_local else 16
 
     def end(self) -> int:
-        return (self.offset + self.local_header_length() + self.size
-                + self.descriptor_length())
+        return self.offset + self.local_header_length() + self.size + self.descriptor_length()
 
     def central_record(self, crc: int, limit: int) -> bytes:
         # APPNOTE 4.5.3: the ZIP64 extra holds, in this order, only the fields whose classic
@@ -154,11 +167,30 @@ class _Member:
         extra = b""
         if fields:
             extra = struct.pack(f"<HH{len(fields)}Q", 0x0001, 8 * len(fields), *fields)
-        return struct.pack(
-            "<IHHHHHHIIIHHHHHII", _SIG_CENTRAL, _MADE_BY, self.needs(limit), self.flags,
-            _STORED, _DOS_TIME, _DOS_DATE, crc, size32, size32, len(self.name), len(extra), 0,
-            0, 0, _EXTERNAL_ATTR, offset32,
-        ) + self.name + extra
+        return (
+            struct.pack(
+                "<IHHHHHHIIIHHHHHII",
+                _SIG_CENTRAL,
+                _MADE_BY,
+                self.needs(limit),
+                self.flags,
+                _STORED,
+                _DOS_TIME,
+                _DOS_DATE,
+                crc,
+                size32,
+                size32,
+                len(self.name),
+                len(extra),
+                0,
+                0,
+                0,
+                _EXTERNAL_ATTR,
+                offset32,
+            )
+            + self.name
+            + extra
+        )
 
     def central_record_length(self, limit: int) -> int:
         n = (2 if self.size >= limit else 0) + (1 if self.offset >= limit else 0)
@@ -177,8 +209,17 @@ def _end_records(count: int, cd_offset: int, cd_size: int, limit: int) -> bytes:
     if count >= count_limit or cd_offset >= limit or cd_size >= limit:
         end64_offset = cd_offset + cd_size
         out += struct.pack(
-            "<IQHHIIQQQQ", _SIG_END64, 44, _MADE_BY, _NEEDS_ZIP64, 0, 0, count, count,
-            cd_size, cd_offset,
+            "<IQHHIIQQQQ",
+            _SIG_END64,
+            44,
+            _MADE_BY,
+            _NEEDS_ZIP64,
+            0,
+            0,
+            count,
+            count,
+            cd_size,
+            cd_offset,
         )
         out += struct.pack("<IIQI", _SIG_LOCATOR64, 0, end64_offset, 1)
     count16 = count if count < count_limit else 0xFFFF
@@ -209,8 +250,7 @@ def npz_body(
     check_inputs(document, tensors)
     check_digests(digests, tensors)
     limit = _zip64_limit
-    manifest = json_snapshot(build_manifest(document, tensors, None, _bf16_note),
-                             what="manifest")
+    manifest = json_snapshot(build_manifest(document, tensors, None, _bf16_note), what="manifest")
     manifest_length = len(canonical_json(manifest))
 
     npy_headers = [npy_header(t.dtype, t.shape) for t in tensors]
@@ -223,19 +263,22 @@ def npz_body(
         members.append(member)
         position = member.end()
     name, flags = _member_name(MANIFEST_MEMBER)
-    manifest_member = _Member(name, flags, manifest_length, position,
-                              manifest_length >= limit, False)
+    manifest_member = _Member(
+        name, flags, manifest_length, position, manifest_length >= limit, False
+    )
     members.append(manifest_member)
     cd_offset = manifest_member.end()
     cd_size = sum(m.central_record_length(limit) for m in members)
-    content_length = cd_offset + cd_size + len(_end_records(len(members), cd_offset, cd_size,
-                                                            limit))
+    content_length = (
+        cd_offset + cd_size + len(_end_records(len(members), cd_offset, cd_size, limit))
+    )
     given = dict(digests) if digests is not None else None
 
     def produce() -> Iterator[bytes]:
         crcs: list[int] = []
-        for t, head, member, entry in zip(tensors, npy_headers, members,
-                                          manifest[TENSORS_KEY], strict=False):
+        for t, head, member, entry in zip(
+            tensors, npy_headers, members, manifest[TENSORS_KEY], strict=False
+        ):
             yield member.local_header(0, limit)
             crc = zlib.crc32(head)
             yield head

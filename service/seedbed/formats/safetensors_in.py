@@ -72,19 +72,22 @@ def _no_constants(token: str) -> NoReturn:
 
 def _read_header(fp: IO[bytes], size: int, limits: AuditLimits) -> tuple[dict[str, Any], int]:
     if size < HEADER_LENGTH_BYTES:
-        raise UploadRefused("truncated_file",
-                            f"the file has {size} bytes; a safetensors file starts with an "
-                            "8-byte header length")
+        raise UploadRefused(
+            "truncated_file",
+            f"the file has {size} bytes; a safetensors file starts with an 8-byte header length",
+        )
     fp.seek(0)
     (length,) = struct.unpack("<Q", fp.read(HEADER_LENGTH_BYTES))
     if length > size - HEADER_LENGTH_BYTES:
-        raise UploadRefused("truncated_file",
-                            f"the header length is {length} bytes but only "
-                            f"{size - HEADER_LENGTH_BYTES} bytes follow it")
+        raise UploadRefused(
+            "truncated_file",
+            f"the header length is {length} bytes but only "
+            f"{size - HEADER_LENGTH_BYTES} bytes follow it",
+        )
     if length > limits.max_header_bytes:
-        raise UploadRefused("too_large",
-                            f"the header is {length} bytes; at most {limits.max_header_bytes} "
-                            "are read")
+        raise UploadRefused(
+            "too_large", f"the header is {length} bytes; at most {limits.max_header_bytes} are read"
+        )
     raw = fp.read(length)
     try:
         text = raw.decode("utf-8")
@@ -116,26 +119,37 @@ def _entry(name: str, value: object) -> tuple[str, tuple[int, ...], int, int]:
     if set(value) != _FIELDS:
         extra = sorted(set(value) - _FIELDS)
         missing = sorted(_FIELDS - set(value))
-        _corrupt(f"tensor {name!r}: entry fields must be exactly dtype, shape, data_offsets"
-                 + (f"; missing {missing}" if missing else "")
-                 + (f"; unknown {extra}" if extra else ""))
+        _corrupt(
+            f"tensor {name!r}: entry fields must be exactly dtype, shape, data_offsets"
+            + (f"; missing {missing}" if missing else "")
+            + (f"; unknown {extra}" if extra else "")
+        )
     dtype = value["dtype"]
     if not isinstance(dtype, str) or dtype not in DTYPES:
-        _corrupt(f"tensor {name!r}: dtype {dtype!r} is not a safetensors dtype; allowed: "
-                 + ", ".join(DTYPES))
+        _corrupt(
+            f"tensor {name!r}: dtype {dtype!r} is not a safetensors dtype; allowed: "
+            + ", ".join(DTYPES)
+        )
     shape = value["shape"]
     if not isinstance(shape, list) or not all(_is_count(d) for d in shape):
         _corrupt(f"tensor {name!r}: shape must be a list of non-negative integers, got {shape!r}")
     offsets = value["data_offsets"]
-    if (not isinstance(offsets, list) or len(offsets) != 2 or not all(_is_count(o) for o in offsets)
-            or offsets[0] > offsets[1]):
-        _corrupt(f"tensor {name!r}: data_offsets must be [begin, end] with 0 <= begin <= end, "
-                 f"got {offsets!r}")
+    if (
+        not isinstance(offsets, list)
+        or len(offsets) != 2
+        or not all(_is_count(o) for o in offsets)
+        or offsets[0] > offsets[1]
+    ):
+        _corrupt(
+            f"tensor {name!r}: data_offsets must be [begin, end] with 0 <= begin <= end, "
+            f"got {offsets!r}"
+        )
     return dtype, tuple(shape), offsets[0], offsets[1]
 
 
-def _loader(fp: IO[bytes], start: int, nbytes: int, stored: str, shape: tuple[int, ...],
-            bf16: bool) -> Callable[[], np.ndarray]:
+def _loader(
+    fp: IO[bytes], start: int, nbytes: int, stored: str, shape: tuple[int, ...], bf16: bool
+) -> Callable[[], np.ndarray]:
     def load() -> np.ndarray:
         out = bytearray(nbytes)
         view = memoryview(out)
@@ -145,7 +159,7 @@ def _loader(fp: IO[bytes], start: int, nbytes: int, stored: str, shape: tuple[in
             piece = fp.read(min(_READ_PIECE, nbytes - pos))
             if not piece:  # the size was checked against the file; only a shrinking file gets here
                 raise UploadRefused("truncated_file", "the file ended while reading a tensor")
-            view[pos:pos + len(piece)] = piece
+            view[pos : pos + len(piece)] = piece
             pos += len(piece)
         values = np.frombuffer(out, dtype=np.dtype(stored))
         native = values.dtype.newbyteorder("=")
@@ -168,9 +182,11 @@ def read_safetensors(fp: IO[bytes], size: int, limits: AuditLimits) -> Upload:
     if "__metadata__" in header:
         _check_metadata(header["__metadata__"])
     if len(entries) > limits.max_tensors:
-        raise UploadRefused("too_large",
-                            f"the header lists {len(entries)} tensors; at most "
-                            f"{limits.max_tensors} are audited per upload")
+        raise UploadRefused(
+            "too_large",
+            f"the header lists {len(entries)} tensors; at most "
+            f"{limits.max_tensors} are audited per upload",
+        )
     parsed: list[tuple[str, str, tuple[int, ...], int, int]] = []
     for name, value in entries:
         dtype, shape, begin, end = _entry(name, value)
@@ -179,20 +195,26 @@ def read_safetensors(fp: IO[bytes], size: int, limits: AuditLimits) -> Upload:
             count *= d
         need = count * DTYPES[dtype][1]
         if end - begin != need:
-            _corrupt(f"tensor {name!r}: shape {list(shape)} of {dtype} needs {need} bytes but "
-                     f"data_offsets [{begin}, {end}] span {end - begin}")
+            _corrupt(
+                f"tensor {name!r}: shape {list(shape)} of {dtype} needs {need} bytes but "
+                f"data_offsets [{begin}, {end}] span {end - begin}"
+            )
         if end > data_len:
-            raise UploadRefused("truncated_file",
-                                f"tensor {name!r} ends at byte {end} of the data section, "
-                                f"which has only {data_len} bytes")
+            raise UploadRefused(
+                "truncated_file",
+                f"tensor {name!r} ends at byte {end} of the data section, "
+                f"which has only {data_len} bytes",
+            )
         parsed.append((name, dtype, shape, begin, end))
 
     expected = 0
     for name, _, _, begin, end in sorted(parsed, key=lambda p: (p[3], p[4])):
         if begin != expected:
             what = "overlaps the tensor before it" if begin < expected else "leaves a gap"
-            _corrupt(f"tensor {name!r} starts at byte {begin} of the data section where "
-                     f"{expected} was expected: it {what}; tensors must tile the data exactly")
+            _corrupt(
+                f"tensor {name!r} starts at byte {begin} of the data section where "
+                f"{expected} was expected: it {what}; tensors must tile the data exactly"
+            )
         expected = end
     if expected != data_len:
         _corrupt(f"the data section has {data_len - expected} bytes after the last tensor")
@@ -201,8 +223,11 @@ def read_safetensors(fp: IO[bytes], size: int, limits: AuditLimits) -> Upload:
     for name, dtype, shape, begin, end in parsed:
         label, _, stored = DTYPES[dtype]
         if label is None or stored is None:
-            tensors.append(StoredTensor(name, dtype, shape, end - begin, None,
-                                        f"dtype {dtype} is not analysed"))
+            tensors.append(
+                StoredTensor(
+                    name, dtype, shape, end - begin, None, f"dtype {dtype} is not analysed"
+                )
+            )
             continue
         load = _loader(fp, data_start + begin, end - begin, stored, shape, label == "bfloat16")
         tensors.append(StoredTensor(name, label, shape, end - begin, load))

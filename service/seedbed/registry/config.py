@@ -146,9 +146,7 @@ def config_from_env(environ: Mapping[str, str] | None = None) -> RegistryConfig:
     """The registry's configuration from its variables (`environ`: a mapping standing in for
     the process environment)."""
     env = registry_environment(environ)
-    read_protected = _flag(
-        PREFIX + "READ_REQUIRES_KEY", env.get(PREFIX + "READ_REQUIRES_KEY", "0")
-    )
+    read_protected = _flag(PREFIX + "READ_REQUIRES_KEY", env.get(PREFIX + "READ_REQUIRES_KEY", "0"))
     shared = _flag(PREFIX + "SHARED_DATABASE", env.get(PREFIX + "SHARED_DATABASE", "0"))
     given = _database_url_text(env)
     if given is None:

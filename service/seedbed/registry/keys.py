@@ -93,9 +93,7 @@ def create_key(engine: Engine, name: str) -> NewKey:
     token = f"{TOKEN_PREFIX}_{lookup}_{secrets.token_urlsafe(32)}"
     created = now_utc()
     with writing(engine) as conn:
-        taken = conn.execute(
-            select(publish_keys.c.name).where(publish_keys.c.name == name)
-        ).first()
+        taken = conn.execute(select(publish_keys.c.name).where(publish_keys.c.name == name)).first()
         if taken is not None:
             # Names stay taken after revocation: recipes name their publisher, and a new key
             # under an old name would blur who published what.
@@ -113,8 +111,9 @@ def create_key(engine: Engine, name: str) -> NewKey:
 def list_keys(engine: Engine) -> list[KeyInfo]:
     with reading(engine) as conn:
         rows = conn.execute(
-            select(publish_keys.c.name, publish_keys.c.created_at, publish_keys.c.revoked_at)
-            .order_by(publish_keys.c.name)
+            select(
+                publish_keys.c.name, publish_keys.c.created_at, publish_keys.c.revoked_at
+            ).order_by(publish_keys.c.name)
         ).all()
     return [
         KeyInfo(r.name, utc(r.created_at), None if r.revoked_at is None else utc(r.revoked_at))
@@ -125,15 +124,14 @@ def list_keys(engine: Engine) -> list[KeyInfo]:
 def revoke_key(engine: Engine, name: str) -> KeyInfo:
     with writing(engine) as conn:
         row = conn.execute(
-            select(publish_keys.c.created_at, publish_keys.c.revoked_at)
-            .where(publish_keys.c.name == name)
+            select(publish_keys.c.created_at, publish_keys.c.revoked_at).where(
+                publish_keys.c.name == name
+            )
         ).first()
         if row is None:
             raise UnknownKeyError(f"no key named {name!r}; `seedbed keys list` shows the names")
         if row.revoked_at is not None:
-            raise KeyRevokedError(
-                f"key {name!r} was already revoked at {iso(row.revoked_at)}"
-            )
+            raise KeyRevokedError(f"key {name!r} was already revoked at {iso(row.revoked_at)}")
         revoked = now_utc()
         conn.execute(
             publish_keys.update().where(publish_keys.c.name == name).values(revoked_at=revoked)
@@ -172,9 +170,7 @@ def identify(conn: Connection, token: str, *, lock: bool = False) -> str:
     if not hmac.compare_digest(token_hash(token), stored) or row is None:
         raise AuthenticationError("the key is not valid")
     if row.revoked_at is not None:
-        raise AuthenticationError(
-            f"the key {row.name!r} was revoked at {iso(row.revoked_at)}"
-        )
+        raise AuthenticationError(f"the key {row.name!r} was revoked at {iso(row.revoked_at)}")
     return str(row.name)
 
 

@@ -26,11 +26,15 @@ class Registry:
             version = migrations.schema_version(self.engine)
         except SQLAlchemyError as exc:
             inner = getattr(exc, "orig", None) or exc
-            return (f"the registry database ({self.config.describe()}) is unreachable: "
-                    f"{type(inner).__name__}: {str(inner).strip()[:300]}")
+            return (
+                f"the registry database ({self.config.describe()}) is unreachable: "
+                f"{type(inner).__name__}: {str(inner).strip()[:300]}"
+            )
         if version != migrations.LATEST:
-            return (f"the registry database is at schema version {version}, this service needs "
-                    f"{migrations.LATEST}")
+            return (
+                f"the registry database is at schema version {version}, this service needs "
+                f"{migrations.LATEST}"
+            )
         return None
 
     def close(self) -> None:
@@ -77,8 +81,10 @@ class LazyRegistry:
             return f"the registry is not configured correctly: {exc}"
         except SQLAlchemyError as exc:
             inner = getattr(exc, "orig", None) or exc
-            return (f"the registry database cannot be opened: {type(inner).__name__}: "
-                    f"{str(inner).strip()[:300]}")
+            return (
+                f"the registry database cannot be opened: {type(inner).__name__}: "
+                f"{str(inner).strip()[:300]}"
+            )
         except OSError as exc:  # the data directory cannot be created or written
             return f"the registry's data directory cannot be used: {exc}"
         return registry.ping()

@@ -106,13 +106,22 @@ def _step2_heads_and_digests(conn: Connection) -> None:
             ).group_by(versions.c.name),
         )
     )
-    rows = conn.execute(
-        select(
-            versions.c.name, versions.c.version, versions.c.description, versions.c.algorithm,
-            versions.c.publisher, versions.c.request_json, versions.c.plan_json,
-            versions.c.fingerprints_json,
+    rows = (
+        conn.execute(
+            select(
+                versions.c.name,
+                versions.c.version,
+                versions.c.description,
+                versions.c.algorithm,
+                versions.c.publisher,
+                versions.c.request_json,
+                versions.c.plan_json,
+                versions.c.fingerprints_json,
+            )
         )
-    ).mappings().all()
+        .mappings()
+        .all()
+    )
     for row in rows:
         digest = content_digest(**row)
         conn.execute(
@@ -124,8 +133,9 @@ def _step2_heads_and_digests(conn: Connection) -> None:
 
 STEPS: tuple[Step, ...] = (
     Step(1, "publishing keys and recipe versions", _step1_initial),
-    Step(2, "per-name version counter; integrity digest of every version",
-         _step2_heads_and_digests),
+    Step(
+        2, "per-name version counter; integrity digest of every version", _step2_heads_and_digests
+    ),
 )
 LATEST = STEPS[-1].version
 

@@ -64,36 +64,63 @@ def fingerprints_of(plan: Plan, threads: int = 1) -> dict[str, str]:
 def validate_body(body: object, limits: Limits) -> tuple[str, str, Plan]:
     """(name, description, plan), or RequestRejected listing every problem at once."""
     if not isinstance(body, dict):
-        raise RequestRejected([Problem(
-            BODY, "invalid_type",
-            f"got {describe_input(body)}; allowed: an object with name, request and description",
-        )])
+        raise RequestRejected(
+            [
+                Problem(
+                    BODY,
+                    "invalid_type",
+                    f"got {describe_input(body)}; allowed: an object with name, request "
+                    "and description",
+                )
+            ]
+        )
     problems: list[Problem] = [
-        Problem(key, "unknown_field",
-                f"unknown field {key!r}; allowed fields: {', '.join(BODY_FIELDS)}"
-                f"{did_you_mean(key, BODY_FIELDS)}")
-        for key in body if key not in BODY_FIELDS
+        Problem(
+            key,
+            "unknown_field",
+            f"unknown field {key!r}; allowed fields: {', '.join(BODY_FIELDS)}"
+            f"{did_you_mean(key, BODY_FIELDS)}",
+        )
+        for key in body
+        if key not in BODY_FIELDS
     ]
     name = body.get("name")
     if "name" not in body:
-        problems.append(Problem("name", "missing_field", f"required field 'name' is missing; "
-                                                         f"it must be {NAME_RULE}"))
+        problems.append(
+            Problem(
+                "name", "missing_field", f"required field 'name' is missing; it must be {NAME_RULE}"
+            )
+        )
     elif (bad := name_problem(name)) is not None:
         problems.append(bad)
     description = body.get("description", "")
     if not isinstance(description, str):
-        problems.append(Problem("description", "invalid_type",
-                                f"got {describe_input(description)}; allowed: a string of at most "
-                                f"{MAX_DESCRIPTION_CHARS} characters"))
+        problems.append(
+            Problem(
+                "description",
+                "invalid_type",
+                f"got {describe_input(description)}; allowed: a string of at most "
+                f"{MAX_DESCRIPTION_CHARS} characters",
+            )
+        )
     elif len(description) > MAX_DESCRIPTION_CHARS:
-        problems.append(Problem("description", "invalid_value",
-                                f"got {len(description)} characters; allowed: at most "
-                                f"{MAX_DESCRIPTION_CHARS}"))
+        problems.append(
+            Problem(
+                "description",
+                "invalid_value",
+                f"got {len(description)} characters; allowed: at most {MAX_DESCRIPTION_CHARS}",
+            )
+        )
     plan: Plan | None = None
     if "request" not in body:
-        problems.append(Problem("request", "missing_field",
-                                "required field 'request' is missing; it must be a network "
-                                "request, the same body POST /v1/weights takes"))
+        problems.append(
+            Problem(
+                "request",
+                "missing_field",
+                "required field 'request' is missing; it must be a network "
+                "request, the same body POST /v1/weights takes",
+            )
+        )
     else:
         try:
             plan = build_plan(body["request"], limits)
@@ -118,4 +145,3 @@ def prepare_recipe(body: object, limits: Limits | None = None, threads: int = 1)
         fingerprints_json=canonical_text(fingerprints),
         fingerprints=fingerprints,
     )
-

@@ -30,8 +30,16 @@ def content_digest(
     not match was altered or half-written. The texts are hashed as stored (not re-serialised),
     each length-prefixed so no two different rows can produce the same byte string."""
     sha = hashlib.sha256(b"seedbed-recipe-v1\n")
-    for part in (name, str(version), description, algorithm, publisher, request_json,
-                 plan_json, fingerprints_json):
+    for part in (
+        name,
+        str(version),
+        description,
+        algorithm,
+        publisher,
+        request_json,
+        plan_json,
+        fingerprints_json,
+    ):
         data = part.encode("utf-8")
         sha.update(len(data).to_bytes(8, "big"))
         sha.update(data)

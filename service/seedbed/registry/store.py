@@ -121,8 +121,9 @@ def publish_unless_same(
     return _publish(engine, prepared, token, reuse=True)
 
 
-def _newest_if_same(conn: Connection, prepared: PreparedRecipe, version: int
-                    ) -> VersionSummary | None:
+def _newest_if_same(
+    conn: Connection, prepared: PreparedRecipe, version: int
+) -> VersionSummary | None:
     if version <= 1:
         return None
     row = conn.execute(
@@ -137,16 +138,18 @@ def _newest_if_same(conn: Connection, prepared: PreparedRecipe, version: int
     return _summary(row)
 
 
-def _publish(engine: Engine, prepared: PreparedRecipe, token: str, *, reuse: bool
-             ) -> tuple[VersionSummary, bool]:
+def _publish(
+    engine: Engine, prepared: PreparedRecipe, token: str, *, reuse: bool
+) -> tuple[VersionSummary, bool]:
     try:
         return _publish_in_transaction(engine, prepared, token, reuse), True
     except _SameAsNewest as same:  # raised inside the transaction, so it was rolled back
         return same.summary, False
 
 
-def _publish_in_transaction(engine: Engine, prepared: PreparedRecipe, token: str, reuse: bool
-                            ) -> VersionSummary:
+def _publish_in_transaction(
+    engine: Engine, prepared: PreparedRecipe, token: str, reuse: bool
+) -> VersionSummary:
     with writing(engine) as conn:
         publisher = identify(conn, token, lock=True)
         published = now_utc()
@@ -156,32 +159,53 @@ def _publish_in_transaction(engine: Engine, prepared: PreparedRecipe, token: str
             if existing is not None:
                 raise _SameAsNewest(existing)
         digest = content_digest(
-            name=prepared.name, version=version, description=prepared.description,
-            algorithm=prepared.algorithm, publisher=publisher,
-            request_json=prepared.request_json, plan_json=prepared.plan_json,
+            name=prepared.name,
+            version=version,
+            description=prepared.description,
+            algorithm=prepared.algorithm,
+            publisher=publisher,
+            request_json=prepared.request_json,
+            plan_json=prepared.plan_json,
             fingerprints_json=prepared.fingerprints_json,
         )
         conn.execute(
             recipe_versions.insert().values(
-                name=prepared.name, version=version, description=prepared.description,
-                request_json=prepared.request_json, plan_json=prepared.plan_json,
-                fingerprints_json=prepared.fingerprints_json, algorithm=prepared.algorithm,
-                publisher=publisher, published_at=published, content_sha256=digest,
+                name=prepared.name,
+                version=version,
+                description=prepared.description,
+                request_json=prepared.request_json,
+                plan_json=prepared.plan_json,
+                fingerprints_json=prepared.fingerprints_json,
+                algorithm=prepared.algorithm,
+                publisher=publisher,
+                published_at=published,
+                content_sha256=digest,
             )
         )
-    return VersionSummary(prepared.name, version, prepared.description, publisher, published,
-                          prepared.algorithm)
+    return VersionSummary(
+        prepared.name, version, prepared.description, publisher, published, prepared.algorithm
+    )
 
 
 _SUMMARY_COLUMNS = (
-    recipe_versions.c.name, recipe_versions.c.version, recipe_versions.c.description,
-    recipe_versions.c.publisher, recipe_versions.c.published_at, recipe_versions.c.algorithm,
+    recipe_versions.c.name,
+    recipe_versions.c.version,
+    recipe_versions.c.description,
+    recipe_versions.c.publisher,
+    recipe_versions.c.published_at,
+    recipe_versions.c.algorithm,
 )
 
 
 def _summary(row: Any) -> VersionSummary:
-    return VersionSummary(row.name, int(row.version), row.description, row.publisher,
-                          utc(row.published_at), row.algorithm)
+    return VersionSummary(
+        row.name,
+        int(row.version),
+        row.description,
+        row.publisher,
+        utc(row.published_at),
+        row.algorithm,
+    )
 
 
 def list_recipes(engine: Engine, after: str | None = None, limit: int = 100) -> list[RecipeSummary]:
@@ -189,8 +213,11 @@ def list_recipes(engine: Engine, after: str | None = None, limit: int = 100) -> 
     limit = max(1, min(limit, MAX_PAGE))
     query = (
         select(*_SUMMARY_COLUMNS, recipe_heads.c.first_published_at)
-        .join(recipe_heads, (recipe_heads.c.name == recipe_versions.c.name)
-              & (recipe_heads.c.latest_version == recipe_versions.c.version))
+        .join(
+            recipe_heads,
+            (recipe_heads.c.name == recipe_versions.c.name)
+            & (recipe_heads.c.latest_version == recipe_versions.c.version),
+        )
         .order_by(recipe_versions.c.name)
         .limit(limit)
     )
@@ -199,8 +226,7 @@ def list_recipes(engine: Engine, after: str | None = None, limit: int = 100) -> 
     with reading(engine) as conn:
         rows = conn.execute(query).all()
     return [
-        RecipeSummary(r.name, int(r.version), utc(r.first_published_at), _summary(r))
-        for r in rows
+        RecipeSummary(r.name, int(r.version), utc(r.first_published_at), _summary(r)) for r in rows
     ]
 
 
@@ -217,13 +243,17 @@ def list_versions(engine: Engine, name: str) -> list[VersionSummary]:
 
 
 def _full(row: Any) -> RecipeVersion:
-    return RecipeVersion(_summary(row), row.request_json, row.plan_json, row.fingerprints_json,
-                         row.content_sha256)
+    return RecipeVersion(
+        _summary(row), row.request_json, row.plan_json, row.fingerprints_json, row.content_sha256
+    )
 
 
 _FULL_COLUMNS = (
-    *_SUMMARY_COLUMNS, recipe_versions.c.request_json, recipe_versions.c.plan_json,
-    recipe_versions.c.fingerprints_json, recipe_versions.c.content_sha256,
+    *_SUMMARY_COLUMNS,
+    recipe_versions.c.request_json,
+    recipe_versions.c.plan_json,
+    recipe_versions.c.fingerprints_json,
+    recipe_versions.c.content_sha256,
 )
 
 
@@ -274,13 +304,20 @@ def integrity_problems(record: RecipeVersion, *, replan: bool = True) -> list[st
     where = f"{s.name} v{s.version}"
     problems: list[str] = []
     expected = content_digest(
-        name=s.name, version=s.version, description=s.description, algorithm=s.algorithm,
-        publisher=s.publisher, request_json=record.request_json, plan_json=record.plan_json,
+        name=s.name,
+        version=s.version,
+        description=s.description,
+        algorithm=s.algorithm,
+        publisher=s.publisher,
+        request_json=record.request_json,
+        plan_json=record.plan_json,
         fingerprints_json=record.fingerprints_json,
     )
     if record.content_sha256 != expected:
-        problems.append(f"{where}: content digest {record.content_sha256} does not match the "
-                        f"stored texts ({expected})")
+        problems.append(
+            f"{where}: content digest {record.content_sha256} does not match the "
+            f"stored texts ({expected})"
+        )
     try:
         plan_doc, prints = record.plan, record.fingerprints
     except ValueError as exc:
@@ -289,10 +326,14 @@ def integrity_problems(record: RecipeVersion, *, replan: bool = True) -> list[st
     if not planned:
         problems.append(f"{where}: the stored plan has no tensors")
     if sorted(planned) != sorted(prints):
-        problems.append(f"{where}: fingerprints cover {sorted(prints)} but the plan has "
-                        f"{sorted(planned)}")
-    bad_hex = [k for k, v in prints.items()
-               if not (isinstance(v, str) and len(v) == 64 and v.strip("0123456789abcdef") == "")]
+        problems.append(
+            f"{where}: fingerprints cover {sorted(prints)} but the plan has {sorted(planned)}"
+        )
+    bad_hex = [
+        k
+        for k, v in prints.items()
+        if not (isinstance(v, str) and len(v) == 64 and v.strip("0123456789abcdef") == "")
+    ]
     if bad_hex:
         problems.append(f"{where}: fingerprints of {bad_hex} are not SHA-256 hex digests")
     if replan:

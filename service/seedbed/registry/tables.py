@@ -56,9 +56,7 @@ recipe_versions = Table(
     Column("plan_json", Text, nullable=False),
     Column("fingerprints_json", Text, nullable=False),
     Column("algorithm", String(100), nullable=False),
-    Column(
-        "publisher", String(KEY_NAME_LENGTH), ForeignKey("publish_keys.name"), nullable=False
-    ),
+    Column("publisher", String(KEY_NAME_LENGTH), ForeignKey("publish_keys.name"), nullable=False),
     Column("published_at", DateTime(timezone=True), nullable=False),
     # Added by schema step 2; every row has one after the upgrade's backfill.
     Column("content_sha256", String(64), nullable=True),

@@ -82,13 +82,21 @@ def create_app(
         openapi_tags=[
             {"name": "weights", "description": "Plans, weights and the catalog."},
             {"name": "operations", "description": "Liveness, readiness and metrics."},
-            {"name": "diagnostics", "description": "Signal propagation through depth, "
-             "estimated on a synthetic batch."},
+            {
+                "name": "diagnostics",
+                "description": "Signal propagation through depth, estimated on a synthetic batch.",
+            },
             {"name": "audit", "description": "Checks of existing weights files."},
-            {"name": "recipes", "description": "Team recipes: named, immutable versions of a "
-             "request, and their weights."},
-            {"name": "onnx", "description": "Weights for an ONNX model file: the request read "
-             "from its graph, its initializers filled in its own layouts."},
+            {
+                "name": "recipes",
+                "description": "Team recipes: named, immutable versions of a "
+                "request, and their weights.",
+            },
+            {
+                "name": "onnx",
+                "description": "Weights for an ONNX model file: the request read "
+                "from its graph, its initializers filled in its own layouts.",
+            },
         ],
     )
     app.state.settings = settings
@@ -99,8 +107,17 @@ def create_app(
     app.state.diagnostic_limits = settings.diagnostics
     install_error_handlers(app)
     methods_by_path: dict[str, set[str]] = {}
-    for router in (plan.router, weights.router, sample.router, diagnose.router, audit.router,
-                   recipes.router, onnx_models.router, ops.router, *WORKBENCH_ROUTERS):
+    for router in (
+        plan.router,
+        weights.router,
+        sample.router,
+        diagnose.router,
+        audit.router,
+        recipes.router,
+        onnx_models.router,
+        ops.router,
+        *WORKBENCH_ROUTERS,
+    ):
         app.include_router(router)
         for route in router.routes:
             if isinstance(route, APIRoute):

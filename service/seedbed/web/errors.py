@@ -142,12 +142,18 @@ def _in_our_words(where: str, kind: str, err: Mapping[str, Any]) -> str:
     got = describe_input(value)
     if kind in ("literal_error", "enum"):
         allowed = _QUOTED.findall(str(ctx.get("expected", "")))
-        return (f"{where}: got {got}; allowed values: {', '.join(allowed)}"
-                f"{did_you_mean(value, allowed)}")
+        return (
+            f"{where}: got {got}; allowed values: {', '.join(allowed)}"
+            f"{did_you_mean(value, allowed)}"
+        )
     if kind == "missing":
         return f"{where} is required"
-    for key, phrase in (("ge", "at least"), ("gt", "greater than"), ("le", "at most"),
-                        ("lt", "less than")):
+    for key, phrase in (
+        ("ge", "at least"),
+        ("gt", "greater than"),
+        ("le", "at most"),
+        ("lt", "less than"),
+    ):
         if key in ctx:
             return f"{where}: got {got}; allowed: a number {phrase} {ctx[key]}"
     if kind in ("int_parsing", "int_type"):

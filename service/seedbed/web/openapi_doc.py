@@ -132,15 +132,16 @@ def error_responses(*statuses: int, **described: str) -> dict[int | str, dict[st
 SHARED_ERRORS: dict[str, dict[str, Any]] = {
     "NotFound": {
         "description": "No such endpoint, in the common error shape (field `(path)`, code "
-                       "`not_found`).",
+        "`not_found`).",
         "content": {"application/json": {"schema": {"$ref": "#/components/schemas/ErrorDoc"}}},
     },
     "MethodNotAllowed": {
         "description": "The path exists but not with this method, in the common error shape "
-                       "(field `(method)`, code `method_not_allowed`); the Allow header lists "
-                       "the methods the path answers.",
-        "headers": {"Allow": {"schema": {"type": "string"},
-                              "description": "The methods this path answers."}},
+        "(field `(method)`, code `method_not_allowed`); the Allow header lists "
+        "the methods the path answers.",
+        "headers": {
+            "Allow": {"schema": {"type": "string"}, "description": "The methods this path answers."}
+        },
         "content": {"application/json": {"schema": {"$ref": "#/components/schemas/ErrorDoc"}}},
     },
 }

@@ -94,8 +94,13 @@ _LAYERS: list[dict[str, Any]] = [
 ]
 
 PROBE_REQUESTS: dict[str, dict[str, Any]] = {
-    f"{dtype}-{layout}": {"seed": seed, "dtype": dtype, "layout": layout, "layers": _LAYERS,
-                          "widths": "unchecked"}  # one of each kind, not a chain
+    f"{dtype}-{layout}": {
+        "seed": seed,
+        "dtype": dtype,
+        "layout": layout,
+        "layers": _LAYERS,
+        "widths": "unchecked",
+    }  # one of each kind, not a chain
     for dtype, layout, seed in [
         ("float32", "out_in", 20261201),
         ("float64", "in_out", "kestrel-ridge"),

@@ -44,22 +44,30 @@ class PlanEntry(BaseModel):
     layer: str
     shape: list[int] = Field(description="As served, after `layout`.")
     dtype: DType
-    method: str = Field(description="symmetric_uniform, glorot, he, lecun, orthogonal, "
-                                    "identity, constant (more may follow; see the catalog).")
-    distribution: Distribution | None = Field(description="Null when the values are not drawn "
-                                                          "at random.")
-    fan_in: float | None = Field(description="A non-integer only when a stride makes the count "
-                                             "an average; null where no fan applies.")
+    method: str = Field(
+        description="symmetric_uniform, glorot, he, lecun, orthogonal, "
+        "identity, constant (more may follow; see the catalog)."
+    )
+    distribution: Distribution | None = Field(
+        description="Null when the values are not drawn at random."
+    )
+    fan_in: float | None = Field(
+        description="A non-integer only when a stride makes the count "
+        "an average; null where no fan applies."
+    )
     fan_out: float | None
     gain: float | None
     std: float | None = Field(description="Of the distribution as realised (after truncation).")
     bound: float | None = Field(description="Uniform and truncated normal only.")
     value: float | None = Field(description="Constant tensors with one value.")
-    block_values: list[float] | None = Field(description="Constant tensors with one value per "
-                                                         "gate block.")
-    reproducible: Reproducible = Field(description="exact: the same bytes everywhere; "
-                                                   "platform: may differ in the last bits "
-                                                   "between BLAS builds.")
+    block_values: list[float] | None = Field(
+        description="Constant tensors with one value per gate block."
+    )
+    reproducible: Reproducible = Field(
+        description="exact: the same bytes everywhere; "
+        "platform: may differ in the last bits "
+        "between BLAS builds."
+    )
     rationale: str
     references: list[str]
     warnings: list[str]
@@ -68,10 +76,11 @@ class PlanEntry(BaseModel):
 class GenerationRecipe(_Closed):
     """How the shared generator makes this tensor's values (docs/generator.md, "Recipes")."""
 
-    sampler: Literal["uniform", "normal", "truncated_normal", "orthogonal", "identity",
-                     "constant"]
-    scale: float = Field(description="Bound (uniform), std before truncation (normal kinds), "
-                                     "gain (orthogonal, identity) or the constant value.")
+    sampler: Literal["uniform", "normal", "truncated_normal", "orthogonal", "identity", "constant"]
+    scale: float = Field(
+        description="Bound (uniform), std before truncation (normal kinds), "
+        "gain (orthogonal, identity) or the constant value."
+    )
     logical_shape: list[int] = Field(description="Generation order: output axis first.")
     served_axes: list[int] = Field(description="served = logical.transpose(served_axes).")
     gate_blocks: int = Field(ge=1)
@@ -140,10 +149,14 @@ class WeightsEntry(PlanEntry):
     sha256: Sha256 = Field(description="SHA-256 of the raw little-endian C-order bytes.")
     data: str = Field(description="The raw little-endian C-order bytes, base64.")
     full_shape: list[int] | SkipJsonSchema[None] = Field(
-        default=None, description="Only for a block: the whole tensor's shape.")
+        default=None, description="Only for a block: the whole tensor's shape."
+    )
     rows: list[int] | SkipJsonSchema[None] = Field(
-        default=None, min_length=2, max_length=2,
-        description="Only for a block: [start, stop) of the first served axis.")
+        default=None,
+        min_length=2,
+        max_length=2,
+        description="Only for a block: [start, stop) of the first served axis.",
+    )
 
 
 class BlockSelection(_Closed):
@@ -160,11 +173,14 @@ class WeightsDocument(BaseModel):
     warnings: list[str]
     tensors: list[WeightsEntry]
     depth_policy: PolicyReport | SkipJsonSchema[None] = Field(
-        default=None, description="Only when the request names a depth_policy.")
+        default=None, description="Only when the request names a depth_policy."
+    )
     multipliers: list[TrainingMultiplier] | SkipJsonSchema[None] = Field(
-        default=None, description="Only when the request names a depth_policy.")
+        default=None, description="Only when the request names a depth_policy."
+    )
     selection: BlockSelection | SkipJsonSchema[None] = Field(
-        default=None, description="Only when one tensor (or a block of it) was asked for.")
+        default=None, description="Only when one tensor (or a block of it) was asked for."
+    )
 
 
 # --- catalog ----------------------------------------------------------------------------------
@@ -317,7 +333,8 @@ class DiagnosedLayer(BaseModel):
 
 class DirectionGrade(_Closed):
     grade: Literal["steady", "drifting", "poor"] | None = Field(
-        description="null when the network has fewer than two main-path layers.")
+        description="null when the network has fewer than two main-path layers."
+    )
     end_to_end_ratio: float | None
     per_layer_log_ratio: float | None
     steady_per_layer: float | None
@@ -329,8 +346,10 @@ class RunGrade(_Closed):
     backward: DirectionGrade
     depth: int = Field(ge=0)
     score: float | None = Field(description="|ln forward ratio| + |ln backward ratio|.")
-    phase: str | None = Field(description="Mean-field phase of the largest group of hidden "
-                                          "layers: ordered, critical, chaotic or unbounded.")
+    phase: str | None = Field(
+        description="Mean-field phase of the largest group of hidden "
+        "layers: ordered, critical, chaotic or unbounded."
+    )
     chi_1: float | None
     layers_covered: int = Field(ge=0)
     phases_present: list[str]
@@ -340,8 +359,9 @@ class RunGrade(_Closed):
 
 
 class DiagnosisRun(BaseModel):
-    label: str = Field(description="recommended for the request as given, else the "
-                                   "alternative's label.")
+    label: str = Field(
+        description="recommended for the request as given, else the alternative's label."
+    )
     verdict: Literal["stable", "vanishing", "exploding", "symmetric"]
     failed_at: str | None
     failed_index: int | None
@@ -361,8 +381,10 @@ class DiagnosisDocument(BaseModel):
     finite_width: FiniteWidth
     definitions: dict[str, Any] = Field(description="What each figure means, in words.")
     runs: list[DiagnosisRun] = Field(min_length=1)
-    ranking: list[str] = Field(description="Labels of the distinct runs, best first (runs "
-                                           "identical to an earlier one are left out).")
+    ranking: list[str] = Field(
+        description="Labels of the distinct runs, best first (runs "
+        "identical to an earlier one are left out)."
+    )
 
 
 # --- recipes ----------------------------------------------------------------------------------
@@ -378,8 +400,9 @@ class RecipeSummary(BaseModel):
     version: int = Field(ge=1)
     description: str
     publisher: str = Field(description="The name of the key that published it.")
-    published_at: str = Field(description="RFC 3339, UTC.", json_schema_extra={
-        "format": "date-time"})
+    published_at: str = Field(
+        description="RFC 3339, UTC.", json_schema_extra={"format": "date-time"}
+    )
     algorithm: str
     links: RecipeLinks
 
@@ -395,8 +418,9 @@ class RecipeListEntry(RecipeSummary):
 
 class RecipePage(BaseModel):
     recipes: list[RecipeListEntry]
-    next_after: str | None = Field(description="Pass as `after` for the next page; null on "
-                                               "the last page.")
+    next_after: str | None = Field(
+        description="Pass as `after` for the next page; null on the last page."
+    )
 
 
 class RecipeVersionList(BaseModel):
@@ -405,12 +429,11 @@ class RecipeVersionList(BaseModel):
 
 
 class StoredRecipe(PublishedRecipe):
-    request: dict[str, Any] = Field(description="The request in canonical form (sorted keys, "
-                                                "defaults filled).")
-    plan: PlanDocument = Field(description="The plan as POST /v1/plan answered it at publish "
-                                           "time.")
-    content_sha256: Sha256 = Field(description="SHA-256 over everything stored except "
-                                                "the time.")
+    request: dict[str, Any] = Field(
+        description="The request in canonical form (sorted keys, defaults filled)."
+    )
+    plan: PlanDocument = Field(description="The plan as POST /v1/plan answered it at publish time.")
+    content_sha256: Sha256 = Field(description="SHA-256 over everything stored except the time.")
 
 
 __all__ = [

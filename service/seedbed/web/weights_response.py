@@ -53,8 +53,9 @@ class _HoldBudget:
         return True
 
 
-def _held_once(produce: Callable[[], Iterator[bytes]], nbytes: int,
-               budget: _HoldBudget) -> Callable[[], Iterator[bytes]]:
+def _held_once(
+    produce: Callable[[], Iterator[bytes]], nbytes: int, budget: _HoldBudget
+) -> Callable[[], Iterator[bytes]]:
     """chunks() for a tensor walked twice: the first walk keeps its pieces (if the budget
     allows) and the second replays and releases them; any further walk generates anew."""
     held: list[bytes] | None = None
@@ -101,7 +102,10 @@ class Selection:
 
 
 def outgoing_tensors(
-    plan: Plan, selection: Selection | None, chunk_bytes: int, threads: int,
+    plan: Plan,
+    selection: Selection | None,
+    chunk_bytes: int,
+    threads: int,
     hold: _HoldBudget | None = None,
 ) -> list[OutgoingTensor]:
     def producer(t: TensorPlan, start: int, stop: int | None) -> OutgoingTensor:
@@ -142,8 +146,9 @@ class Rearranged:
     etag_parts: Mapping[str, Any]
 
 
-def json_size_of(plan: Plan, selection: Selection | None,
-                 rearranged: Rearranged | None = None) -> int:
+def json_size_of(
+    plan: Plan, selection: Selection | None, rearranged: Rearranged | None = None
+) -> int:
     """Exact size of the JSON response, computed without generating any value."""
     if rearranged is not None:
         doc = {**response_document(plan, None), **rearranged.document}
@@ -154,8 +159,13 @@ def json_size_of(plan: Plan, selection: Selection | None,
 
 
 def encode_weights(
-    plan: Plan, selection: Selection | None, fmt: str, chunk_bytes: int, threads: int,
-    digests: Mapping[str, str] | None = None, rearranged: Rearranged | None = None,
+    plan: Plan,
+    selection: Selection | None,
+    fmt: str,
+    chunk_bytes: int,
+    threads: int,
+    digests: Mapping[str, str] | None = None,
+    rearranged: Rearranged | None = None,
 ) -> EncodedBody:
     """The encoded body. With `digests` (sha256 per tensor, known in advance) the formats verify
     every tensor while streaming and skip their own hashing pass; the bytes are the same."""
@@ -177,8 +187,9 @@ def encode_weights(
 def parse_rows(text: str, t: TensorPlan) -> tuple[int, int]:
     """Parse 'START:STOP' for the served first axis of `t` (STOP exclusive, both required)."""
     rows = t.shape[0]
-    allowed = (f"START:STOP with 0 <= START < STOP <= {rows} "
-               f"(rows of {t.tensor}, shape {list(t.shape)})")
+    allowed = (
+        f"START:STOP with 0 <= START < STOP <= {rows} (rows of {t.tensor}, shape {list(t.shape)})"
+    )
     parts = text.split(":")
     if len(parts) != 2 or not all(p.isdigit() and len(p) <= 19 for p in parts):
         problem = Problem("rows", "invalid_value", f"rows must be {allowed}; got {text!r}")
@@ -285,8 +296,14 @@ async def weights_response(request: Request, plan: Plan, options: WeightsOptions
     digests = options.digests if exact else None
     # safetensors hashes every tensor before its first byte: that pass must not block the loop.
     encoded = await run_in_threadpool(
-        encode_weights, plan, selection, fmt, settings.chunk_bytes, settings.threads_per_request(),
-        digests, options.rearranged,
+        encode_weights,
+        plan,
+        selection,
+        fmt,
+        settings.chunk_bytes,
+        settings.threads_per_request(),
+        digests,
+        options.rearranged,
     )
     headers["Content-Length"] = str(encoded.content_length)
     headers["Content-Disposition"] = f'attachment; filename="{options.filename}.{fmt}"'

@@ -92,8 +92,9 @@ def test_one_readable_tensor_is_enough() -> None:
 
 def test_the_service_answers_422_with_the_code() -> None:
     with TestClient(create_app(Settings())) as client:
-        got = client.post("/v1/audit", content=pickle_zip(),
-                          headers={"Content-Type": "application/zip"})
+        got = client.post(
+            "/v1/audit", content=pickle_zip(), headers={"Content-Type": "application/zip"}
+        )
     assert got.status_code == 422
     error = got.json()["error"]
     assert error["code"] == "no_tensors_read" and error["field"] == "(body)"

@@ -13,8 +13,9 @@ from seedbed.cli import main
 
 
 def test_help_lists_service_and_client_commands() -> None:
-    out = subprocess.run([sys.executable, "-m", "seedbed.cli", "--help"], check=True,
-                         capture_output=True, text=True).stdout
+    out = subprocess.run(
+        [sys.executable, "-m", "seedbed.cli", "--help"], check=True, capture_output=True, text=True
+    ).stdout
     for command in ("serve", "plan", "settings", "fetch", "verify", "show"):
         assert command in out
 
@@ -30,8 +31,12 @@ def test_verify_through_the_service_command(tmp_path: Path) -> None:
 
     def write(digest: str) -> None:
         np.savez(path, **{"a.weight": good})
-        manifest = {"algorithm": "x", "tensors": [{"tensor": "a.weight", "shape": [2, 3],
-                                                   "dtype": "float32", "sha256": digest}]}
+        manifest = {
+            "algorithm": "x",
+            "tensors": [
+                {"tensor": "a.weight", "shape": [2, 3], "dtype": "float32", "sha256": digest}
+            ],
+        }
         with zipfile.ZipFile(path, "a") as z:
             z.writestr("seedbed-manifest.json", json.dumps(manifest))
 

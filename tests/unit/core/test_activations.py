@@ -36,6 +36,7 @@ SELU_ALPHA = 1.6732632423543772
 
 # --- independent scalar implementations for scipy (math / scipy.special, not our code) -------
 
+
 def _scalar_phi(name: str, param: float | None) -> Callable[[float], float]:
     a = 0.0 if param is None else param
     table: dict[str, Callable[[float], float]] = {
@@ -62,6 +63,7 @@ def _scipy_second_moment(name: str, param: float | None) -> float:
 
 
 # --- published closed forms -------------------------------------------------------------------
+
 
 def test_relu_gain_is_sqrt_two() -> None:
     # He et al. 2015, eq. 10: std = sqrt(2/n_l) for ReLU, i.e. gain sqrt(2).
@@ -189,6 +191,7 @@ def test_elu_second_moment_analytic(alpha: float) -> None:
 
 # --- PyTorch as an oracle for the closed forms, and where conventions differ --------------------
 
+
 def test_closed_forms_match_torch() -> None:
     torch = require_oracle("torch")
     calc = torch.nn.init.calculate_gain
@@ -246,6 +249,7 @@ def test_sigmoid_differs_from_torch_unit_gain() -> None:
 
 # --- determinism ------------------------------------------------------------------------------
 
+
 def _all_gain_bits() -> list[str]:
     cases = [(n, None) for n in activation_names()] + [("elu", 0.3), ("leaky_relu", 0.2)]
     return [f"{n}:{p}:{gain_for(n, p).value.hex()}" for n, p in cases]
@@ -263,8 +267,14 @@ def test_gain_bitwise_identical_in_fresh_process() -> None:
         "import sys; sys.path.insert(0, 'service'); sys.path.insert(0, 'tests');"
         "from unit.core.test_activations import _all_gain_bits; print('\\n'.join(_all_gain_bits()))"
     )
-    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True,
-                         check=True, timeout=120)
+    out = subprocess.run(
+        [sys.executable, "-c", code],
+        cwd=ROOT,
+        capture_output=True,
+        text=True,
+        check=True,
+        timeout=120,
+    )
     assert out.stdout.split() == _all_gain_bits()
 
 
@@ -275,6 +285,7 @@ def test_param_normalisation_shares_cache_entries() -> None:
 
 
 # --- bad inputs -------------------------------------------------------------------------------
+
 
 @pytest.mark.parametrize("bad", ["ReLU", "swish", "", None, 3])
 def test_unknown_activation_names_the_allowed_set(bad: object) -> None:
@@ -315,18 +326,39 @@ def test_param_on_parameterless_activation_is_refused() -> None:
 
 # --- catalog data and numpy evaluation ---------------------------------------------------------
 
+
 def test_catalog_covers_required_activations_with_sources() -> None:
-    required = {"linear", "relu", "leaky_relu", "elu", "selu", "gelu", "silu", "softplus",
-                "tanh", "sigmoid", "softmax"}
+    required = {
+        "linear",
+        "relu",
+        "leaky_relu",
+        "elu",
+        "selu",
+        "gelu",
+        "silu",
+        "softplus",
+        "tanh",
+        "sigmoid",
+        "softmax",
+    }
     assert required <= set(activation_names())
     for name in activation_names():
         info = ACTIVATIONS[name].as_dict()
         assert info["name"] == name and info["formula"] and info["gain_source"]
-        assert info["family"] in {"rectifier", "saturating", "self_normalizing", "smooth",
-                                  "linear", "output"}
+        assert info["family"] in {
+            "rectifier",
+            "saturating",
+            "self_normalizing",
+            "smooth",
+            "linear",
+            "output",
+        }
     assert ACTIVATIONS["leaky_relu"].as_dict()["param"] == {
-        "name": "slope", "meaning": ACTIVATIONS["leaky_relu"].param.meaning,  # type: ignore[union-attr]
-        "default": 0.01, "allowed": "[0, 1]"}
+        "name": "slope",
+        "meaning": ACTIVATIONS["leaky_relu"].param.meaning,  # type: ignore[union-attr]
+        "default": 0.01,
+        "allowed": "[0, 1]",
+    }
     assert "1.5925" in act.GAIN_DEFINITION and "5/3" in act.GAIN_DEFINITION
 
 
@@ -352,8 +384,9 @@ ORACLE_PARAMS = {"leaky_relu": 0.2, "elu": 0.7}
 
 
 # hard_swish and hard_sigmoid have their own torch check (tests/unit/core/test_hard_activations.py)
-@pytest.mark.parametrize("name", sorted(set(ACTIVATIONS) - {"linear", "hard_swish",
-                                                             "hard_sigmoid"}))
+@pytest.mark.parametrize(
+    "name", sorted(set(ACTIVATIONS) - {"linear", "hard_swish", "hard_sigmoid"})
+)
 def test_values_and_derivatives_match_torch(name: str) -> None:
     torch = require_oracle("torch")
     fn = torch.nn.functional
@@ -376,8 +409,9 @@ def test_values_and_derivatives_match_torch(name: str) -> None:
         x = x.reshape(1, -1)
     t = torch.tensor(x, dtype=torch.float64, requires_grad=True)
     y = oracle(t)
-    np.testing.assert_allclose(apply_activation(name, x, p), y.detach().numpy(),
-                               rtol=1e-12, atol=1e-15)
+    np.testing.assert_allclose(
+        apply_activation(name, x, p), y.detach().numpy(), rtol=1e-12, atol=1e-15
+    )
     if name == "softmax":
         # the derivative we return is the Jacobian's diagonal
         jac = torch.autograd.functional.jacobian(lambda v: torch.softmax(v, dim=-1), t[0])

@@ -41,9 +41,7 @@ def test_dense_matches_torch_linear() -> None:
     assert _pair(dense_fans(784, 256)) == _torch_fans(layer.weight)
 
 
-@pytest.mark.parametrize(
-    ("dims", "kernel"), [(1, (5,)), (2, (3, 3)), (2, (7, 1)), (3, (3, 2, 4))]
-)
+@pytest.mark.parametrize(("dims", "kernel"), [(1, (5,)), (2, (3, 3)), (2, (7, 1)), (3, (3, 2, 4))])
 def test_conv_matches_torch_for_groups_one_stride_one(dims: int, kernel: tuple[int, ...]) -> None:
     torch = require_oracle("torch")
     cls = {1: torch.nn.Conv1d, 2: torch.nn.Conv2d, 3: torch.nn.Conv3d}[dims]
@@ -68,8 +66,9 @@ def test_transposed_conv_is_swapped_relative_to_torch(dims: int, kernel: tuple[i
     # output side. For the operation that actually runs, our fan_in (what each output sums) is
     # torch's fan_out and vice versa (groups 1, stride 1).
     torch = require_oracle("torch")
-    cls = {1: torch.nn.ConvTranspose1d, 2: torch.nn.ConvTranspose2d,
-           3: torch.nn.ConvTranspose3d}[dims]
+    cls = {1: torch.nn.ConvTranspose1d, 2: torch.nn.ConvTranspose2d, 3: torch.nn.ConvTranspose3d}[
+        dims
+    ]
     layer = cls(6, 10, kernel)
     t_in, t_out = _torch_fans(layer.weight)
     ours = conv_fans(6, 10, kernel, transposed=True)
@@ -90,8 +89,9 @@ def test_embedding_differs_from_torch_and_gives_unit_lecun_scale() -> None:
     assert float(table.weight.detach().std()) == pytest.approx(1.0, abs=0.01)
 
 
-@pytest.mark.parametrize(("cell", "cls_name"), [("simple", "RNN"), ("lstm", "LSTM"),
-                                                ("gru", "GRU")])
+@pytest.mark.parametrize(
+    ("cell", "cls_name"), [("simple", "RNN"), ("lstm", "LSTM"), ("gru", "GRU")]
+)
 def test_recurrent_fans_per_gate_block(cell: str, cls_name: str) -> None:
     torch = require_oracle("torch")
     n_in, hidden = 24, 40
@@ -125,7 +125,11 @@ def test_attention_projections_match_torch_per_projection() -> None:
 
 
 def _conv_mask(
-    c_in: int, c_out: int, groups: int, kernel: tuple[int, ...], stride: tuple[int, ...],
+    c_in: int,
+    c_out: int,
+    groups: int,
+    kernel: tuple[int, ...],
+    stride: tuple[int, ...],
     size: tuple[int, ...],
 ) -> tuple[np.ndarray, tuple[int, ...]]:
     """Boolean (outputs x inputs) connectivity of an unpadded grouped, strided conv, built tap by
@@ -144,8 +148,9 @@ def _conv_mask(
     return mask.reshape(rows, -1), out_size
 
 
-def _interior_average(counts: np.ndarray, kernel: tuple[int, ...], stride: tuple[int, ...],
-                      reach: tuple[int, ...]) -> Fraction:
+def _interior_average(
+    counts: np.ndarray, kernel: tuple[int, ...], stride: tuple[int, ...], reach: tuple[int, ...]
+) -> Fraction:
     """Average of per-position counts (shape (channels, *spatial)) over interior positions.
 
     Position i (per dim) is interior when every window that could cover it exists:
@@ -175,7 +180,11 @@ GROUPED_CASES = [
 
 @pytest.mark.parametrize(("c_in", "c_out", "groups", "kernel", "stride", "size"), GROUPED_CASES)
 def test_conv_fans_equal_counted_connections(
-    c_in: int, c_out: int, groups: int, kernel: tuple[int, ...], stride: tuple[int, ...],
+    c_in: int,
+    c_out: int,
+    groups: int,
+    kernel: tuple[int, ...],
+    stride: tuple[int, ...],
     size: tuple[int, ...],
 ) -> None:
     mask, out_size = _conv_mask(c_in, c_out, groups, kernel, stride, size)
@@ -189,7 +198,11 @@ def test_conv_fans_equal_counted_connections(
 
 @pytest.mark.parametrize(("c_in", "c_out", "groups", "kernel", "stride", "size"), GROUPED_CASES)
 def test_transposed_conv_fans_equal_counted_connections_of_the_adjoint(
-    c_in: int, c_out: int, groups: int, kernel: tuple[int, ...], stride: tuple[int, ...],
+    c_in: int,
+    c_out: int,
+    groups: int,
+    kernel: tuple[int, ...],
+    stride: tuple[int, ...],
     size: tuple[int, ...],
 ) -> None:
     # The transposed conv c_out -> c_in is the adjoint of the conv c_in -> c_out: its
@@ -209,14 +222,19 @@ def test_transposed_conv_fans_equal_counted_connections_of_the_adjoint(
     [(4, 6, 2, (3,), (2,), (6,)), (6, 4, 2, (2,), (3,), (7,)), (2, 4, 2, (3, 2), (2, 3), (5, 4))],
 )
 def test_transposed_conv_fans_equal_counts_from_torch_operator(
-    c_in: int, c_out: int, groups: int, kernel: tuple[int, ...], stride: tuple[int, ...],
+    c_in: int,
+    c_out: int,
+    groups: int,
+    kernel: tuple[int, ...],
+    stride: tuple[int, ...],
     size: tuple[int, ...],
 ) -> None:
     # The real operation as the oracle: torch's conv_transpose with all-ones weights applied to
     # every one-hot input gives its matrix column by column; non-zero means connected.
     torch = require_oracle("torch")
-    fn = {1: torch.nn.functional.conv_transpose1d,
-          2: torch.nn.functional.conv_transpose2d}[len(kernel)]
+    fn = {1: torch.nn.functional.conv_transpose1d, 2: torch.nn.functional.conv_transpose2d}[
+        len(kernel)
+    ]
     weight = torch.ones((c_in, c_out // groups, *kernel), dtype=torch.float64)
     n_inputs = c_in * int(np.prod(size))
     one_hot = torch.eye(n_inputs, dtype=torch.float64).reshape(n_inputs, c_in, *size)
@@ -245,8 +263,13 @@ def test_whole_fans_are_ints_and_fractional_ones_floats() -> None:
 
 
 def test_explanations_are_one_line() -> None:
-    for f in (dense_fans(3, 4), conv_fans(2, 2, (3,)), embedding_fans(10, 4),
-              recurrent_fans(3, 5, "lstm", "recurrent"), attention_fans(8, 2, "key")):
+    for f in (
+        dense_fans(3, 4),
+        conv_fans(2, 2, (3,)),
+        embedding_fans(10, 4),
+        recurrent_fans(3, 5, "lstm", "recurrent"),
+        attention_fans(8, 2, "key"),
+    ):
         assert f.explanation and "\n" not in f.explanation
 
 

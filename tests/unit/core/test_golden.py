@@ -17,8 +17,10 @@ from support.golden_cases import digests
 
 HERE = Path(__file__).resolve().parents[2]
 GOLDEN = json.loads((HERE / "golden" / "core_digests.json").read_text())
-BUMP = ("output bytes changed: if intended, bump ALGORITHM in service/seedbed/core/version.py "
-        "and regenerate tests/golden/core_digests.json with tests/support/golden_cases.py")
+BUMP = (
+    "output bytes changed: if intended, bump ALGORITHM in service/seedbed/core/version.py "
+    "and regenerate tests/golden/core_digests.json with tests/support/golden_cases.py"
+)
 
 
 def _enabled_dispatch_targets() -> list[str]:
@@ -38,13 +40,19 @@ def test_same_digests_with_simd_dispatch_disabled() -> None:
     targets = _enabled_dispatch_targets()
     env = {**os.environ, "NPY_DISABLE_CPU_FEATURES": " ".join(targets)}
     script = HERE / "support" / "golden_cases.py"
-    probe = ("from numpy._core._multiarray_umath import __cpu_features__ as f;"
-             "import json; print(json.dumps({k: bool(v) for k, v in f.items()}))")
-    seen = json.loads(subprocess.run([sys.executable, "-c", probe], env=env, check=True,
-                                     capture_output=True, text=True).stdout)
+    probe = (
+        "from numpy._core._multiarray_umath import __cpu_features__ as f;"
+        "import json; print(json.dumps({k: bool(v) for k, v in f.items()}))"
+    )
+    seen = json.loads(
+        subprocess.run(
+            [sys.executable, "-c", probe], env=env, check=True, capture_output=True, text=True
+        ).stdout
+    )
     assert not any(seen[t] for t in targets), "the features were not actually disabled"
-    run = subprocess.run([sys.executable, str(script)], env=env, check=True,
-                         capture_output=True, text=True)
+    run = subprocess.run(
+        [sys.executable, str(script)], env=env, check=True, capture_output=True, text=True
+    )
     assert json.loads(run.stdout) == GOLDEN
 
 

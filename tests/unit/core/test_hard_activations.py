@@ -23,9 +23,14 @@ def _scipy_second_moment(phi, kinks):  # type: ignore[no-untyped-def]
     points = [-math.inf, *kinks, math.inf]
     total = 0.0
     for a, b in itertools.pairwise(points):
-        part, _ = integrate.quad(lambda z: phi(z) ** 2 * math.exp(-z * z / 2)
-                                 / math.sqrt(2 * math.pi), a, b, epsabs=1e-16, epsrel=1e-13,
-                                 limit=200)
+        part, _ = integrate.quad(
+            lambda z: phi(z) ** 2 * math.exp(-z * z / 2) / math.sqrt(2 * math.pi),
+            a,
+            b,
+            epsabs=1e-16,
+            epsrel=1e-13,
+            limit=200,
+        )
         total += part
     return total
 
@@ -37,8 +42,10 @@ def test_hard_swish_gain_against_quadpack_and_mpmath() -> None:
     assert got.second_moment == pytest.approx(m2, rel=1e-12)
     ctx = mpmath.MPContext()
     ctx.prec = 140
-    exact = ctx.quad(lambda z: (z * min(max(z / 6 + ctx.mpf(0.5), 0), 1)) ** 2 * ctx.npdf(z),
-                     [-ctx.inf, -3, 0, 3, ctx.inf])
+    exact = ctx.quad(
+        lambda z: (z * min(max(z / 6 + ctx.mpf(0.5), 0), 1)) ** 2 * ctx.npdf(z),
+        [-ctx.inf, -3, 0, 3, ctx.inf],
+    )
     assert got.value == float(1 / ctx.sqrt(exact))  # correctly rounded
 
 
@@ -55,8 +62,10 @@ def test_hard_sigmoid_closed_form_against_quadpack(slope: float) -> None:
 def test_values_and_slopes_match_torch() -> None:
     torch = require_oracle("torch")
     x = np.linspace(-7.0, 7.0, 57) + 0.0123  # off the kinks
-    for name, fn in (("hard_swish", torch.nn.functional.hardswish),
-                     ("hard_sigmoid", torch.nn.functional.hardsigmoid)):
+    for name, fn in (
+        ("hard_swish", torch.nn.functional.hardswish),
+        ("hard_sigmoid", torch.nn.functional.hardsigmoid),
+    ):
         t = torch.tensor(x, dtype=torch.float64, requires_grad=True)
         y = fn(t)
         (grad,) = torch.autograd.grad(y.sum(), t)

@@ -39,6 +39,7 @@ special = require_oracle("scipy.special")
 
 # --- independent definitions (mpmath and scipy, not seedbed's) -------------------------------
 
+
 def _mp_phi(name: str) -> Callable[[object], object]:
     lam = mpmath.mpf("1.0507009873554804934193349852946")
     alpha = mpmath.mpf("1.6732632423543772848170429916717")
@@ -75,10 +76,12 @@ def _sp_slope(name: str) -> Callable[[float], float]:
 def _gauss(f: Callable[[float], float]) -> float:
     """E[f(z)], z ~ N(0, 1), with scipy's adaptive quadrature (split at 0 for kinks)."""
     pdf = 1 / math.sqrt(2 * math.pi)
-    left = integrate.quad(lambda z: f(z) * math.exp(-z * z / 2) * pdf, -40, 0, limit=200,
-                          epsabs=1e-14, epsrel=1e-13)[0]
-    right = integrate.quad(lambda z: f(z) * math.exp(-z * z / 2) * pdf, 0, 40, limit=200,
-                           epsabs=1e-14, epsrel=1e-13)[0]
+    left = integrate.quad(
+        lambda z: f(z) * math.exp(-z * z / 2) * pdf, -40, 0, limit=200, epsabs=1e-14, epsrel=1e-13
+    )[0]
+    right = integrate.quad(
+        lambda z: f(z) * math.exp(-z * z / 2) * pdf, 0, 40, limit=200, epsabs=1e-14, epsrel=1e-13
+    )[0]
     return left + right
 
 
@@ -89,8 +92,11 @@ def _sp_length(name: str, sw2: float, sb2: float, q: float) -> float:
 
 
 def _sp_fixed_point(name: str, sw2: float, sb2: float) -> float:
-    return float(optimize.brentq(lambda q: _sp_length(name, sw2, sb2, q) - q, 1e-6, 50.0,
-                                 xtol=1e-15, rtol=1e-14))
+    return float(
+        optimize.brentq(
+            lambda q: _sp_length(name, sw2, sb2, q) - q, 1e-6, 50.0, xtol=1e-15, rtol=1e-14
+        )
+    )
 
 
 def _sp_chi(name: str, sw2: float, q: float) -> float:
@@ -101,10 +107,22 @@ def _sp_chi(name: str, sw2: float, q: float) -> float:
 
 # --- the length map ---------------------------------------------------------------------------
 
-@pytest.mark.parametrize(("name", "q"), [
-    ("tanh", 0.05), ("tanh", 400.0), ("relu", 1.0), ("gelu", 0.05), ("gelu", 7.3),
-    ("elu", 1.0), ("selu", 7.3), ("sigmoid", 400.0), ("softplus", 1.0), ("silu", 7.3),
-])
+
+@pytest.mark.parametrize(
+    ("name", "q"),
+    [
+        ("tanh", 0.05),
+        ("tanh", 400.0),
+        ("relu", 1.0),
+        ("gelu", 0.05),
+        ("gelu", 7.3),
+        ("elu", 1.0),
+        ("selu", 7.3),
+        ("sigmoid", 400.0),
+        ("softplus", 1.0),
+        ("silu", 7.3),
+    ],
+)
 def test_length_map_matches_mpmath_quadrature(name: str, q: float) -> None:
     phi = _mp_phi(name)
     with mpmath.workdps(20):
@@ -121,9 +139,16 @@ def test_length_map_matches_mpmath_quadrature(name: str, q: float) -> None:
 
 # --- fixed point and chi_1 -----------------------------------------------------------------
 
-@pytest.mark.parametrize(("name", "sw2", "sb2"), [
-    ("tanh", 1.5, 0.05), ("tanh", 2.5, 0.3), ("sigmoid", 4.0, 0.1), ("gelu", 1.5, 0.2),
-])
+
+@pytest.mark.parametrize(
+    ("name", "sw2", "sb2"),
+    [
+        ("tanh", 1.5, 0.05),
+        ("tanh", 2.5, 0.3),
+        ("sigmoid", 4.0, 0.1),
+        ("gelu", 1.5, 0.2),
+    ],
+)
 def test_fixed_point_and_chi_1_agree_with_scipy(name: str, sw2: float, sb2: float) -> None:
     fig = mean_field(name, sw2, sb2)
     q_ref = _sp_fixed_point(name, sw2, sb2)
@@ -170,13 +195,15 @@ def test_tanh_critical_line_has_chi_1_of_one(sb2: float) -> None:
 
 # --- depth scales ---------------------------------------------------------------------------
 
+
 def test_xi_q_is_the_slope_of_the_length_map() -> None:
     name, sw2, sb2 = "tanh", 1.5, 0.05
     fig = mean_field(name, sw2, sb2)
     assert fig.q_star is not None and fig.xi_q is not None
     h = 1e-4
-    slope = (_sp_length(name, sw2, sb2, fig.q_star + h)
-             - _sp_length(name, sw2, sb2, fig.q_star - h)) / (2 * h)
+    slope = (
+        _sp_length(name, sw2, sb2, fig.q_star + h) - _sp_length(name, sw2, sb2, fig.q_star - h)
+    ) / (2 * h)
     assert fig.length_slope == pytest.approx(slope, rel=1e-6)
     assert fig.xi_q == pytest.approx(-1 / math.log(slope), rel=1e-5)
     # ordered phase: c* = 1 and chi_c = chi_1 (Schoenholz et al. 2017)
@@ -184,8 +211,7 @@ def test_xi_q_is_the_slope_of_the_length_map() -> None:
     assert fig.xi_c == pytest.approx(-1 / math.log(fig.chi_1 or 0), rel=1e-12)
 
 
-def _sp_pair(f: Callable[[float], float], g: Callable[[float], float], q: float,
-             c: float) -> float:
+def _sp_pair(f: Callable[[float], float], g: Callable[[float], float], q: float, c: float) -> float:
     s = math.sqrt(q)
     r = math.sqrt(1 - c * c)
     pdf = 1 / (2 * math.pi)
@@ -219,16 +245,20 @@ def test_pair_expectation_matches_the_arc_cosine_kernel(c: float) -> None:
 
 # --- interface ------------------------------------------------------------------------------
 
-@pytest.mark.parametrize(("call", "field"), [
-    (lambda: mean_field("tanh", 0.0, 0.0), "sigma_w2"),
-    (lambda: mean_field("tanh", 1.0, -0.1), "sigma_b2"),
-    (lambda: mean_field("tanh", float("nan"), 0.0), "sigma_w2"),
-    (lambda: mean_field("tanh", 1.0, 0.0, start=0.0), "start"),
-    (lambda: mean_field("swish", 1.0, 0.0), "activation"),
-    (lambda: mean_field("softmax", 1.0, 0.0), "activation"),
-    (lambda: mean_field("leaky_relu", 1.0, 0.0, param=3.0), "activation_param"),
-    (lambda: length_map("tanh", 1.0, 0.0, -1.0), "q"),
-])
+
+@pytest.mark.parametrize(
+    ("call", "field"),
+    [
+        (lambda: mean_field("tanh", 0.0, 0.0), "sigma_w2"),
+        (lambda: mean_field("tanh", 1.0, -0.1), "sigma_b2"),
+        (lambda: mean_field("tanh", float("nan"), 0.0), "sigma_w2"),
+        (lambda: mean_field("tanh", 1.0, 0.0, start=0.0), "start"),
+        (lambda: mean_field("swish", 1.0, 0.0), "activation"),
+        (lambda: mean_field("softmax", 1.0, 0.0), "activation"),
+        (lambda: mean_field("leaky_relu", 1.0, 0.0, param=3.0), "activation_param"),
+        (lambda: length_map("tanh", 1.0, 0.0, -1.0), "q"),
+    ],
+)
 def test_bad_arguments_name_the_field(call: Callable[[], object], field: str) -> None:
     with pytest.raises(ValueError, match=field):
         call()

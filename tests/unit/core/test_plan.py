@@ -11,8 +11,20 @@ from seedbed.core.plan import build_plan, plan_document
 from seedbed.core.request.problems import RequestRejected
 
 REQUIRED_ENTRY_KEYS = {  # docs/service.md: what each plan entry holds at least
-    "tensor", "layer", "shape", "dtype", "method", "distribution", "fan_in", "fan_out", "gain",
-    "std", "bound", "reproducible", "rationale", "references",
+    "tensor",
+    "layer",
+    "shape",
+    "dtype",
+    "method",
+    "distribution",
+    "fan_in",
+    "fan_out",
+    "gain",
+    "std",
+    "bound",
+    "reproducible",
+    "rationale",
+    "references",
 }
 
 
@@ -75,8 +87,16 @@ def test_output_layer_glorot_gain_one_and_prior_bias() -> None:
 
 def test_lstm_forget_block_bias_follows_the_callers_gate_order() -> None:
     # Gers et al. 2000; Jozefowicz et al. 2015: forget-gate bias 1, others 0.
-    p = plan_of({"name": "cell", "kind": "recurrent", "cell": "lstm", "n_in": 8, "hidden": 5,
-                 "gate_order": ["cell", "forget", "input", "output"]})
+    p = plan_of(
+        {
+            "name": "cell",
+            "kind": "recurrent",
+            "cell": "lstm",
+            "n_in": 8,
+            "hidden": 5,
+            "gate_order": ["cell", "forget", "input", "output"],
+        }
+    )
     assert p.tensor("cell.bias").block_values == (0.0, 1.0, 0.0, 0.0)
     rec = p.tensor("cell.recurrent_weight")
     assert (rec.method, rec.reproducible, rec.gate_blocks) == ("orthogonal", "platform", 4)
@@ -84,8 +104,16 @@ def test_lstm_forget_block_bias_follows_the_callers_gate_order() -> None:
 
 def test_simple_relu_cell_gets_identity_recurrence() -> None:
     # Le, Jaitly & Hinton 2015: identity recurrent matrix for ReLU RNNs.
-    p = plan_of({"name": "r", "kind": "recurrent", "cell": "simple", "n_in": 8, "hidden": 6,
-                 "activation": "relu"})
+    p = plan_of(
+        {
+            "name": "r",
+            "kind": "recurrent",
+            "cell": "simple",
+            "n_in": 8,
+            "hidden": 6,
+            "activation": "relu",
+        }
+    )
     assert p.tensor("r.recurrent_weight").method == "identity"
 
 
@@ -96,8 +124,9 @@ def test_embedding_rows_have_unit_variance() -> None:
 
 
 def test_every_entry_has_the_design_fields() -> None:
-    doc = plan_document(plan_of(dense("a", 4, 4, activation="relu"),
-                                {"name": "n", "kind": "norm", "dim": 4}))
+    doc = plan_document(
+        plan_of(dense("a", 4, 4, activation="relu"), {"name": "n", "kind": "norm", "dim": 4})
+    )
     for entry in doc["tensors"]:
         assert set(entry) >= REQUIRED_ENTRY_KEYS
         assert entry["rationale"]
@@ -112,8 +141,16 @@ def test_constant_hidden_override_warns_about_symmetry() -> None:
 
 
 def test_tiny_symmetric_uniform_stack_warns_about_vanishing() -> None:
-    layers = [dense(f"l{i}", 256, 256, activation="relu",
-                    init={"method": "symmetric_uniform", "bound": 0.01}) for i in range(5)]
+    layers = [
+        dense(
+            f"l{i}",
+            256,
+            256,
+            activation="relu",
+            init={"method": "symmetric_uniform", "bound": 0.01},
+        )
+        for i in range(5)
+    ]
     warnings = plan_of(*layers).warnings
     assert any("vanish" in w and "l1" in w for w in warnings), warnings
 
@@ -129,9 +166,18 @@ def test_sigmoid_stack_warns() -> None:
 
 
 def test_transposed_conv_warns_about_fan_direction() -> None:
-    t = plan_of({"name": "up", "kind": "conv", "channels_in": 64, "channels_out": 32,
-                 "kernel": [4, 4], "transposed": True, "stride": [2, 2],
-                 "activation": "relu"}).tensor("up.weight")
+    t = plan_of(
+        {
+            "name": "up",
+            "kind": "conv",
+            "channels_in": 64,
+            "channels_out": 32,
+            "kernel": [4, 4],
+            "transposed": True,
+            "stride": [2, 2],
+            "activation": "relu",
+        }
+    ).tensor("up.weight")
     assert t.fan_in == 64 * 16 // 4 and t.fan_out == 32 * 16
     assert any("other direction" in w for w in t.warnings)
 
@@ -145,8 +191,15 @@ def test_identity_on_rectangular_weight_is_refused_with_the_field() -> None:
 
 
 def test_explicit_std_override_reports_ratio_to_recommendation() -> None:
-    t = plan_of(dense("h", 100, 100, activation="relu",
-                      init={"method": "he", "std": 0.02, "distribution": "truncated_normal"}))
+    t = plan_of(
+        dense(
+            "h",
+            100,
+            100,
+            activation="relu",
+            init={"method": "he", "std": 0.02, "distribution": "truncated_normal"},
+        )
+    )
     w = t.tensor("h.weight")
     assert w.std == pytest.approx(0.02, rel=1e-15)
     # truncation at 2 sigma: sigma = std / factor; factor from scipy.stats.truncnorm
@@ -157,8 +210,9 @@ def test_explicit_std_override_reports_ratio_to_recommendation() -> None:
 
 def test_derived_scale_beyond_the_dtype_is_refused_with_the_field() -> None:
     with pytest.raises(RequestRejected) as err:
-        plan_of(dense("a", 8, 8, activation="relu", init={"method": "he", "gain": 1e6}),
-                dtype="float16")
+        plan_of(
+            dense("a", 8, 8, activation="relu", init={"method": "he", "gain": 1e6}), dtype="float16"
+        )
     (problem,) = err.value.problems
     assert problem.field == "layers[0].init" and "65504" in problem.message
 
@@ -169,8 +223,14 @@ def test_scale_below_the_dtype_precision_warns() -> None:
 
 
 def test_norm_scale_override_with_explicit_std() -> None:
-    p = plan_of({"name": "n", "kind": "norm", "dim": 16,
-                 "init": {"method": "he", "distribution": "normal", "std": 0.1}})
+    p = plan_of(
+        {
+            "name": "n",
+            "kind": "norm",
+            "dim": 16,
+            "init": {"method": "he", "distribution": "normal", "std": 0.1},
+        }
+    )
     t = p.tensor("n.scale")
     assert (t.sampler, t.std) == ("normal", 0.1)
     assert p.tensor("n.shift").value == 0.0

@@ -33,9 +33,16 @@ def soil_resnet(branches: int, per_branch: int, **top: Any) -> dict[str, Any]:
     for i in range(branches):
         for j in range(per_branch):
             last = j == per_branch - 1
-            layers.append(dense(f"r{i}.l{j}", 64, 64, branch=f"r{i}",
-                                activation="linear" if last else "relu",
-                                role="residual_out" if last else "hidden"))
+            layers.append(
+                dense(
+                    f"r{i}.l{j}",
+                    64,
+                    64,
+                    branch=f"r{i}",
+                    activation="linear" if last else "relu",
+                    role="residual_out" if last else "hidden",
+                )
+            )
     layers.append(dense("moisture", 64, 3, role="output"))
     return {"seed": "soil/7", "layers": layers, **top}
 
@@ -74,7 +81,8 @@ def check_sample_std(values: np.ndarray, expected: float) -> None:
     normal sample of n values has relative standard error about 1/sqrt(2n))."""
     n = values.size
     assert float(np.std(values.astype(np.float64))) == pytest.approx(
-        expected, rel=5 / math.sqrt(2 * n))
+        expected, rel=5 / math.sqrt(2 * n)
+    )
 
 
 def check_drawn(plan: Plan, name: str, expected: float) -> None:
@@ -99,8 +107,9 @@ def test_fixup_l8_m2_scales_by_0_353553() -> None:
         assert t.gain == pytest.approx(math.sqrt(2) * factor, rel=1e-14)
         assert "0.353553" in t.rationale and "Zhang et al. 2019" in t.rationale
         assert any("Fixup" in r for r in t.references)
-    drawn = np.concatenate([render_rows(plan, plan.tensor(f"r{i}.l0.weight")).ravel()
-                            for i in range(8)])
+    drawn = np.concatenate(
+        [render_rows(plan, plan.tensor(f"r{i}.l0.weight")).ravel() for i in range(8)]
+    )
     check_sample_std(drawn, he * factor)
 
 
@@ -144,7 +153,7 @@ def test_fixup_on_residual_conv_blocks() -> None:
         "depth_policy": {"name": "fixup"}}  # fmt: skip
     plan = build_plan(body)
     he = math.sqrt(2 / (16 * 9))  # He et al. 2015, eq. 10, fan-in = channels * kernel taps
-    assert plan.tensor("res.3.conv1.weight").std == pytest.approx(he * 8 ** -0.5, rel=1e-14)
+    assert plan.tensor("res.3.conv1.weight").std == pytest.approx(he * 8**-0.5, rel=1e-14)
     assert plan.tensor("res.3.conv2.weight").value == 0.0
     assert plan.tensor("res.3.branch.multiplier").value == 1.0
 
@@ -163,8 +172,9 @@ def test_skip_gate_adds_a_zero_gate_per_branch_and_changes_nothing_else() -> Non
     plain = build_plan(tide_lm(3))
     gated = build_plan(tide_lm(3, depth_policy={"name": "skip_gate"}))
     gates = [t for t in gated.tensors if t.tensor.endswith(".gate")]
-    assert [t.tensor for t in gates] == [f"enc.{i}.{b}_branch.gate" for i in range(3)
-                                         for b in ("attn", "mlp")]
+    assert [t.tensor for t in gates] == [
+        f"enc.{i}.{b}_branch.gate" for i in range(3) for b in ("attn", "mlp")
+    ]
     for t in gates:
         assert (t.shape, t.sampler, t.value) == ((1,), "constant", 0.0)
         assert "De & Smith 2020" in t.rationale and "Bachlechner et al. 2020" in t.rationale
@@ -189,8 +199,12 @@ def test_twelve_blocks_scale_residual_outputs_by_sqrt_24() -> None:
         t = plan.tensor(name)
         assert (t.method, t.distribution, t.std) == ("scaled_residual", "normal", small)
         assert "sqrt(24)" in t.rationale and "Radford et al. 2019, sec. 2.3" in t.rationale
-    for name in ("codes.weight", "enc.0.attn.query.weight", "enc.5.mlp_in.weight",
-                 "next_code.weight"):
+    for name in (
+        "codes.weight",
+        "enc.0.attn.query.weight",
+        "enc.5.mlp_in.weight",
+        "next_code.weight",
+    ):
         t = plan.tensor(name)
         assert t.std == 0.02
         assert "common practice" in t.rationale
@@ -199,15 +213,20 @@ def test_twelve_blocks_scale_residual_outputs_by_sqrt_24() -> None:
 
 
 def test_scaled_residual_parameters() -> None:
-    plan = build_plan(tide_lm(2, depth_policy={"name": "scaled_residual", "base_std": 0.01,
-                                               "residual_layers": 10}))
+    plan = build_plan(
+        tide_lm(
+            2, depth_policy={"name": "scaled_residual", "base_std": 0.01, "residual_layers": 10}
+        )
+    )
     t = plan.tensor("enc.1.mlp_out.weight")
     assert t.std == 0.01 / math.sqrt(10)
     assert "common practice" not in plan.tensor("enc.0.mlp_in.weight").rationale
     # without branches, layers marked residual_out count
-    body = {"seed": 1, "layers": [dense("a", 8, 8, role="residual_out"),
-                                  dense("b", 8, 8, role="residual_out")],
-            "depth_policy": {"name": "scaled_residual"}}
+    body = {
+        "seed": 1,
+        "layers": [dense("a", 8, 8, role="residual_out"), dense("b", 8, 8, role="residual_out")],
+        "depth_policy": {"name": "scaled_residual"},
+    }
     assert build_plan(body).tensor("b.weight").std == 0.02 / math.sqrt(2)
 
 
@@ -216,12 +235,13 @@ def test_scaled_residual_parameters() -> None:
 
 
 def test_deepnorm_encoder_n6_alpha_and_beta() -> None:
-    plan = build_plan(tide_lm(6, norm="post", depth_policy={"name": "deepnorm",
-                                                            "architecture": "encoder"}))
+    plan = build_plan(
+        tide_lm(6, norm="post", depth_policy={"name": "deepnorm", "architecture": "encoder"})
+    )
     # Wang et al. 2022 (DeepNet), encoder-only with N layers: alpha = (2N)^(1/4), beta =
     # (8N)^(-1/4) (the table beside the DeepNorm pseudocode; location [from memory]). N = 6
     # gives 1.861210 and 0.379918.
-    alpha, beta = 12 ** 0.25, 48 ** -0.25
+    alpha, beta = 12**0.25, 48**-0.25
     assert (alpha, beta) == (pytest.approx(1.861210, abs=5e-7), pytest.approx(0.379918, abs=5e-7))
     doc = plan_document(plan)
     (mult,) = doc["multipliers"]
@@ -229,9 +249,12 @@ def test_deepnorm_encoder_n6_alpha_and_beta() -> None:
     assert len(mult["applies_to"]) == 12
     assert doc["depth_policy"]["parameters"]["encoder_beta"] == pytest.approx(beta, rel=2e-16)
     # beta on feed-forward, value and output projections (Glorot normal); query and key gain 1
-    for name, fans in (("enc.0.attn.value.weight", (64, 64)), ("enc.0.attn.output.weight",
-                                                                (64, 64)),
-                       ("enc.5.mlp_in.weight", (64, 256)), ("enc.5.mlp_out.weight", (256, 64))):
+    for name, fans in (
+        ("enc.0.attn.value.weight", (64, 64)),
+        ("enc.0.attn.output.weight", (64, 64)),
+        ("enc.5.mlp_in.weight", (64, 256)),
+        ("enc.5.mlp_out.weight", (256, 64)),
+    ):
         t = plan.tensor(name)
         assert (t.method, t.distribution) == ("glorot", "normal")
         assert t.std == pytest.approx(glorot_std(*fans, beta), rel=1e-14), name
@@ -244,12 +267,18 @@ def test_deepnorm_encoder_n6_alpha_and_beta() -> None:
 
 
 def test_deepnorm_layer_count_from_the_caller_and_decoder_only() -> None:
-    plan = build_plan(tide_lm(2, norm="post", depth_policy={
-        "name": "deepnorm", "architecture": "decoder", "decoder_layers": 12}))
+    plan = build_plan(
+        tide_lm(
+            2,
+            norm="post",
+            depth_policy={"name": "deepnorm", "architecture": "decoder", "decoder_layers": 12},
+        )
+    )
     (mult,) = plan.multipliers
-    assert mult["value"] == pytest.approx(24 ** 0.25, rel=2e-16)  # (2N)^(1/4), N = 12
+    assert mult["value"] == pytest.approx(24**0.25, rel=2e-16)  # (2N)^(1/4), N = 12
     assert plan.tensor("enc.0.mlp_in.weight").std == pytest.approx(
-        glorot_std(64, 256, 96 ** -0.25), rel=1e-14)
+        glorot_std(64, 256, 96**-0.25), rel=1e-14
+    )
 
 
 def test_deepnorm_encoder_decoder_constants() -> None:
@@ -271,12 +300,15 @@ def test_deepnorm_encoder_decoder_constants() -> None:
     by_group = {mm["group"]: mm for mm in plan.multipliers}
     assert by_group["encoder"]["value"] == pytest.approx(enc_alpha, rel=1e-15)
     assert by_group["decoder"]["value"] == pytest.approx(dec_alpha, rel=1e-15)
-    assert by_group["encoder"]["applies_to"] == [f"src.{i}.{b}_branch" for i in range(2)
-                                                 for b in ("attn", "mlp")]
+    assert by_group["encoder"]["applies_to"] == [
+        f"src.{i}.{b}_branch" for i in range(2) for b in ("attn", "mlp")
+    ]
     assert plan.tensor("src.1.attn.value.weight").std == pytest.approx(
-        glorot_std(32, 32, enc_beta), rel=1e-14)
+        glorot_std(32, 32, enc_beta), rel=1e-14
+    )
     assert plan.tensor("tgt.2.mlp_out.weight").std == pytest.approx(
-        glorot_std(64, 32, dec_beta), rel=1e-14)
+        glorot_std(64, 32, dec_beta), rel=1e-14
+    )
 
 
 def test_deepnorm_on_pre_norm_blocks_warns() -> None:
@@ -301,17 +333,19 @@ def test_t_fixup_encoder_decoder_factors() -> None:
     # Huang et al. 2020, Algorithm 1 [from memory]: encoder value/output projections and MLP
     # weights x 0.67 N^(-1/4); decoder ones and the input embeddings x (9M)^(-1/4); embeddings
     # Gaussian with std d^(-1/2); Xavier (Glorot) elsewhere.
-    enc, dec = 0.67 * 3 ** -0.25, (9 * 3) ** -0.25
+    enc, dec = 0.67 * 3**-0.25, (9 * 3) ** -0.25
     v = plan.tensor("src.2.attn.value.weight")
     assert (v.method, v.distribution) == ("glorot", "uniform")
     assert v.std == pytest.approx(glorot_std(32, 32) * enc, rel=1e-14)
     assert "[from memory]" in v.rationale and "Huang et al. 2020" in v.rationale
-    assert plan.tensor("tgt.0.mlp_in.weight").std == pytest.approx(glorot_std(32, 64) * dec,
-                                                                   rel=1e-14)
-    assert plan.tensor("tgt.1.attn.query.weight").std == pytest.approx(glorot_std(32, 32),
-                                                                       rel=1e-14)
+    assert plan.tensor("tgt.0.mlp_in.weight").std == pytest.approx(
+        glorot_std(32, 64) * dec, rel=1e-14
+    )
+    assert plan.tensor("tgt.1.attn.query.weight").std == pytest.approx(
+        glorot_std(32, 32), rel=1e-14
+    )
     e = plan.tensor("src_tokens.weight")
-    assert e.std == pytest.approx(32 ** -0.5 * dec, rel=1e-14)
+    assert e.std == pytest.approx(32**-0.5 * dec, rel=1e-14)
     check_drawn(plan, "src_tokens.weight", e.std)
     assert any("warmup" in w for w in plan.warnings)
 
@@ -331,21 +365,22 @@ def orchard_mlp(width: int, **top: Any) -> dict[str, Any]:
 
 def test_width_transfer_scales_the_output_layer_and_returns_multipliers() -> None:
     plain = build_plan(orchard_mlp(256))
-    plan = build_plan(orchard_mlp(256, depth_policy={"name": "width_transfer",
-                                                     "base_width": 64}))
+    plan = build_plan(orchard_mlp(256, depth_policy={"name": "width_transfer", "base_width": 64}))
     # Yang et al. 2021, Table 3 [from memory]: output weights' variance 1/fan_in^2, i.e. the
     # standard variance times base/width at a base width where the two agree; input and hidden
     # weights keep 1/fan_in; Adam learning rate of hidden and output weights x base/width.
     shrink = 64 / 256
     out = plan.tensor("yield.weight")
-    assert out.std == pytest.approx(plain.tensor("yield.weight").std * math.sqrt(shrink),
-                                    rel=1e-15)
+    assert out.std == pytest.approx(plain.tensor("yield.weight").std * math.sqrt(shrink), rel=1e-15)
     assert "not exact constants" in out.rationale
     for name in ("features.weight", "hidden.0.weight", "hidden.1.weight"):
         assert plan.tensor(name).std == plain.tensor(name).std
         assert "Yang et al. 2021" in plan.tensor(name).rationale
-    rates = {(m["optimizer"], m["group"]): m for m in plan.multipliers
-             if m["name"] == "learning_rate_scale"}
+    rates = {
+        (m["optimizer"], m["group"]): m
+        for m in plan.multipliers
+        if m["name"] == "learning_rate_scale"
+    }
     assert rates["adam", "hidden"]["value"] == shrink
     assert rates["adam", "hidden"]["applies_to"] == ["hidden.0.weight", "hidden.1.weight"]
     assert rates["adam", "output"]["value"] == shrink
@@ -359,8 +394,9 @@ def test_width_transfer_scales_the_output_layer_and_returns_multipliers() -> Non
 
 
 def test_width_transfer_with_an_explicit_width_and_attention() -> None:
-    plan = build_plan(tide_lm(1, depth_policy={"name": "width_transfer", "base_width": 16,
-                                               "width": 64}))
+    plan = build_plan(
+        tide_lm(1, depth_policy={"name": "width_transfer", "base_width": 16, "width": 64})
+    )
     names = {m["name"] for m in plan.multipliers}
     assert {"output_multiplier", "learning_rate_scale", "attention_logit_scale"} <= names
     assert plan.tensor("codes.weight").std == 1.0  # input layer unchanged
@@ -425,8 +461,7 @@ def test_policy_names_are_listed_in_the_error() -> None:
     with pytest.raises(RequestRejected) as info:
         parse(tide_lm(1, depth_policy={"name": "rezero"}))
     message = info.value.problems[0].message
-    for name in ("fixup", "skip_gate", "scaled_residual", "deepnorm", "t_fixup",
-                 "width_transfer"):
+    for name in ("fixup", "skip_gate", "scaled_residual", "deepnorm", "t_fixup", "width_transfer"):
         assert name in message
 
 
@@ -444,10 +479,13 @@ def test_explicit_init_wins_over_the_policy_and_is_reported() -> None:
 
 
 def test_policy_plans_are_deterministic_and_json_ready() -> None:
-    for policy in ({"name": "skip_gate"}, {"name": "scaled_residual"},
-                   {"name": "deepnorm", "architecture": "encoder"},
-                   {"name": "t_fixup", "architecture": "decoder"},
-                   {"name": "width_transfer", "base_width": 32}):
+    for policy in (
+        {"name": "skip_gate"},
+        {"name": "scaled_residual"},
+        {"name": "deepnorm", "architecture": "encoder"},
+        {"name": "t_fixup", "architecture": "decoder"},
+        {"name": "width_transfer", "base_width": 32},
+    ):
         body = tide_lm(2, norm="post", depth_policy=policy)
         a, b = plan_document(build_plan(body)), plan_document(build_plan(body))
         assert json.dumps(a, sort_keys=True, allow_nan=False) == json.dumps(b, sort_keys=True)

@@ -33,8 +33,10 @@ def values(plan, name: str) -> np.ndarray:
     [
         ({"method": "he"}, lambda t: stats.norm(scale=t.std)),
         ({"method": "glorot"}, lambda t: stats.uniform(loc=-t.bound, scale=2 * t.bound)),
-        ({"method": "lecun", "distribution": "truncated_normal"},
-         lambda t: stats.truncnorm(-2, 2, scale=t.bound / 2)),
+        (
+            {"method": "lecun", "distribution": "truncated_normal"},
+            lambda t: stats.truncnorm(-2, 2, scale=t.bound / 2),
+        ),
     ],
 )
 def test_weights_follow_their_distribution(init: dict, frozen) -> None:
@@ -58,8 +60,9 @@ def test_no_two_rows_are_equal() -> None:
 def test_orthogonal_rows_or_columns_are_orthonormal_times_gain(shape: tuple[int, int]) -> None:
     # Saxe et al. 2014: all singular values equal the gain.
     n_out, n_in = shape
-    plan = plan_of(dense("q", n_in, n_out, init={"method": "orthogonal", "gain": 1.5}),
-                   dtype="float64")
+    plan = plan_of(
+        dense("q", n_in, n_out, init={"method": "orthogonal", "gain": 1.5}), dtype="float64"
+    )
     w = values(plan, "q.weight")
     gram = w @ w.T if n_out <= n_in else w.T @ w
     np.testing.assert_allclose(gram, 1.5**2 * np.eye(min(shape)), atol=1e-12)
@@ -70,8 +73,13 @@ def test_orthogonal_is_haar_not_biased_toward_positive_diagonal() -> None:
     # Mezzadri 2007: without the sign correction QR's Q has a positive-leaning diagonal.
     diag = []
     for seed in range(40):
-        p = build_plan({"seed": seed, "dtype": "float64",
-                        "layers": [dense("q", 8, 8, init={"method": "orthogonal"})]})
+        p = build_plan(
+            {
+                "seed": seed,
+                "dtype": "float64",
+                "layers": [dense("q", 8, 8, init={"method": "orthogonal"})],
+            }
+        )
         diag.append(np.diag(render_rows(p, p.tensor("q.weight"))))
     d = np.concatenate(diag)
     # Haar: each diagonal entry has mean 0 and variance 1/n (n = 8); 320 samples.
@@ -79,8 +87,9 @@ def test_orthogonal_is_haar_not_biased_toward_positive_diagonal() -> None:
 
 
 def test_lstm_recurrent_blocks_are_each_orthogonal() -> None:
-    plan = plan_of({"name": "c", "kind": "recurrent", "cell": "lstm", "n_in": 6, "hidden": 16},
-                   dtype="float64")
+    plan = plan_of(
+        {"name": "c", "kind": "recurrent", "cell": "lstm", "n_in": 6, "hidden": 16}, dtype="float64"
+    )
     w = values(plan, "c.recurrent_weight")
     for k in range(4):
         block = w[16 * k : 16 * (k + 1)]
@@ -90,9 +99,18 @@ def test_lstm_recurrent_blocks_are_each_orthogonal() -> None:
 def test_conv_dirac_identity_passes_inputs_through_torch_conv() -> None:
     # Oracle: torch's conv2d with 'same' padding must return its input unchanged.
     torch = require_oracle("torch")
-    plan = plan_of({"name": "d", "kind": "conv", "channels_in": 6, "channels_out": 6,
-                    "kernel": [3, 5], "groups": 2, "init": {"method": "identity"}},
-                   dtype="float64")
+    plan = plan_of(
+        {
+            "name": "d",
+            "kind": "conv",
+            "channels_in": 6,
+            "channels_out": 6,
+            "kernel": [3, 5],
+            "groups": 2,
+            "init": {"method": "identity"},
+        },
+        dtype="float64",
+    )
     w = torch.from_numpy(values(plan, "d.weight"))
     x = torch.randn(2, 6, 9, 11, dtype=torch.float64)
     y = torch.nn.functional.conv2d(x, w, padding=(1, 2), groups=2)
@@ -108,11 +126,24 @@ def test_lstm_bias_blocks() -> None:
 # One layer of each kind: a collection, not a chain (the requests say widths "unchecked").
 _KINDS = [
     dense("fc", 37, 23, activation="relu"),
-    {"name": "cv", "kind": "conv", "channels_in": 4, "channels_out": 6, "kernel": [3, 2, 2],
-     "groups": 2, "activation": "tanh"},
+    {
+        "name": "cv",
+        "kind": "conv",
+        "channels_in": 4,
+        "channels_out": 6,
+        "kernel": [3, 2, 2],
+        "groups": 2,
+        "activation": "tanh",
+    },
     {"name": "rn", "kind": "recurrent", "cell": "gru", "n_in": 7, "hidden": 5},
-    {"name": "rs", "kind": "recurrent", "cell": "simple", "n_in": 5, "hidden": 5,
-     "activation": "relu"},
+    {
+        "name": "rs",
+        "kind": "recurrent",
+        "cell": "simple",
+        "n_in": 5,
+        "hidden": 5,
+        "activation": "relu",
+    },
     {"name": "em", "kind": "embedding", "vocab": 30, "dim": 300},
     {"name": "at", "kind": "attention", "dim": 300, "heads": 3},
     dense("id", 9, 9, init={"method": "identity", "gain": 0.5}),
@@ -120,11 +151,21 @@ _KINDS = [
 
 
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(data=st.data(), layout=st.sampled_from(["out_in", "in_out"]),
-       dtype=st.sampled_from(["float32", "float64", "float16", "bfloat16"]))
+@given(
+    data=st.data(),
+    layout=st.sampled_from(["out_in", "in_out"]),
+    dtype=st.sampled_from(["float32", "float64", "float16", "bfloat16"]),
+)
 def test_any_row_block_equals_the_slice_of_the_whole(data, layout: str, dtype: str) -> None:
-    plan = build_plan({"seed": "blocks", "dtype": dtype, "layout": layout, "layers": _KINDS,
-                       "widths": "unchecked"})
+    plan = build_plan(
+        {
+            "seed": "blocks",
+            "dtype": dtype,
+            "layout": layout,
+            "layers": _KINDS,
+            "widths": "unchecked",
+        }
+    )
     t = data.draw(st.sampled_from(plan.tensors))
     whole = render_rows(plan, t)
     start = data.draw(st.integers(0, t.shape[0] - 1))
@@ -141,8 +182,7 @@ def test_layouts_hold_the_same_numbers() -> None:
     b = build_plan({"seed": 3, "layout": "in_out", "layers": _KINDS, "widths": "unchecked"})
     for ta, tb in zip(a.tensors, b.tensors, strict=True):
         va, vb = render_rows(a, ta), render_rows(b, tb)
-        np.testing.assert_array_equal(va,
-                                      np.transpose(vb, np.argsort(tb.served_axes)))
+        np.testing.assert_array_equal(va, np.transpose(vb, np.argsort(tb.served_axes)))
 
 
 @settings(max_examples=25, deadline=None)

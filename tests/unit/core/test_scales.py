@@ -89,9 +89,9 @@ def test_he_mean_fan_and_leaky_gain() -> None:
     gain = math.sqrt(2 / (1 + 0.2**2))
     s = he_scale(100, 300, gain=gain, fan="mean")
     assert s.fan == 200
-    assert s.std == pytest.approx(_mp(
-        lambda: mpmath.sqrt(2 / ((1 + mpmath.mpf("0.2") ** 2) * 200))
-    ), rel=1e-15)
+    assert s.std == pytest.approx(
+        _mp(lambda: mpmath.sqrt(2 / ((1 + mpmath.mpf("0.2") ** 2) * 200))), rel=1e-15
+    )
 
 
 def test_select_fan() -> None:

@@ -58,10 +58,20 @@ def test_names_and_parts_of_every_kind() -> None:
     assert [s.tensor for s in one_layer(CONV2)] == ["c2.weight", "c2.bias"]
     assert [s.tensor for s in one_layer(EMBED)] == ["tok.weight"]
     assert [(s.tensor, s.is_bias) for s in one_layer(recurrent("lstm"))] == [
-        ("rnn.input_weight", False), ("rnn.recurrent_weight", False), ("rnn.bias", True)]
+        ("rnn.input_weight", False),
+        ("rnn.recurrent_weight", False),
+        ("rnn.bias", True),
+    ]
     assert [s.tensor for s in one_layer(ATTN)] == [
-        "att.query.weight", "att.query.bias", "att.key.weight", "att.key.bias",
-        "att.value.weight", "att.value.bias", "att.output.weight", "att.output.bias"]
+        "att.query.weight",
+        "att.query.bias",
+        "att.key.weight",
+        "att.key.bias",
+        "att.value.weight",
+        "att.value.bias",
+        "att.output.weight",
+        "att.output.bias",
+    ]
     assert [(s.tensor, s.part, s.is_bias) for s in one_layer(NORM)] == [
         ("ln.scale", "scale", False), ("ln.shift", "shift", True)]  # fmt: skip
     assert all(s.layer_kind == "attention" and s.layer == "att" for s in one_layer(ATTN))
@@ -73,7 +83,11 @@ def test_bias_false_drops_bias_tensors() -> None:
     assert [s.tensor for s in one_layer(recurrent("gru", bias=False))] == [
         "rnn.input_weight", "rnn.recurrent_weight"]  # fmt: skip
     assert [s.tensor for s in one_layer({**ATTN, "bias": False})] == [
-        "att.query.weight", "att.key.weight", "att.value.weight", "att.output.weight"]
+        "att.query.weight",
+        "att.key.weight",
+        "att.value.weight",
+        "att.output.weight",
+    ]
     assert [s.tensor for s in one_layer({**NORM, "bias": False})] == ["ln.scale"]
 
 
@@ -242,8 +256,11 @@ def test_norm_and_dense_names_can_coexist_when_tensors_differ() -> None:
     # Norm "x" owns the tensor "x.scale"; a dense layer named "x.scale" owns "x.scale.weight"
     # and "x.scale.bias". No tensor name is shared, so this is fine: the check compares whole
     # tensor names, not prefixes.
-    body = {"seed": 1, "layers": [{**NORM, "name": "x"}, {**DENSE, "name": "x.scale"}],
-            "widths": "unchecked"}
+    body = {
+        "seed": 1,
+        "layers": [{**NORM, "name": "x"}, {**DENSE, "name": "x.scale"}],
+        "widths": "unchecked",
+    }
     parse(body)
 
 
@@ -257,5 +274,3 @@ def test_request_slots_refuse_unchecked_requests_with_clashes() -> None:
         {"seed": 1, "layers": [ATTN, {**DENSE, "name": "att.value", "n_in": 8, "n_out": 8}]}
     )
     assert len(tensor_name_problems(clash)) == 2  # att.value.weight and att.value.bias
-
-

@@ -13,8 +13,7 @@ from seedbed.core.diagnostics.ops import NORM_EPS
 from seedbed.core.diagnostics.unit_stats import FLAT_WHEN_SATURATED, RECTIFIER_FAMILY
 from seedbed.core.diagnostics.verdict import HIGH, LOW
 
-DOC = (Path(__file__).resolve().parents[3] / "docs" / "diagnostics.md").read_text(
-    encoding="utf-8")
+DOC = (Path(__file__).resolve().parents[3] / "docs" / "diagnostics.md").read_text(encoding="utf-8")
 
 
 def test_the_request_example_runs_as_documented() -> None:
@@ -28,8 +27,13 @@ def test_the_request_example_runs_as_documented() -> None:
 
 def test_stated_limits_are_the_defaults() -> None:
     limits = DiagnosticLimits()
-    for value in (limits.max_batch, limits.max_alternatives, limits.max_multiply_adds,
-                  limits.max_generated_values, limits.max_memory_bytes):
+    for value in (
+        limits.max_batch,
+        limits.max_alternatives,
+        limits.max_multiply_adds,
+        limits.max_generated_values,
+        limits.max_memory_bytes,
+    ):
         assert f"| {value} " in DOC
     assert "leaves [1e-3, 1e3]" in DOC and (LOW, HIGH) == (1e-3, 1e3)
     assert "eps 1e-5" in DOC and NORM_EPS == 1e-5

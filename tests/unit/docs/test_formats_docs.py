@@ -25,14 +25,16 @@ def _verify_function() -> Any:
 
 
 @pytest.mark.parametrize("fmt", FORMAT_NAMES)
-def test_documented_verification_script(fmt: str, tmp_path: Path,
-                                        capsys: pytest.CaptureFixture[str]) -> None:
+def test_documented_verification_script(
+    fmt: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     verify = _verify_function()
     rng = np.random.default_rng(3)
     tensors = [
         array_tensor("enc.weight", rng.standard_normal((3, 4)).astype(np.float32)),
-        array_tensor("enc.proj", rng.standard_normal(5).astype(ml_dtypes.bfloat16),
-                     dtype="bfloat16"),
+        array_tensor(
+            "enc.proj", rng.standard_normal(5).astype(ml_dtypes.bfloat16), dtype="bfloat16"
+        ),
     ]
     for t in tensors:
         t.entry.update(tensor=t.name, dtype=t.dtype, shape=list(t.shape))

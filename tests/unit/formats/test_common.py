@@ -43,8 +43,14 @@ def test_formats_package_has_no_web_imports() -> None:
 
 
 def _ok_kwargs() -> dict[str, object]:
-    return {"name": "enc.0.weight", "dtype": "float32", "shape": (2, 3), "nbytes": 24,
-            "entry": {"tensor": "enc.0.weight"}, "chunks": lambda: iter([bytes(24)])}
+    return {
+        "name": "enc.0.weight",
+        "dtype": "float32",
+        "shape": (2, 3),
+        "nbytes": 24,
+        "entry": {"tensor": "enc.0.weight"},
+        "chunks": lambda: iter([bytes(24)]),
+    }
 
 
 @pytest.mark.parametrize(
@@ -101,11 +107,13 @@ def test_unknown_format_names_allowed_values() -> None:
 def test_hashing_pass_matches_hashlib() -> None:
     rng = np.random.default_rng(7)
     arrays: dict[str, np.ndarray] = {
-              "x.weight": rng.standard_normal((5, 7)).astype(np.float32),
-              "x.bias": rng.standard_normal(7).astype(np.float64)}
+        "x.weight": rng.standard_normal((5, 7)).astype(np.float32),
+        "x.bias": rng.standard_normal(7).astype(np.float64),
+    }
     tensors = [array_tensor(k, v, pieces=(5, 3)) for k, v in arrays.items()]
-    assert tensor_digests(tensors) == {k: hashlib.sha256(v.tobytes()).hexdigest()
-                                       for k, v in arrays.items()}
+    assert tensor_digests(tensors) == {
+        k: hashlib.sha256(v.tobytes()).hexdigest() for k, v in arrays.items()
+    }
 
 
 def test_canonical_json_is_sorted_compact_ascii() -> None:
@@ -135,7 +143,7 @@ def _producer(variants: list[bytes]) -> tuple[list[int], Callable[[], Iterator[b
         data = variants[min(calls[0], len(variants) - 1)]
         calls[0] += 1
         for i in range(0, len(data), 4):
-            yield data[i:i + 4]
+            yield data[i : i + 4]
 
     return calls, chunks
 

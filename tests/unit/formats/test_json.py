@@ -12,8 +12,12 @@ import numpy as np
 from seedbed.formats import OutgoingTensor, json_body, json_size
 from support.format_helpers import DEMO_DOCUMENT, array_tensor, collect, sha256_hex
 
-_NP_DTYPES = {"float32": np.float32, "float64": np.float64, "float16": np.float16,
-              "bfloat16": ml_dtypes.bfloat16}
+_NP_DTYPES = {
+    "float32": np.float32,
+    "float64": np.float64,
+    "float16": np.float16,
+    "bfloat16": ml_dtypes.bfloat16,
+}
 
 
 def _demo_arrays() -> dict[str, np.ndarray]:
@@ -29,8 +33,7 @@ def _demo_arrays() -> dict[str, np.ndarray]:
 
 def test_json_loads_and_base64_give_back_the_arrays() -> None:
     arrays = _demo_arrays()
-    tensors = [array_tensor(k, v, dtype=v.dtype.name, pieces=(1, 2, 4))
-               for k, v in arrays.items()]
+    tensors = [array_tensor(k, v, dtype=v.dtype.name, pieces=(1, 2, 4)) for k, v in arrays.items()]
     body = collect(json_body(DEMO_DOCUMENT, tensors))
     doc = json.loads(body)
     assert {k: doc[k] for k in DEMO_DOCUMENT} == DEMO_DOCUMENT
@@ -49,8 +52,11 @@ def test_body_is_the_standard_librarys_canonical_serialisation() -> None:
     body = collect(json_body(DEMO_DOCUMENT, tensors))
     expected = dict(DEMO_DOCUMENT)
     expected["tensors"] = [
-        {**t.entry, "data": base64.b64encode(arr.tobytes()).decode(),
-         "sha256": sha256_hex(arr.tobytes())}
+        {
+            **t.entry,
+            "data": base64.b64encode(arr.tobytes()).decode(),
+            "sha256": sha256_hex(arr.tobytes()),
+        }
         for t, arr in zip(tensors, arrays.values(), strict=True)
     ]
     assert body == json.dumps(expected, sort_keys=True, separators=(",", ":")).encode()

@@ -43,8 +43,11 @@ def _consume(make: Callable[[], EncodedBody]) -> tuple[int, int, int]:
 @pytest.mark.slow
 @pytest.mark.parametrize("fmt", ["safetensors", "npz"])
 def test_one_gib_streams_through_binary_formats_in_bounded_memory(fmt: str) -> None:
-    tensors = [_repeated("trunk.weight", 768), _repeated("trunk.bias", 1),
-               _repeated("branch.weight", 255)]  # 1 GiB in three tensors
+    tensors = [
+        _repeated("trunk.weight", 768),
+        _repeated("trunk.bias", 1),
+        _repeated("branch.weight", 255),
+    ]  # 1 GiB in three tensors
 
     total, announced, peak = _consume(lambda: encode_body(fmt, DEMO_DOCUMENT, tensors))
     assert total == announced > 1 << 30

@@ -52,15 +52,25 @@ def oracle(body: bytes, content_type: str) -> list[tuple]:
     out = []
     for part in msg.iter_parts():
         payload = part.get_payload(decode=True)
-        out.append((part.get_param("name", header="content-disposition"), part.get_filename(),
-                    part.get("content-type"), payload))
+        out.append(
+            (
+                part.get_param("name", header="content-disposition"),
+                part.get_filename(),
+                part.get("content-type"),
+                payload,
+            )
+        )
     return out
 
 
 def httpx_body(file_bytes: bytes, request_text: str | None) -> tuple[bytes, str]:
     data = {"request": request_text} if request_text is not None else None
-    req = httpx.Request("POST", "http://test/v1/audit",
-                        files={"file": ("weights.npz", file_bytes, "application/zip")}, data=data)
+    req = httpx.Request(
+        "POST",
+        "http://test/v1/audit",
+        files={"file": ("weights.npz", file_bytes, "application/zip")},
+        data=data,
+    )
     return req.read(), req.headers["content-type"]
 
 
@@ -69,10 +79,14 @@ _tricky = st.binary(max_size=300).map(lambda b: b + b"\r\n--" + b[:5] + b"\r\n-"
 
 
 @settings(max_examples=60, deadline=None)
-@given(payload=_tricky, request_text=st.one_of(st.none(), st.text(max_size=80)),
-       cuts=st.lists(st.integers(min_value=0, max_value=800), max_size=12))
+@given(
+    payload=_tricky,
+    request_text=st.one_of(st.none(), st.text(max_size=80)),
+    cuts=st.lists(st.integers(min_value=0, max_value=800), max_size=12),
+)
 def test_httpx_bodies_parse_like_the_email_package_for_any_split(
-        payload: bytes, request_text: str | None, cuts: list[int]) -> None:
+    payload: bytes, request_text: str | None, cuts: list[int]
+) -> None:
     body, ctype = httpx_body(payload, request_text)
     cuts = [c for c in cuts if c <= len(body)]
     got = parse(body, ctype, cuts)
@@ -88,15 +102,18 @@ def test_httpx_bodies_parse_like_the_email_package_for_any_split(
 def test_hand_made_body_with_preamble_padding_and_epilogue() -> None:
     # RFC 2046 5.1.1: a preamble before the first boundary, optional white space after a
     # boundary, and an epilogue after the closing one are all allowed and ignored.
-    body = (b"this preamble is ignored\r\n"
-            b"--XyZ  \r\n"
-            b'Content-Disposition: form-data; name="file"; filename="a \\"q\\".npz"\r\n'
-            b"Content-Type: application/octet-stream\r\n\r\n"
-            b"\x00\x01--XyZ-not-a-boundary\r\n"
-            b"\r\n--XyZ--\r\nepilogue")
+    body = (
+        b"this preamble is ignored\r\n"
+        b"--XyZ  \r\n"
+        b'Content-Disposition: form-data; name="file"; filename="a \\"q\\".npz"\r\n'
+        b"Content-Type: application/octet-stream\r\n\r\n"
+        b"\x00\x01--XyZ-not-a-boundary\r\n"
+        b"\r\n--XyZ--\r\nepilogue"
+    )
     got = parse(body, 'multipart/form-data; boundary="XyZ"')
-    assert got == [("file", 'a "q".npz', "application/octet-stream",
-                    b"\x00\x01--XyZ-not-a-boundary\r\n")]
+    assert got == [
+        ("file", 'a "q".npz', "application/octet-stream", b"\x00\x01--XyZ-not-a-boundary\r\n")
+    ]
 
 
 def test_missing_closing_boundary_is_refused() -> None:
@@ -117,9 +134,16 @@ def test_oversized_part_headers_are_refused() -> None:
         parse(body, "multipart/form-data; boundary=b")
 
 
-@pytest.mark.parametrize("ctype", ["multipart/form-data", "multipart/form-data; boundary=",
-                                   "multipart/mixed; boundary=a", "application/json",
-                                   "multipart/form-data; boundary=" + "x" * 71])
+@pytest.mark.parametrize(
+    "ctype",
+    [
+        "multipart/form-data",
+        "multipart/form-data; boundary=",
+        "multipart/mixed; boundary=a",
+        "application/json",
+        "multipart/form-data; boundary=" + "x" * 71,
+    ],
+)
 def test_bad_content_types_name_the_problem(ctype: str) -> None:
     with pytest.raises(FormError):
         boundary_of(ctype)

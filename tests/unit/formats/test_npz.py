@@ -20,8 +20,10 @@ from support.format_helpers import DEMO_DOCUMENT, array_tensor, collect, raw_ten
 # Streaming more than 4 GiB (or 65535 members) takes 5-15 s on two cores: run these by hand with
 # SEEDBED_LONG_TESTS=1. The lowered-threshold tests below take the same code paths in CI, and
 # test_layout_at_the_real_threshold checks the real 4 GiB decisions without generating anything.
-LONG = pytest.mark.skipif(os.environ.get("SEEDBED_LONG_TESTS") != "1",
-                          reason="long streaming check; set SEEDBED_LONG_TESTS=1 to run")
+LONG = pytest.mark.skipif(
+    os.environ.get("SEEDBED_LONG_TESTS") != "1",
+    reason="long streaming check; set SEEDBED_LONG_TESTS=1 to run",
+)
 
 
 def _demo_arrays() -> dict[str, np.ndarray]:
@@ -80,8 +82,10 @@ def test_bfloat16_is_stored_as_uint16_bits_and_says_so() -> None:
         manifest = json.loads(npz[MANIFEST_MEMBER])
     assert bits.dtype == np.dtype("<u2")
     assert bits.tolist() == values.view(np.uint16).tolist()
-    assert bits.view(ml_dtypes.bfloat16).astype(np.float32).tolist() == \
-        values.astype(np.float32).tolist()
+    assert (
+        bits.view(ml_dtypes.bfloat16).astype(np.float32).tolist()
+        == values.astype(np.float32).tolist()
+    )
     (entry,) = manifest["tensors"]
     assert entry["stored_as"] == BF16_STORED_AS and entry["sha256"] == sha256_hex(values.tobytes())
 
@@ -90,8 +94,12 @@ def test_npy_header_is_what_numpy_itself_parses() -> None:
     # numpy's own NPY reader is the oracle for the header text.
     from numpy.lib import format as npy_format
 
-    for dtype, shape, descr in (("float32", (2, 3), "<f4"), ("float64", (), "<f8"),
-                                ("float16", (5,), "<f2"), ("bfloat16", (1, 0, 2), "<u2")):
+    for dtype, shape, descr in (
+        ("float32", (2, 3), "<f4"),
+        ("float64", (), "<f8"),
+        ("float16", (5,), "<f2"),
+        ("bfloat16", (1, 0, 2), "<u2"),
+    ):
         head = npy_header(dtype, shape)
         assert len(head) % 64 == 0 and head.endswith(b"\n")
         stream = io.BytesIO(head)
@@ -101,10 +109,12 @@ def test_npy_header_is_what_numpy_itself_parses() -> None:
 
 def test_same_input_gives_identical_bytes() -> None:
     arrays = _demo_arrays()
-    first = collect(npz_body(DEMO_DOCUMENT, [array_tensor(k, v, pieces=(3,))
-                                             for k, v in arrays.items()]))
-    second = collect(npz_body(DEMO_DOCUMENT, [array_tensor(k, v, pieces=(4096,))
-                                              for k, v in arrays.items()]))
+    first = collect(
+        npz_body(DEMO_DOCUMENT, [array_tensor(k, v, pieces=(3,)) for k, v in arrays.items()])
+    )
+    second = collect(
+        npz_body(DEMO_DOCUMENT, [array_tensor(k, v, pieces=(4096,)) for k, v in arrays.items()])
+    )
     assert first == second
 
 
@@ -134,7 +144,7 @@ def test_zip64_records_with_a_lowered_threshold_still_read_back(limit: int) -> N
     assert (on_disk, total) == ((0xFFFF, 0xFFFF) if members >= limit else (members, members))
     assert body[-42:-38] == b"PK\x06\x07"  # locator sits right before the classic end record
     (end64_offset,) = struct.unpack("<Q", body[-34:-26])
-    assert body[end64_offset:end64_offset + 4] == b"PK\x06\x06"
+    assert body[end64_offset : end64_offset + 4] == b"PK\x06\x06"
     with zipfile.ZipFile(io.BytesIO(body)) as zf:
         big = [i for i in zf.infolist() if i.file_size >= limit]
         assert big, "some member must take the ZIP64 path"
@@ -177,9 +187,9 @@ class _HeadAndTail(io.RawIOBase):
         n = min(len(buffer), self.size - self.pos)
         tail_start = self.size - len(self.tail)
         if self.pos + n <= len(self.head):
-            data = self.head[self.pos:self.pos + n]
+            data = self.head[self.pos : self.pos + n]
         elif self.pos >= tail_start:
-            data = self.tail[self.pos - tail_start:self.pos - tail_start + n]
+            data = self.tail[self.pos - tail_start : self.pos - tail_start + n]
         else:
             raise AssertionError(f"read of the unkept middle at {self.pos}")
         buffer[:n] = data
@@ -198,8 +208,14 @@ def test_a_member_past_4_gib_takes_the_real_zip64_path() -> None:
         for _ in range(blocks):
             yield block
 
-    big = OutgoingTensor("wide.weight", "float32", (blocks * len(block) // 4,),
-                         blocks * len(block), {"layer": "wide"}, chunks)
+    big = OutgoingTensor(
+        "wide.weight",
+        "float32",
+        (blocks * len(block) // 4,),
+        blocks * len(block),
+        {"layer": "wide"},
+        chunks,
+    )
     small = raw_tensor("wide.bias", bytes(range(16)), "float32", (4,))
     encoded = npz_body(DEMO_DOCUMENT, [big, small])
     head = bytearray()
@@ -207,7 +223,7 @@ def test_a_member_past_4_gib_takes_the_real_zip64_path() -> None:
     total = 0
     for piece in encoded.body:
         if len(head) < 4096:
-            head += piece[:4096 - len(head)]
+            head += piece[: 4096 - len(head)]
         tail = tail + piece[-65536:] if len(piece) < 65536 else bytearray(piece[-65536:])
         del tail[:-65536]
         total += len(piece)
@@ -224,18 +240,18 @@ def test_a_member_past_4_gib_takes_the_real_zip64_path() -> None:
     # Big member's local header: sizes deferred to the descriptor, ZIP64 extra present
     # (APPNOTE 4.3.7, 4.5.3); its descriptor carries 8-byte sizes (APPNOTE 4.3.9).
     sig, _, flags, _, _, _, _, size32, _, name_len, extra_len = struct.unpack(
-        "<IHHHHHIIIHH", head[:30])
+        "<IHHHHHIIIHH", head[:30]
+    )
     assert (sig, flags & 0x8, size32, extra_len) == (0x04034B50, 0x8, 0xFFFFFFFF, 20)
-    assert struct.unpack("<HH", head[30 + name_len:34 + name_len]) == (0x0001, 16)
-    dsig, _crc, dsize, dcsize = struct.unpack("<IIQQ", tail[descriptor_at:descriptor_at + 24])
+    assert struct.unpack("<HH", head[30 + name_len : 34 + name_len]) == (0x0001, 16)
+    dsig, _crc, dsize, dcsize = struct.unpack("<IIQQ", tail[descriptor_at : descriptor_at + 24])
     assert dsig == 0x08074B50 and dsize == dcsize == info.file_size
 
 
 @LONG
 def test_more_than_65534_members_use_the_zip64_count() -> None:
     # The classic end record counts members in 16 bits; 65535 tensors + the manifest overflow it.
-    tensors = [raw_tensor(f"cell.{i}.shift", b"", "float32", (0,), entry={})
-               for i in range(65535)]
+    tensors = [raw_tensor(f"cell.{i}.shift", b"", "float32", (0,), entry={}) for i in range(65535)]
     body = collect(npz_body({}, tensors))
     sig, _, _, on_disk, total, *_ = _end_record(body)
     assert sig == 0x06054B50 and on_disk == total == 0xFFFF
@@ -259,8 +275,9 @@ def test_layout_at_the_real_threshold(member_size: int) -> None:
     t = OutgoingTensor("big.weight", "float16", (count,), 2 * count, {}, _never)
     size = head + t.nbytes
     assert size == member_size
-    manifest = json.dumps({**DEMO_DOCUMENT, "tensors": [{"sha256": "0" * 64}]},
-                          sort_keys=True, separators=(",", ":")).encode()
+    manifest = json.dumps(
+        {**DEMO_DOCUMENT, "tensors": [{"sha256": "0" * 64}]}, sort_keys=True, separators=(",", ":")
+    ).encode()
     name, mname = len("big.weight.npy"), len(MANIFEST_MEMBER)
     zip64 = size >= ZIP64_LIMIT
     local = 30 + name + (20 if zip64 else 0)

@@ -22,8 +22,11 @@ from support.format_helpers import ITEMSIZE, collect, parse_safetensors, raw_ten
 _ST_CODES = {"float64": "F64", "float32": "F32", "float16": "F16", "bfloat16": "BF16"}
 
 _json_scalars = st.one_of(
-    st.none(), st.booleans(), st.integers(-(2**63), 2**63),
-    st.floats(allow_nan=False, allow_infinity=False), st.text(max_size=12),
+    st.none(),
+    st.booleans(),
+    st.integers(-(2**63), 2**63),
+    st.floats(allow_nan=False, allow_infinity=False),
+    st.text(max_size=12),
 )
 _entries = st.dictionaries(
     st.sampled_from(["layer", "method", "std", "gain", "rationale", "references", "zeta", "a"]),
@@ -31,7 +34,8 @@ _entries = st.dictionaries(
     max_size=5,
 )
 _names = st.text(alphabet="abcXYZ019._-é漢", min_size=1, max_size=10).filter(
-    lambda s: ".." not in s.split("/"))
+    lambda s: ".." not in s.split("/")
+)
 
 
 @st.composite
@@ -44,12 +48,12 @@ def payloads(draw: st.DrawFn) -> tuple[dict[str, Any], list[OutgoingTensor]]:
         n = math.prod(shape) * ITEMSIZE[dtype]
         raw = draw(st.binary(min_size=n, max_size=n))  # any bit pattern, NaNs included
         pieces = draw(st.lists(st.integers(1, 11), min_size=1, max_size=4))
-        tensors.append(raw_tensor(name, raw, dtype, shape, pieces=pieces,
-                                  entry=draw(_entries)))
-    document = {"algorithm": draw(st.text(max_size=8)),
-                "seed": draw(st.one_of(st.integers(0, 2**63 - 1), st.text(min_size=1,
-                                                                           max_size=8))),
-                "warnings": draw(st.lists(st.text(max_size=8), max_size=2))}
+        tensors.append(raw_tensor(name, raw, dtype, shape, pieces=pieces, entry=draw(_entries)))
+    document = {
+        "algorithm": draw(st.text(max_size=8)),
+        "seed": draw(st.one_of(st.integers(0, 2**63 - 1), st.text(min_size=1, max_size=8))),
+        "warnings": draw(st.lists(st.text(max_size=8), max_size=2)),
+    }
     return document, tensors
 
 
@@ -57,8 +61,9 @@ def _raw(t: OutgoingTensor) -> bytes:
     return b"".join(bytes(p) for p in t.chunks())
 
 
-def _check_manifest(manifest: dict[str, Any], document: dict[str, Any],
-                    tensors: list[OutgoingTensor]) -> None:
+def _check_manifest(
+    manifest: dict[str, Any], document: dict[str, Any], tensors: list[OutgoingTensor]
+) -> None:
     assert {k: manifest[k] for k in document} == document
     assert len(manifest["tensors"]) == len(tensors)
     for entry, t in zip(manifest["tensors"], tensors, strict=True):
@@ -103,7 +108,8 @@ def test_every_format_sizes_exactly_and_reads_back(
 @settings(max_examples=25, deadline=None)
 @given(payloads(), st.integers(0, 400))
 def test_zip64_threshold_anywhere_keeps_the_archive_readable(
-    payload: tuple[dict[str, Any], list[OutgoingTensor]], limit: int,
+    payload: tuple[dict[str, Any], list[OutgoingTensor]],
+    limit: int,
 ) -> None:
     document, tensors = payload
     encoded = npz_body(document, tensors, _zip64_limit=limit)

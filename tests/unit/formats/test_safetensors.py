@@ -75,8 +75,11 @@ def test_own_parser_sees_padding_order_and_canonical_manifest() -> None:
     text = header["__metadata__"][MANIFEST_KEY]
     assert text == json.dumps(json.loads(text), sort_keys=True, separators=(",", ":"))
     assert header["encoder.0.bias"]["dtype"] == "F64"
-    assert header["head.weight"] == {"dtype": "F16", "shape": [3, 2, 2],
-                                     "data_offsets": [160, 184]}  # 6*5*4 + 5*8
+    assert header["head.weight"] == {
+        "dtype": "F16",
+        "shape": [3, 2, 2],
+        "data_offsets": [160, 184],
+    }  # 6*5*4 + 5*8
 
 
 def _bf16_case() -> tuple[np.ndarray, OutgoingTensor]:
@@ -140,8 +143,9 @@ def test_header_over_the_reader_limit_is_refused_before_streaming(
 ) -> None:
     # The real limit is 100 MB; lowered here so the refusal path costs nothing to run.
     monkeypatch.setattr(safetensors_out, "HEADER_LIMIT", 4000)
-    tensors = [raw_tensor(f"t{i}", b"", "float32", (0,), entry={"rationale": "x" * 500})
-               for i in range(8)]
+    tensors = [
+        raw_tensor(f"t{i}", b"", "float32", (0,), entry={"rationale": "x" * 500}) for i in range(8)
+    ]
     with pytest.raises(FormatInputError, match=r"safetensors header would be .* readers refuse"):
         safetensors_body(DEMO_DOCUMENT, tensors)
     collect(safetensors_body(DEMO_DOCUMENT, tensors[:3]))  # about 1.7 kB fits

@@ -57,8 +57,12 @@ class PlantedPayload:
 
 def test_pickled_member_is_refused_and_never_unpickled(tmp_path: Path) -> None:
     marker = tmp_path / "code-ran"
-    data = npz_bytes(**{"layer.weight": np.ones((2, 2), np.float32),
-                        "payload": np.array([PlantedPayload(marker)], dtype=object)})
+    data = npz_bytes(
+        **{
+            "layer.weight": np.ones((2, 2), np.float32),
+            "payload": np.array([PlantedPayload(marker)], dtype=object),
+        }
+    )
     err = refused(data)
     assert err.code == "pickled_data"
     assert "'payload.npy'" in err.message and "pickled data is never loaded" in err.message
@@ -141,28 +145,63 @@ def _safetensors(header: dict, data: bytes, length: int | None = None) -> bytes:
 @pytest.mark.parametrize(
     ("header", "data", "code", "words"),
     [
-        ({"w": {"dtype": "F32", "shape": [2], "data_offsets": [0, 8]}}, b"\0" * 4,
-         "truncated_file", "'w' ends at byte 8"),
-        ({"w": {"dtype": "F32", "shape": [3], "data_offsets": [0, 8]}}, b"\0" * 8,
-         "corrupt_file", "needs 12 bytes"),
-        ({"w": {"dtype": "Q9", "shape": [2], "data_offsets": [0, 8]}}, b"\0" * 8,
-         "corrupt_file", "allowed: F64, F32"),
-        ({"w": {"dtype": "F32", "shape": [-1], "data_offsets": [0, 8]}}, b"\0" * 8,
-         "corrupt_file", "non-negative"),
-        ({"w": {"dtype": "F32", "shape": [2], "data_offsets": [0, 8], "x": 1}}, b"\0" * 8,
-         "corrupt_file", "unknown ['x']"),
-        ({"a": {"dtype": "F32", "shape": [2], "data_offsets": [0, 8]},
-          "b": {"dtype": "F32", "shape": [1], "data_offsets": [4, 8]}}, b"\0" * 8,
-         "corrupt_file", "overlaps"),
-        ({"a": {"dtype": "F32", "shape": [1], "data_offsets": [4, 8]}}, b"\0" * 8,
-         "corrupt_file", "leaves a gap"),
-        ({"a": {"dtype": "F32", "shape": [1], "data_offsets": [0, 4]}}, b"\0" * 8,
-         "corrupt_file", "4 bytes after the last tensor"),
+        (
+            {"w": {"dtype": "F32", "shape": [2], "data_offsets": [0, 8]}},
+            b"\0" * 4,
+            "truncated_file",
+            "'w' ends at byte 8",
+        ),
+        (
+            {"w": {"dtype": "F32", "shape": [3], "data_offsets": [0, 8]}},
+            b"\0" * 8,
+            "corrupt_file",
+            "needs 12 bytes",
+        ),
+        (
+            {"w": {"dtype": "Q9", "shape": [2], "data_offsets": [0, 8]}},
+            b"\0" * 8,
+            "corrupt_file",
+            "allowed: F64, F32",
+        ),
+        (
+            {"w": {"dtype": "F32", "shape": [-1], "data_offsets": [0, 8]}},
+            b"\0" * 8,
+            "corrupt_file",
+            "non-negative",
+        ),
+        (
+            {"w": {"dtype": "F32", "shape": [2], "data_offsets": [0, 8], "x": 1}},
+            b"\0" * 8,
+            "corrupt_file",
+            "unknown ['x']",
+        ),
+        (
+            {
+                "a": {"dtype": "F32", "shape": [2], "data_offsets": [0, 8]},
+                "b": {"dtype": "F32", "shape": [1], "data_offsets": [4, 8]},
+            },
+            b"\0" * 8,
+            "corrupt_file",
+            "overlaps",
+        ),
+        (
+            {"a": {"dtype": "F32", "shape": [1], "data_offsets": [4, 8]}},
+            b"\0" * 8,
+            "corrupt_file",
+            "leaves a gap",
+        ),
+        (
+            {"a": {"dtype": "F32", "shape": [1], "data_offsets": [0, 4]}},
+            b"\0" * 8,
+            "corrupt_file",
+            "4 bytes after the last tensor",
+        ),
         ({"__metadata__": {"k": 1}}, b"", "corrupt_file", "__metadata__"),
     ],
 )
 def test_bad_safetensors_headers_are_refused_naming_the_problem(
-        header: dict, data: bytes, code: str, words: str) -> None:
+    header: dict, data: bytes, code: str, words: str
+) -> None:
     err = refused(_safetensors(header, data))
     assert err.code == code
     assert words in err.message
@@ -294,8 +333,11 @@ def test_damaged_files_are_refused_or_reported_never_crash(container: str) -> No
     import random
 
     rng = np.random.default_rng(0)
-    arrays = {"a.weight": rng.standard_normal((6, 5)).astype(np.float32),
-              "b": np.arange(4, dtype=np.int16), "c": np.zeros((2, 3), np.float16)}
+    arrays = {
+        "a.weight": rng.standard_normal((6, 5)).astype(np.float32),
+        "b": np.arange(4, dtype=np.int16),
+        "c": np.zeros((2, 3), np.float16),
+    }
     base = npz_bytes(True, **arrays) if container == "npz" else st().save(arrays)
     pick = random.Random(7)
     outcomes = {"report": 0, "refused": 0}

@@ -224,8 +224,16 @@ def test_gru_gate_order(http: TestClient, linear_before_reset: int) -> None:
     # h~ = tanh(Wh x + (r * h) Rh^T + Rbh + Wbh), H = (1 - z) h~ + z h; blocks are [z, r, h].
     h = 4
     model = _model(
-        [helper.make_node("GRU", ["x", "W", "R", "B"], ["y"], "gust", hidden_size=h,
-                                     linear_before_reset=linear_before_reset)],
+        [
+            helper.make_node(
+                "GRU",
+                ["x", "W", "R", "B"],
+                ["y"],
+                "gust",
+                hidden_size=h,
+                linear_before_reset=linear_before_reset,
+            )
+        ],
         [_io("x", 2, 1, 3)],
         _io("y", 2, 1, 1, h),
         [_zeros("W", 1, 3 * h, 3), _zeros("R", 1, 3 * h, h), _zeros("B", 1, 6 * h)],

@@ -36,6 +36,7 @@ def st() -> ModuleType:
     """The safetensors library's numpy API: the reference writer and reader."""
     return require_oracle("safetensors.numpy")
 
+
 # An invented network: a kiln temperature regulator.
 KILN: dict[str, Any] = {
     "seed": "kiln-7/audit",
@@ -44,10 +45,22 @@ KILN: dict[str, Any] = {
     "layers": [
         {"name": "burner.0", "kind": "dense", "n_in": 96, "n_out": 64, "activation": "relu"},
         {"name": "burner.1", "kind": "dense", "n_in": 64, "n_out": 64, "activation": "relu"},
-        {"name": "flue", "kind": "conv", "channels_in": 4, "channels_out": 8, "kernel": [3, 3],
-         "activation": "relu"},
-        {"name": "setpoint", "kind": "dense", "n_in": 64, "n_out": 6, "activation": "linear",
-         "role": "output"},
+        {
+            "name": "flue",
+            "kind": "conv",
+            "channels_in": 4,
+            "channels_out": 8,
+            "kernel": [3, 3],
+            "activation": "relu",
+        },
+        {
+            "name": "setpoint",
+            "kind": "dense",
+            "n_in": 64,
+            "n_out": 6,
+            "activation": "linear",
+            "role": "output",
+        },
     ],
 }
 
@@ -104,10 +117,15 @@ class PlantedPayload:
 
 @pytest.mark.parametrize("how", ["raw", "form"])
 def test_pickled_npz_is_refused_with_a_clear_error_and_never_unpickled(
-        client: TestClient, tmp_path: Path, how: str) -> None:
+    client: TestClient, tmp_path: Path, how: str
+) -> None:
     marker = tmp_path / "unpickled"
-    data = npz_bytes(**{"burner.0.weight": np.ones((4, 4), np.float32),
-                        "optimizer_state": np.array([PlantedPayload(marker)], dtype=object)})
+    data = npz_bytes(
+        **{
+            "burner.0.weight": np.ones((4, 4), np.float32),
+            "optimizer_state": np.array([PlantedPayload(marker)], dtype=object),
+        }
+    )
     got = send_raw(client, data, "application/zip") if how == "raw" else send_form(client, data)
     assert got.status_code == 422, got.text
     err = got.json()["error"]
@@ -144,14 +162,16 @@ def test_degenerate_tensors_are_found(client: TestClient, container: str) -> Non
     broken = (rng.standard_normal((16, 16)) * 0.2).astype(np.float32)
     broken[2, 5], broken[9, 9], broken[0, 0] = np.nan, np.inf, -np.inf
     low = (rng.standard_normal((48, 3)) @ rng.standard_normal((3, 40))).astype(np.float32)
-    data = WRITERS[container](**{
-        "zeros.weight": np.zeros((12, 8), np.float32),
-        "constant.weight": np.full((12, 8), 0.05, np.float32),
-        "broken.weight": broken,
-        "low.weight": low,
-        "fine.weight": (rng.standard_normal((20, 30)) * 0.1).astype(np.float32),
-        "fine.bias": np.zeros(20, np.float32),
-    })
+    data = WRITERS[container](
+        **{
+            "zeros.weight": np.zeros((12, 8), np.float32),
+            "constant.weight": np.full((12, 8), 0.05, np.float32),
+            "broken.weight": broken,
+            "low.weight": low,
+            "fine.weight": (rng.standard_normal((20, 30)) * 0.1).astype(np.float32),
+            "fine.bias": np.zeros(20, np.float32),
+        }
+    )
     report = send_raw(client, data).json()
     by_tensor: dict[str, set[tuple[str, str]]] = {}
     for f in report["findings"]:
@@ -252,8 +272,10 @@ def test_units_follow_the_requests_layout(client: TestClient) -> None:
 
 
 def test_lstm_twins_are_looked_for_within_each_gate_block(client: TestClient) -> None:
-    request = {"seed": 3, "layers": [{"name": "tide", "kind": "recurrent", "cell": "lstm",
-                                      "n_in": 12, "hidden": 5}]}
+    request = {
+        "seed": 3,
+        "layers": [{"name": "tide", "kind": "recurrent", "cell": "lstm", "n_in": 12, "hidden": 5}],
+    }
     arrays = _read_back(_weights(client, request, "npz"), "npz")
     w = arrays["tide.input_weight"]  # (4 * 5, 12): four gate blocks of five units
     w[5] = w[0]  # same row in two different gates: not twins
@@ -266,8 +288,12 @@ def test_lstm_twins_are_looked_for_within_each_gate_block(client: TestClient) ->
 # --- size limits --------------------------------------------------------------------------
 
 
-def _asgi_post(app: FastAPI, headers: list[tuple[bytes, bytes]],
-               piece: Callable[[int], bytes], last: int | None = None) -> tuple[int, Any, int]:
+def _asgi_post(
+    app: FastAPI,
+    headers: list[tuple[bytes, bytes]],
+    piece: Callable[[int], bytes],
+    last: int | None = None,
+) -> tuple[int, Any, int]:
     """POST /v1/audit through the ASGI interface, the body arriving as piece(1), piece(2), ...
     (endless unless `last` is given); returns status, JSON body and how many pieces the app
     asked for."""
@@ -277,16 +303,29 @@ def _asgi_post(app: FastAPI, headers: list[tuple[bytes, bytes]],
     async def receive() -> dict[str, Any]:
         nonlocal pulled
         pulled += 1
-        return {"type": "http.request", "body": piece(pulled),
-                "more_body": last is None or pulled < last}
+        return {
+            "type": "http.request",
+            "body": piece(pulled),
+            "more_body": last is None or pulled < last,
+        }
 
     async def send(message: dict[str, Any]) -> None:
         messages.append(message)
 
-    scope = {"type": "http", "asgi": {"version": "3.0"}, "http_version": "1.1",
-             "method": "POST", "scheme": "http", "path": "/v1/audit", "raw_path": b"/v1/audit",
-             "query_string": b"", "root_path": "", "headers": headers,
-             "client": ("127.0.0.1", 5000), "server": ("testserver", 80)}
+    scope = {
+        "type": "http",
+        "asgi": {"version": "3.0"},
+        "http_version": "1.1",
+        "method": "POST",
+        "scheme": "http",
+        "path": "/v1/audit",
+        "raw_path": b"/v1/audit",
+        "query_string": b"",
+        "root_path": "",
+        "headers": headers,
+        "client": ("127.0.0.1", 5000),
+        "server": ("testserver", 80),
+    }
     anyio.run(app, scope, receive, send)
     body = b"".join(m.get("body", b"") for m in messages if m["type"] == "http.response.body")
     return messages[0]["status"], json.loads(body), pulled
@@ -295,8 +334,11 @@ def _asgi_post(app: FastAPI, headers: list[tuple[bytes, bytes]],
 def test_a_declared_oversize_upload_is_refused_before_reading_anything() -> None:
     app = audit_app(AuditLimits(max_upload_bytes=64 << 10))
     status, body, pulled = _asgi_post(
-        app, [(b"content-type", b"application/octet-stream"), (b"content-length", b"1000000")],
-        lambda i: b"\0" * 10000, last=100)
+        app,
+        [(b"content-type", b"application/octet-stream"), (b"content-length", b"1000000")],
+        lambda i: b"\0" * 10000,
+        last=100,
+    )
     assert status == 413 and pulled == 0
     assert body["error"]["code"] == "body_too_large"
     assert "1000000 bytes" in body["error"]["message"] and "65536" in body["error"]["message"]
@@ -311,8 +353,9 @@ def test_a_chunked_oversize_upload_is_refused_without_reading_it_all(how: str) -
         first = chunk
     else:
         headers = [(b"content-type", b"multipart/form-data; boundary=kiln")]
-        first = (b'--kiln\r\nContent-Disposition: form-data; name="file"; filename="w"\r\n\r\n'
-                 + chunk)
+        first = (
+            b'--kiln\r\nContent-Disposition: form-data; name="file"; filename="w"\r\n\r\n' + chunk
+        )
     # An endless upload without Content-Length (chunked transfer).
     status, body, pulled = _asgi_post(app, headers, lambda i: first if i == 1 else chunk)
     assert status == 413
@@ -363,14 +406,16 @@ def test_media_types_and_form_parts(client: TestClient) -> None:
     data = npz_bytes(w=np.ones((2, 2), np.float32))
     got = client.post("/v1/audit", content=data, headers={"content-type": "text/plain"})
     assert got.status_code == 415 and got.json()["error"]["field"] == "content-type"
-    got = client.post("/v1/audit", data={"request": json.dumps(KILN)},
-                      files={"weights": ("w.npz", data)})
+    got = client.post(
+        "/v1/audit", data={"request": json.dumps(KILN)}, files={"weights": ("w.npz", data)}
+    )
     assert got.status_code == 422 and got.json()["error"]["code"] == "unknown_part"
     got = client.post("/v1/audit", files={"request": (None, json.dumps(KILN))})
     assert got.status_code == 422 and got.json()["error"]["field"] == "file"
-    bad = b"--b\r\nContent-Disposition: form-data; name=\"file\"\r\n\r\nabc"  # never closed
-    got = client.post("/v1/audit", content=bad,
-                      headers={"content-type": "multipart/form-data; boundary=b"})
+    bad = b'--b\r\nContent-Disposition: form-data; name="file"\r\n\r\nabc'  # never closed
+    got = client.post(
+        "/v1/audit", content=bad, headers={"content-type": "multipart/form-data; boundary=b"}
+    )
     assert got.status_code == 400 and "closing boundary" in got.json()["error"]["message"]
 
 
@@ -380,8 +425,9 @@ def test_an_invalid_request_part_names_its_field(client: TestClient) -> None:
     got = send_form(client, data, broken)
     assert got.status_code == 422
     assert got.json()["error"]["field"] == "request.layers[0].n_in"
-    got = client.post("/v1/audit", files={"file": ("w.npz", data)},
-                      data={"request": '{"seed": NaN}'})
+    got = client.post(
+        "/v1/audit", files={"file": ("w.npz", data)}, data={"request": '{"seed": NaN}'}
+    )
     assert got.status_code == 400 and got.json()["error"]["field"] == "request"
 
 
@@ -389,8 +435,7 @@ def test_the_openapi_document_describes_all_three_upload_forms() -> None:
     doc = audit_app().openapi()
     op = doc["paths"]["/v1/audit"]["post"]
     content = op["requestBody"]["content"]
-    assert set(content) == {"application/octet-stream", "application/zip",
-                            "multipart/form-data"}
+    assert set(content) == {"application/octet-stream", "application/zip", "multipart/form-data"}
     ref = content["multipart/form-data"]["schema"]["properties"]["request"]["$ref"]
     assert ref.rsplit("/", 1)[-1] in doc["components"]["schemas"]
     assert content["multipart/form-data"]["examples"]
@@ -417,10 +462,12 @@ def test_shifted_integer_and_unread_tensors(client: TestClient) -> None:
     text = json.dumps(header).encode()
     raw_f8 = len(text).to_bytes(8, "little") + text + bytes(4) + np.ones(2, "<f4").tobytes()
     report = send_raw(client, raw_f8).json()
-    assert [(f["code"], f["severity"]) for f in report["findings"]
-            if f["tensor"] == "f8"] == [("not_analysed", "warning")]
-    data = npz_bytes(shifted=rng.uniform(0, 1, (32, 32)).astype(np.float32),
-                     steps=np.arange(5, dtype=np.int64))
+    assert [(f["code"], f["severity"]) for f in report["findings"] if f["tensor"] == "f8"] == [
+        ("not_analysed", "warning")
+    ]
+    data = npz_bytes(
+        shifted=rng.uniform(0, 1, (32, 32)).astype(np.float32), steps=np.arange(5, dtype=np.int64)
+    )
     report = send_raw(client, data).json()
     codes = {(f["tensor"], f["code"]): f["severity"] for f in report["findings"]}
     # U(0, 1): mean 0.5 against std 1/sqrt(12) = 0.289 (a uniform distribution's moments).

@@ -24,8 +24,14 @@ TURBINE: dict[str, Any] = {
     "dtype": "float32",
     "layers": [
         {"name": "blade", "kind": "dense", "n_in": 9, "n_out": 14, "activation": "relu"},
-        {"name": "hub", "kind": "conv", "channels_in": 4, "channels_out": 6, "kernel": [3, 2],
-         "activation": "relu"},
+        {
+            "name": "hub",
+            "kind": "conv",
+            "channels_in": 4,
+            "channels_out": 6,
+            "kernel": [3, 2],
+            "activation": "relu",
+        },
         {"name": "gusts", "kind": "recurrent", "cell": "lstm", "n_in": 5, "hidden": 3},
     ],
 }
@@ -76,8 +82,9 @@ def test_in_out_first_axis_is_served_axis(client: TestClient) -> None:
     # in_out serves conv kernels as (*kernel, in/groups, out): rows run along the kernel height.
     (_, full), _ = _fetch(client, {**TURBINE, "layout": "in_out"}, "npz")
     assert full["hub.weight"].shape == (3, 2, 4, 6)
-    (_, block), _ = _fetch(client, {**TURBINE, "layout": "in_out"}, "npz",
-                           "&tensor=hub.weight&rows=1:3")
+    (_, block), _ = _fetch(
+        client, {**TURBINE, "layout": "in_out"}, "npz", "&tensor=hub.weight&rows=1:3"
+    )
     assert block["hub.weight"].tobytes() == full["hub.weight"][1:3].tobytes()
 
 
@@ -94,8 +101,13 @@ def test_tensor_alone_is_the_whole_tensor(client: TestClient) -> None:
 
 def test_block_etags_differ_by_selection(client: TestClient) -> None:
     tags = set()
-    for query in ("", "&tensor=blade.weight", "&tensor=blade.weight&rows=0:2",
-                  "&tensor=blade.weight&rows=1:2", "&tensor=blade.bias"):
+    for query in (
+        "",
+        "&tensor=blade.weight",
+        "&tensor=blade.weight&rows=0:2",
+        "&tensor=blade.weight&rows=1:2",
+        "&tensor=blade.bias",
+    ):
         got = client.post(f"/v1/weights?format=npz{query}", json=TURBINE)
         tags.add(got.headers["etag"])
     assert len(tags) == 5

@@ -8,10 +8,13 @@ from fastapi.testclient import TestClient
 from seedbed.settings import Settings, SettingsError
 from seedbed.web import create_app
 
-NETWORK = {"seed": 3, "layers": [
-    {"name": "in", "kind": "dense", "n_in": 8, "n_out": 8, "activation": "relu"},
-    {"name": "out", "kind": "dense", "n_in": 8, "n_out": 2, "role": "output"},
-]}
+NETWORK = {
+    "seed": 3,
+    "layers": [
+        {"name": "in", "kind": "dense", "n_in": 8, "n_out": 8, "activation": "relu"},
+        {"name": "out", "kind": "dense", "n_in": 8, "n_out": 2, "role": "output"},
+    ],
+}
 
 
 def test_batch_limit_from_the_environment() -> None:

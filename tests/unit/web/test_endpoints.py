@@ -37,13 +37,25 @@ GREENHOUSE: dict[str, Any] = {
     "layers": [
         {"name": "probe_ids", "kind": "embedding", "vocab": 20, "dim": 8},
         {"name": "soil.0", "kind": "dense", "n_in": 8, "n_out": 12, "activation": "relu"},
-        {"name": "leaf", "kind": "conv", "channels_in": 3, "channels_out": 4, "kernel": [3, 3],
-         "activation": "tanh"},
+        {
+            "name": "leaf",
+            "kind": "conv",
+            "channels_in": 3,
+            "channels_out": 4,
+            "kernel": [3, 3],
+            "activation": "tanh",
+        },
         {"name": "season", "kind": "recurrent", "cell": "gru", "n_in": 12, "hidden": 6},
         {"name": "norm", "kind": "norm", "dim": 12},
         {"name": "mix", "kind": "attention", "dim": 8, "heads": 2},
-        {"name": "head", "kind": "dense", "n_in": 12, "n_out": 3, "activation": "linear",
-         "role": "output"},
+        {
+            "name": "head",
+            "kind": "dense",
+            "n_in": 12,
+            "n_out": 3,
+            "activation": "linear",
+            "role": "output",
+        },
     ],
     "widths": "unchecked",  # a few of every kind, not one chain
 }
@@ -100,8 +112,11 @@ def read_safetensors_weights(body: bytes) -> tuple[dict[str, Any], dict[str, np.
     return manifests[0], dict(load(body))
 
 
-READERS = {"json": read_json_weights, "npz": read_npz_weights,
-           "safetensors": read_safetensors_weights}
+READERS = {
+    "json": read_json_weights,
+    "npz": read_npz_weights,
+    "safetensors": read_safetensors_weights,
+}
 
 
 def expected_arrays(request: dict[str, Any]) -> dict[str, np.ndarray]:
@@ -148,9 +163,22 @@ def test_plan_lists_every_tensor_with_rationale(client: TestClient) -> None:
     assert [e["tensor"] for e in doc["tensors"]] == [t.tensor for t in plan.tensors]
     assert doc["totals"]["values"] == plan.total_count
     for entry in doc["tensors"]:
-        for key in ("tensor", "layer", "shape", "dtype", "method", "distribution", "fan_in",
-                    "fan_out", "gain", "std", "bound", "reproducible", "rationale",
-                    "references"):
+        for key in (
+            "tensor",
+            "layer",
+            "shape",
+            "dtype",
+            "method",
+            "distribution",
+            "fan_in",
+            "fan_out",
+            "gain",
+            "std",
+            "bound",
+            "reproducible",
+            "rationale",
+            "references",
+        ):
             assert key in entry, (entry["tensor"], key)
         assert "data" not in entry and "sha256" not in entry
     assert "soil.0.weight" in {e["tensor"] for e in doc["tensors"]}
@@ -262,8 +290,9 @@ def test_weak_etag_only_when_bytes_may_vary_by_platform(client: TestClient) -> N
     assert one.headers["etag"].startswith('W/"')
     other = client.post(f"/v1/weights?format=npz&tensor={exact[0]}", json=GREENHOUSE)
     assert other.headers["etag"].startswith('"')
-    cached = client.post("/v1/weights?format=npz", json=GREENHOUSE,
-                         headers={"if-none-match": whole})
+    cached = client.post(
+        "/v1/weights?format=npz", json=GREENHOUSE, headers={"if-none-match": whole}
+    )
     assert cached.status_code == 304
 
 
@@ -293,8 +322,12 @@ def test_access_log_one_structured_line(
 ) -> None:
     caplog.set_level(logging.INFO, logger="seedbed.access")
     got = client.post("/v1/plan", json=GREENHOUSE, headers={"x-request-id": "log-check-7"})
-    lines = [r for r in caplog.records if r.name == "seedbed.access"
-             and getattr(r, "fields", {}).get("request_id") == "log-check-7"]
+    lines = [
+        r
+        for r in caplog.records
+        if r.name == "seedbed.access"
+        and getattr(r, "fields", {}).get("request_id") == "log-check-7"
+    ]
     assert len(lines) == 1
     fields = lines[0].fields  # type: ignore[attr-defined]
     assert fields["method"] == "POST" and fields["path"] == "/v1/plan"
@@ -324,12 +357,14 @@ def test_metrics_counters_move(client: TestClient) -> None:
         key = (name, tuple(sorted(labels.items())))
         return after.get(key, 0.0) - before.get(key, 0.0)
 
-    assert delta("seedbed_http_requests_total", route="/v1/weights", method="POST",
-                 status="200") == 1
-    assert delta("seedbed_http_requests_total", route="unmatched", method="GET",
-                 status="404") == 1
-    assert delta("seedbed_weight_values_served_total", format="npz") == build_plan(
-        GREENHOUSE).total_count
+    assert (
+        delta("seedbed_http_requests_total", route="/v1/weights", method="POST", status="200") == 1
+    )
+    assert delta("seedbed_http_requests_total", route="unmatched", method="GET", status="404") == 1
+    assert (
+        delta("seedbed_weight_values_served_total", format="npz")
+        == build_plan(GREENHOUSE).total_count
+    )
     assert delta("seedbed_http_request_duration_seconds_count", route="/v1/weights") == 1
     assert delta("seedbed_http_response_body_bytes_total", route="/v1/weights") > 0
 
@@ -339,8 +374,12 @@ def test_two_apps_do_not_share_metrics() -> None:
         a.get("/healthz")
         a.get("/healthz")
         count_b = _samples(b.get("/metrics").text).get(
-            ("seedbed_http_requests_total",
-             (("method", "GET"), ("route", "/healthz"), ("status", "200"))), 0.0)
+            (
+                "seedbed_http_requests_total",
+                (("method", "GET"), ("route", "/healthz"), ("status", "200")),
+            ),
+            0.0,
+        )
         assert count_b == 0
 
 

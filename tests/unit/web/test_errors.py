@@ -62,19 +62,42 @@ CASES = [
     Bad("malformed-json", 400, "invalid_json", "(body)", raw=b'{"seed": 5, "layers": ['),
     Bad("trailing-garbage", 400, "invalid_json", "(body)", raw=b'{"seed": 5} extra'),
     Bad("empty-body", 400, "invalid_json", "(body)", raw=b""),
-    Bad("nan", 400, "non_finite_number", "(body)",
-        raw=b'{"seed": 5, "layers": [{"name": "a", "kind": "dense", "n_in": NaN, "n_out": 2}]}'),
+    Bad(
+        "nan",
+        400,
+        "non_finite_number",
+        "(body)",
+        raw=b'{"seed": 5, "layers": [{"name": "a", "kind": "dense", "n_in": NaN, "n_out": 2}]}',
+    ),
     Bad("infinity", 400, "non_finite_number", "(body)", raw=b'{"seed": Infinity, "layers": []}'),
     Bad("minus-infinity", 400, "non_finite_number", "(body)", raw=b'{"seed": -Infinity}'),
     Bad("duplicate-json-key", 400, "duplicate_key", "(body)", raw=b'{"seed": 5, "seed": 6}'),
     Bad("not-utf8", 400, "invalid_json", "(body)", raw=b'{"seed": "\xff\xfe"}'),
     Bad("deep-nesting", 400, "invalid_json", "(body)", raw=b"[" * 1500 + b"]" * 1500),
-    Bad("huge-integer-literal", 400, "invalid_json", "(body)",
-        raw=b'{"seed": ' + b"9" * 5000 + b"}", headers={**JSON_HEADERS}),
-    Bad("text-plain", 415, "unsupported_media_type", "content-type", body=HIVE,
-        headers={"content-type": "text/plain"}),
-    Bad("form-encoded", 415, "unsupported_media_type", "content-type", raw=b"seed=5",
-        headers={"content-type": "application/x-www-form-urlencoded"}),
+    Bad(
+        "huge-integer-literal",
+        400,
+        "invalid_json",
+        "(body)",
+        raw=b'{"seed": ' + b"9" * 5000 + b"}",
+        headers={**JSON_HEADERS},
+    ),
+    Bad(
+        "text-plain",
+        415,
+        "unsupported_media_type",
+        "content-type",
+        body=HIVE,
+        headers={"content-type": "text/plain"},
+    ),
+    Bad(
+        "form-encoded",
+        415,
+        "unsupported_media_type",
+        "content-type",
+        raw=b"seed=5",
+        headers={"content-type": "application/x-www-form-urlencoded"},
+    ),
     Bad("no-content-type", 415, "unsupported_media_type", "content-type", raw=b"{}", headers={}),
     Bad("body-too-large", 413, "body_too_large", "(body)", raw=BIG),
     # --- the request, as the core sees it ---
@@ -92,32 +115,88 @@ CASES = [
     Bad("zero-size", 422, "invalid_value", "layers[0].n_in", body=layer(n_in=0)),
     Bad("string-size", 422, "invalid_type", "layers[0].n_in", body=layer(n_in="16")),
     Bad("float-size", 422, "invalid_type", "layers[0].n_out", body=layer(n_out=8.5)),
-    Bad("unknown-activation", 422, "invalid_value", "layers[0].activation",
-        body=layer(activation="sparkle")),
-    Bad("duplicate-layer-names", 422, "duplicate_name", "layers[1].name",
-        body={**HIVE, "layers": [HIVE["layers"][0], {**HIVE["layers"][1], "name": "buzz"}]}),
-    Bad("too-many-layers", 413, "too_large", "layers", body={
-        **HIVE, "layers": [{**HIVE["layers"][0], "name": f"l{i}"} for i in range(7)]}),
+    Bad(
+        "unknown-activation",
+        422,
+        "invalid_value",
+        "layers[0].activation",
+        body=layer(activation="sparkle"),
+    ),
+    Bad(
+        "duplicate-layer-names",
+        422,
+        "duplicate_name",
+        "layers[1].name",
+        body={**HIVE, "layers": [HIVE["layers"][0], {**HIVE["layers"][1], "name": "buzz"}]},
+    ),
+    Bad(
+        "too-many-layers",
+        413,
+        "too_large",
+        "layers",
+        body={**HIVE, "layers": [{**HIVE["layers"][0], "name": f"l{i}"} for i in range(7)]},
+    ),
     Bad("tensor-too-large", 413, "too_large", "layers[0]", body=layer(n_in=200, n_out=100)),
-    Bad("request-too-large", 413, "too_large", "layers", body={
-        **HIVE, "layers": [{**HIVE["layers"][0], "name": f"l{i}", "n_in": 100 if i else 90,
-                            "n_out": 100} for i in range(4)]}),
+    Bad(
+        "request-too-large",
+        413,
+        "too_large",
+        "layers",
+        body={
+            **HIVE,
+            "layers": [
+                {**HIVE["layers"][0], "name": f"l{i}", "n_in": 100 if i else 90, "n_out": 100}
+                for i in range(4)
+            ],
+        },
+    ),
     # --- query parameters ---
     Bad("bad-format", 422, "not_allowed", "format", body=HIVE, query="?format=xml"),
     Bad("rows-without-tensor", 422, "needs_tensor", "rows", body=HIVE, query="?rows=0:2"),
     Bad("unknown-tensor", 422, "unknown_tensor", "tensor", body=HIVE, query="?tensor=drone.weight"),
-    Bad("rows-reversed", 422, "out_of_range", "rows", body=HIVE,
-        query="?tensor=buzz.weight&rows=5:2"),
-    Bad("rows-not-numbers", 422, "invalid_value", "rows", body=HIVE,
-        query="?tensor=buzz.weight&rows=a:b"),
-    Bad("rows-past-the-end", 422, "out_of_range", "rows", body=HIVE,
-        query="?tensor=buzz.weight&rows=0:999999"),
-    Bad("rows-no-colon", 422, "invalid_value", "rows", body=HIVE,
-        query="?tensor=buzz.weight&rows=3"),
-    Bad("rows-negative", 422, "invalid_value", "rows", body=HIVE,
-        query="?tensor=buzz.weight&rows=-1:2"),
-    Bad("json-too-large", 413, "json_too_large", "format", query="?format=json", body={
-        **HIVE, "layers": [{**HIVE["layers"][0], "n_in": 90, "n_out": 100}]}),
+    Bad(
+        "rows-reversed",
+        422,
+        "out_of_range",
+        "rows",
+        body=HIVE,
+        query="?tensor=buzz.weight&rows=5:2",
+    ),
+    Bad(
+        "rows-not-numbers",
+        422,
+        "invalid_value",
+        "rows",
+        body=HIVE,
+        query="?tensor=buzz.weight&rows=a:b",
+    ),
+    Bad(
+        "rows-past-the-end",
+        422,
+        "out_of_range",
+        "rows",
+        body=HIVE,
+        query="?tensor=buzz.weight&rows=0:999999",
+    ),
+    Bad(
+        "rows-no-colon", 422, "invalid_value", "rows", body=HIVE, query="?tensor=buzz.weight&rows=3"
+    ),
+    Bad(
+        "rows-negative",
+        422,
+        "invalid_value",
+        "rows",
+        body=HIVE,
+        query="?tensor=buzz.weight&rows=-1:2",
+    ),
+    Bad(
+        "json-too-large",
+        413,
+        "json_too_large",
+        "format",
+        query="?format=json",
+        body={**HIVE, "layers": [{**HIVE["layers"][0], "n_in": 90, "n_out": 100}]},
+    ),
     # --- routing ---
     Bad("unknown-path", 404, "not_found", "(path)", method="GET", path="/v2/weights"),
     Bad("wrong-method", 405, "method_not_allowed", "(method)", method="GET", path="/v1/plan"),
@@ -195,8 +274,7 @@ def test_plan_endpoint_uses_the_same_checks(client: TestClient) -> None:
     for case in CASES:
         if case.path != "/v1/weights" or case.query or case.id == "json-too-large":
             continue
-        got = client.request("POST", "/v1/plan", content=_send_content(case),
-                             headers=case.headers)
+        got = client.request("POST", "/v1/plan", content=_send_content(case), headers=case.headers)
         assert got.status_code == case.status, (case.id, got.text)
 
 

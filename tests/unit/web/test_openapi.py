@@ -38,8 +38,14 @@ def test_operation_ids_and_examples() -> None:
                 examples = [m.get("examples") for m in body["content"].values()]
                 assert any(examples), (path, method)
     assert len(ids) == len(set(ids))
-    assert {"draftPlan", "generateWeights", "describeCatalog", "probeLiveness",
-            "probeReadiness", "scrapeMetrics"} <= set(ids)
+    assert {
+        "draftPlan",
+        "generateWeights",
+        "describeCatalog",
+        "probeLiveness",
+        "probeReadiness",
+        "scrapeMetrics",
+    } <= set(ids)
     assert "/v1/audit" in doc["paths"]
 
 
@@ -54,8 +60,9 @@ def test_examples_are_valid_requests() -> None:
 
 def test_request_schema_is_included() -> None:
     doc = current_document()
-    ref = doc["paths"]["/v1/plan"]["post"]["requestBody"]["content"]["application/json"][
-        "schema"]["$ref"]
+    ref = doc["paths"]["/v1/plan"]["post"]["requestBody"]["content"]["application/json"]["schema"][
+        "$ref"
+    ]
     name = ref.rsplit("/", 1)[1]
     assert name in doc["components"]["schemas"]
     for ref_name in _refs(doc):

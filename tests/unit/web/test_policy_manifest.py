@@ -24,8 +24,17 @@ def test_weights_manifest_carries_policy_and_multipliers(client: TestClient) -> 
     request = {
         "seed": 41,
         "depth_policy": {"name": "deepnorm", "architecture": "encoder"},
-        "layers": [{"name": "enc", "kind": "transformer_block", "dim": 16, "heads": 2,
-                    "mlp_dim": 32, "norm": "post", "repeat": 2}],
+        "layers": [
+            {
+                "name": "enc",
+                "kind": "transformer_block",
+                "dim": 16,
+                "heads": 2,
+                "mlp_dim": 32,
+                "norm": "post",
+                "repeat": 2,
+            }
+        ],
     }
     plan = client.post("/v1/plan", json=request).json()
     weights = client.post("/v1/weights?format=json", json=request).json()
@@ -33,8 +42,7 @@ def test_weights_manifest_carries_policy_and_multipliers(client: TestClient) -> 
     assert weights["multipliers"] == plan["multipliers"]
     alphas = [m for m in weights["multipliers"] if "alpha" in json.dumps(m)]
     assert alphas, weights["multipliers"]
-    assert any(abs(v - 2 ** 0.5) < 1e-12 for m in alphas for v in m.values()
-               if isinstance(v, float))
+    assert any(abs(v - 2**0.5) < 1e-12 for m in alphas for v in m.values() if isinstance(v, float))
 
 
 def test_plain_request_has_no_policy_keys(client: TestClient) -> None:

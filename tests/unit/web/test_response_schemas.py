@@ -35,34 +35,90 @@ JSON = "application/json"
 
 # Invented networks: a kiln-temperature regressor, a transposed-conv upsampler whose stride
 # makes the fan an average (4.5), a recurrent parcel-route model, and two depth policies.
-KILN = {"seed": 31337, "layers": [
-    {"name": "probe.0", "kind": "dense", "n_in": 12, "n_out": 16, "activation": "relu"},
-    {"name": "probe.1", "kind": "dense", "n_in": 16, "n_out": 16, "activation": "tanh"},
-    {"name": "celsius", "kind": "dense", "n_in": 16, "n_out": 1, "role": "output"},
-]}
-UPSAMPLER = {"seed": "mural-upscale", "dtype": "float16", "layout": "in_out", "layers": [
-    {"name": "widen", "kind": "conv", "channels_in": 3, "channels_out": 5, "kernel": [3],
-     "transposed": True, "stride": [2]},
-    {"name": "settle", "kind": "norm", "dim": 5},
-]}
-PARCELS = {"seed": 9, "dtype": "float64", "layers": [
-    {"name": "depots", "kind": "embedding", "vocab": 50, "dim": 8},
-    {"name": "route", "kind": "recurrent", "cell": "lstm", "n_in": 8, "hidden": 6},
-    {"name": "eta", "kind": "dense", "n_in": 6, "n_out": 1, "role": "output",
-     "init": {"method": "orthogonal"}},
-]}
-FIXUP_STACK = {"seed": 4, "depth_policy": {"name": "fixup"}, "layers": [
-    {"name": "stem", "kind": "conv", "channels_in": 1, "channels_out": 4, "kernel": [3, 3],
-     "activation": "relu"},
-    {"name": "res", "kind": "residual_conv_block", "channels": 4, "kernel": [3, 3],
-     "repeat": 2},
-    {"name": "grade", "kind": "dense", "n_in": 4, "n_out": 3, "role": "output"},
-]}
-DEEP_ENCODER = {"seed": 77, "depth_policy": {"name": "deepnorm", "architecture": "encoder"},
-                "layers": [{"name": "enc", "kind": "transformer_block", "dim": 8, "heads": 2,
-                            "mlp_dim": 16, "repeat": 2}]}
-REQUESTS = {"kiln": KILN, "upsampler": UPSAMPLER, "parcels": PARCELS, "fixup": FIXUP_STACK,
-            "deepnorm": DEEP_ENCODER}
+KILN = {
+    "seed": 31337,
+    "layers": [
+        {"name": "probe.0", "kind": "dense", "n_in": 12, "n_out": 16, "activation": "relu"},
+        {"name": "probe.1", "kind": "dense", "n_in": 16, "n_out": 16, "activation": "tanh"},
+        {"name": "celsius", "kind": "dense", "n_in": 16, "n_out": 1, "role": "output"},
+    ],
+}
+UPSAMPLER = {
+    "seed": "mural-upscale",
+    "dtype": "float16",
+    "layout": "in_out",
+    "layers": [
+        {
+            "name": "widen",
+            "kind": "conv",
+            "channels_in": 3,
+            "channels_out": 5,
+            "kernel": [3],
+            "transposed": True,
+            "stride": [2],
+        },
+        {"name": "settle", "kind": "norm", "dim": 5},
+    ],
+}
+PARCELS = {
+    "seed": 9,
+    "dtype": "float64",
+    "layers": [
+        {"name": "depots", "kind": "embedding", "vocab": 50, "dim": 8},
+        {"name": "route", "kind": "recurrent", "cell": "lstm", "n_in": 8, "hidden": 6},
+        {
+            "name": "eta",
+            "kind": "dense",
+            "n_in": 6,
+            "n_out": 1,
+            "role": "output",
+            "init": {"method": "orthogonal"},
+        },
+    ],
+}
+FIXUP_STACK = {
+    "seed": 4,
+    "depth_policy": {"name": "fixup"},
+    "layers": [
+        {
+            "name": "stem",
+            "kind": "conv",
+            "channels_in": 1,
+            "channels_out": 4,
+            "kernel": [3, 3],
+            "activation": "relu",
+        },
+        {
+            "name": "res",
+            "kind": "residual_conv_block",
+            "channels": 4,
+            "kernel": [3, 3],
+            "repeat": 2,
+        },
+        {"name": "grade", "kind": "dense", "n_in": 4, "n_out": 3, "role": "output"},
+    ],
+}
+DEEP_ENCODER = {
+    "seed": 77,
+    "depth_policy": {"name": "deepnorm", "architecture": "encoder"},
+    "layers": [
+        {
+            "name": "enc",
+            "kind": "transformer_block",
+            "dim": 8,
+            "heads": 2,
+            "mlp_dim": 16,
+            "repeat": 2,
+        }
+    ],
+}
+REQUESTS = {
+    "kiln": KILN,
+    "upsampler": UPSAMPLER,
+    "parcels": PARCELS,
+    "fixup": FIXUP_STACK,
+    "deepnorm": DEEP_ENCODER,
+}
 
 
 @pytest.fixture(scope="module")
@@ -138,10 +194,12 @@ class Schema:
             assert self.refuses(smaller), f"a body without {key!r} still passes"
 
 
-def response_schema(document: dict[str, Any], path: str, method: str, status: int,
-                    media: str = JSON) -> Schema:
-    return Schema(document, "paths", path, method, "responses", str(status), "content", media,
-                  "schema")
+def response_schema(
+    document: dict[str, Any], path: str, method: str, status: int, media: str = JSON
+) -> Schema:
+    return Schema(
+        document, "paths", path, method, "responses", str(status), "content", media, "schema"
+    )
 
 
 def _publish_key(registry: Registry, name: str) -> dict[str, str]:
@@ -169,14 +227,34 @@ def test_plan_entry_schema_is_exact_about_its_fields(
     widen = body["tensors"][0]
     # The fan of a strided transposed conv is an average: the schema must take 4.5.
     assert widen["fan_in"] == 4.5
-    fixed = ("tensor", "layer", "shape", "dtype", "method", "distribution", "fan_in", "fan_out",
-             "gain", "std", "bound", "reproducible", "rationale", "references")
+    fixed = (
+        "tensor",
+        "layer",
+        "shape",
+        "dtype",
+        "method",
+        "distribution",
+        "fan_in",
+        "fan_out",
+        "gain",
+        "std",
+        "bound",
+        "reproducible",
+        "rationale",
+        "references",
+    )
     for key in fixed:
         broken = copy.deepcopy(body)
         del broken["tensors"][0][key]
         assert schema.refuses(broken), f"a plan entry without {key!r} still passes"
-    for key, wrong in (("fan_in", "4.5"), ("reproducible", "mostly"), ("dtype", "int8"),
-                       ("shape", [3.5]), ("bound", "none"), ("references", "Glorot")):
+    for key, wrong in (
+        ("fan_in", "4.5"),
+        ("reproducible", "mostly"),
+        ("dtype", "int8"),
+        ("shape", [3.5]),
+        ("bound", "none"),
+        ("references", "Glorot"),
+    ):
         broken = copy.deepcopy(body)
         broken["tensors"][0][key] = wrong
         assert schema.refuses(broken), f"{key}={wrong!r} still passes"
@@ -187,8 +265,9 @@ def test_plan_entry_schema_is_exact_about_its_fields(
 
 
 @pytest.mark.parametrize("name", sorted(REQUESTS))
-def test_json_weights_bodies_conform(client: TestClient, document: dict[str, Any],
-                                     name: str) -> None:
+def test_json_weights_bodies_conform(
+    client: TestClient, document: dict[str, Any], name: str
+) -> None:
     schema = response_schema(document, "/v1/weights", "post", 200)
     got = client.post("/v1/weights", params={"format": "json"}, json=REQUESTS[name])
     assert got.status_code == 200, got.text
@@ -206,9 +285,11 @@ def test_json_weights_bodies_conform(client: TestClient, document: dict[str, Any
 
 def test_json_weights_block_conforms(client: TestClient, document: dict[str, Any]) -> None:
     schema = response_schema(document, "/v1/weights", "post", 200)
-    got = client.post("/v1/weights",
-                      params={"format": "json", "tensor": "probe.1.weight", "rows": "2:9"},
-                      json=KILN)
+    got = client.post(
+        "/v1/weights",
+        params={"format": "json", "tensor": "probe.1.weight", "rows": "2:9"},
+        json=KILN,
+    )
     assert got.status_code == 200, got.text
     body = got.json()
     schema.check(body)
@@ -250,8 +331,9 @@ def test_readiness_conforms_ready_and_not(client: TestClient, document: dict[str
     ready.check_required_matter(got.json())
     not_ready = response_schema(document, "/readyz", "get", 503)
     # A reference value this machine cannot match: the self-check must report not ready.
-    with TestClient(create_app(Settings(), reference_digests={
-            "float32-out_in/head.bias": "0" * 64})) as other:
+    with TestClient(
+        create_app(Settings(), reference_digests={"float32-out_in/head.bias": "0" * 64})
+    ) as other:
         got = other.get("/readyz")
     assert got.status_code == 503, got.text
     not_ready.check(got.json())
@@ -262,15 +344,24 @@ def test_readiness_conforms_ready_and_not(client: TestClient, document: dict[str
 # --- diagnose and audit ----------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("body", [
-    {"request": KILN, "batch": 16},
-    {"request": FIXUP_STACK, "batch": 4,
-     "alternatives": [{"label": "all zero", "init": {"method": "constant", "value": 0.0}},
-                      {"label": "tiny", "init": {"method": "symmetric_uniform",
-                                                 "bound": 1e-4}}]},
-], ids=["kiln", "fixup-with-alternatives"])
-def test_diagnosis_conforms(client: TestClient, document: dict[str, Any],
-                            body: dict[str, Any]) -> None:
+@pytest.mark.parametrize(
+    "body",
+    [
+        {"request": KILN, "batch": 16},
+        {
+            "request": FIXUP_STACK,
+            "batch": 4,
+            "alternatives": [
+                {"label": "all zero", "init": {"method": "constant", "value": 0.0}},
+                {"label": "tiny", "init": {"method": "symmetric_uniform", "bound": 1e-4}},
+            ],
+        },
+    ],
+    ids=["kiln", "fixup-with-alternatives"],
+)
+def test_diagnosis_conforms(
+    client: TestClient, document: dict[str, Any], body: dict[str, Any]
+) -> None:
     schema = response_schema(document, "/v1/diagnose", "post", 200)
     got = client.post("/v1/diagnose", json=body)
     assert got.status_code == 200, got.text
@@ -289,15 +380,19 @@ def test_audit_reports_conform(client: TestClient, document: dict[str, Any]) -> 
     schema = response_schema(document, "/v1/audit", "post", 200)
     for fmt in ("npz", "safetensors"):
         file = client.post("/v1/weights", params={"format": fmt}, json=PARCELS).content
-        raw = client.post("/v1/audit", content=file,
-                          headers={"Content-Type": "application/octet-stream"})
+        raw = client.post(
+            "/v1/audit", content=file, headers={"Content-Type": "application/octet-stream"}
+        )
         assert raw.status_code == 200, raw.text
         schema.check(raw.json())
         schema.check_required_matter(raw.json())
-        form = client.post("/v1/audit", files={
-            "file": (f"w.{fmt}", io.BytesIO(file), "application/octet-stream"),
-            "request": (None, json.dumps(KILN), JSON),  # another network: findings to report
-        })
+        form = client.post(
+            "/v1/audit",
+            files={
+                "file": (f"w.{fmt}", io.BytesIO(file), "application/octet-stream"),
+                "request": (None, json.dumps(KILN), JSON),  # another network: findings to report
+            },
+        )
         assert form.status_code == 200, form.text
         schema.check(form.json())
         assert form.json()["findings"]
@@ -306,17 +401,21 @@ def test_audit_reports_conform(client: TestClient, document: dict[str, Any]) -> 
 # --- recipes, and the documented errors ------------------------------------------------------
 
 
-def test_recipe_bodies_conform(client: TestClient, document: dict[str, Any],
-                               registry: Registry) -> None:
+def test_recipe_bodies_conform(
+    client: TestClient, document: dict[str, Any], registry: Registry
+) -> None:
     auth = _publish_key(registry, "glaze-lab")
-    published = client.post("/v1/recipes", headers=auth,
-                            json={"name": "kiln-probe", "request": KILN,
-                                  "description": "firing-curve baseline"})
+    published = client.post(
+        "/v1/recipes",
+        headers=auth,
+        json={"name": "kiln-probe", "request": KILN, "description": "firing-curve baseline"},
+    )
     assert published.status_code == 201, published.text
     # The same request again reuses version 1 (200); a changed one makes version 2.
     again = client.post("/v1/recipes", headers=auth, json={"name": "kiln-probe", "request": KILN})
-    client.post("/v1/recipes", headers=auth,
-                json={"name": "kiln-probe", "request": {**KILN, "seed": 2}})
+    client.post(
+        "/v1/recipes", headers=auth, json={"name": "kiln-probe", "request": {**KILN, "seed": 2}}
+    )
     client.post("/v1/recipes", headers=auth, json={"name": "deep-enc", "request": DEEP_ENCODER})
     cases = [
         ("/v1/recipes", "post", 201, published),
@@ -326,8 +425,12 @@ def test_recipe_bodies_conform(client: TestClient, document: dict[str, Any],
         ("/v1/recipes/{name}", "get", 200, client.get("/v1/recipes/kiln-probe")),
         ("/v1/recipes/{name}/{version}", "get", 200, client.get("/v1/recipes/kiln-probe/2")),
         ("/v1/recipes/{name}/{version}", "get", 200, client.get("/v1/recipes/deep-enc/1")),
-        ("/v1/recipes/{name}/{version}/weights", "get", 200,
-         client.get("/v1/recipes/deep-enc/1/weights?format=json")),
+        (
+            "/v1/recipes/{name}/{version}/weights",
+            "get",
+            200,
+            client.get("/v1/recipes/deep-enc/1/weights?format=json"),
+        ),
     ]
     for path, method, status, got in cases:
         assert got.status_code == status, (path, got.text)
@@ -346,15 +449,24 @@ def test_recipe_bodies_conform(client: TestClient, document: dict[str, Any],
     assert version_schema.refuses(broken)
 
 
-def test_documented_errors_use_the_common_shape(client: TestClient, document: dict[str, Any],
-                                                registry: Registry) -> None:
+def test_documented_errors_use_the_common_shape(
+    client: TestClient, document: dict[str, Any], registry: Registry
+) -> None:
     cases = [
         ("/v1/recipes/{name}", "get", 404, client.get("/v1/recipes/no-such-kiln")),
         ("/v1/recipes/{name}/{version}", "get", 404, client.get("/v1/recipes/kiln-probe/999")),
-        ("/v1/recipes/{name}/{version}/weights", "get", 404,
-         client.get("/v1/recipes/no-such-kiln/1/weights")),
-        ("/v1/recipes", "post", 401, client.post("/v1/recipes", json={"name": "x",
-                                                                      "request": KILN})),
+        (
+            "/v1/recipes/{name}/{version}/weights",
+            "get",
+            404,
+            client.get("/v1/recipes/no-such-kiln/1/weights"),
+        ),
+        (
+            "/v1/recipes",
+            "post",
+            401,
+            client.post("/v1/recipes", json={"name": "x", "request": KILN}),
+        ),
         ("/v1/plan", "post", 422, client.post("/v1/plan", json={"seed": 1, "layers": []})),
     ]
     for path, method, status, got in cases:
@@ -364,8 +476,10 @@ def test_documented_errors_use_the_common_shape(client: TestClient, document: di
         schema.check_required_matter(got.json())
     # 404 (unknown path) and 405 (known path, other method) are shared responses.
     responses = document["components"]["responses"]
-    for name, got in (("NotFound", client.get("/v1/kilns")),
-                      ("MethodNotAllowed", client.delete("/v1/plan"))):
+    for name, got in (
+        ("NotFound", client.get("/v1/kilns")),
+        ("MethodNotAllowed", client.delete("/v1/plan")),
+    ):
         assert got.status_code == (404 if name == "NotFound" else 405)
         schema = Schema(document, "components", "responses", name, "content", JSON, "schema")
         schema.check(got.json())

@@ -38,12 +38,22 @@ def test_tensor_over_budget_is_generated_each_walk() -> None:
 
 
 def test_held_body_equals_the_body_generated_twice() -> None:
-    plan = build_plan({"seed": "hold", "layers": [
-        {"name": "a", "kind": "dense", "n_in": 300, "n_out": 200, "activation": "relu"},
-        {"name": "b", "kind": "conv", "channels_in": 8, "channels_out": 16, "kernel": [3, 3]},
-    ]})
+    plan = build_plan(
+        {
+            "seed": "hold",
+            "layers": [
+                {"name": "a", "kind": "dense", "n_in": 300, "n_out": 200, "activation": "relu"},
+                {
+                    "name": "b",
+                    "kind": "conv",
+                    "channels_in": 8,
+                    "channels_out": 16,
+                    "kernel": [3, 3],
+                },
+            ],
+        }
+    )
     held = b"".join(encode_weights(plan, None, "safetensors", 4096, 1).body)
     plain_tensors = outgoing_tensors(plan, None, 4096, 1)
-    plain = b"".join(encode_body("safetensors", response_document(plan, None),
-                                 plain_tensors).body)
+    plain = b"".join(encode_body("safetensors", response_document(plan, None), plain_tensors).body)
     assert hashlib.sha256(held).digest() == hashlib.sha256(plain).digest()

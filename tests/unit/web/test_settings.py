@@ -20,20 +20,22 @@ def test_defaults() -> None:
 
 
 def test_environment_overrides() -> None:
-    s = Settings.from_env({
-        "SEEDBED_HOST": "0.0.0.0",
-        "SEEDBED_PORT": "9001",
-        "SEEDBED_WORKERS": "3",
-        "SEEDBED_LOG_LEVEL": "WARNING",
-        "SEEDBED_ACCESS_LOG": "off",
-        "SEEDBED_MAX_BODY_BYTES": "2_000_000",
-        "SEEDBED_CHUNK_BYTES": "65536",
-        "SEEDBED_GENERATION_THREADS": "2",
-        "SEEDBED_MAX_JSON_RESPONSE_BYTES": "1048576",
-        "SEEDBED_MAX_LAYERS": "10",
-        "SEEDBED_MAX_TENSOR_ELEMENTS": "1000",
-        "UNRELATED": "ignored",
-    })
+    s = Settings.from_env(
+        {
+            "SEEDBED_HOST": "0.0.0.0",
+            "SEEDBED_PORT": "9001",
+            "SEEDBED_WORKERS": "3",
+            "SEEDBED_LOG_LEVEL": "WARNING",
+            "SEEDBED_ACCESS_LOG": "off",
+            "SEEDBED_MAX_BODY_BYTES": "2_000_000",
+            "SEEDBED_CHUNK_BYTES": "65536",
+            "SEEDBED_GENERATION_THREADS": "2",
+            "SEEDBED_MAX_JSON_RESPONSE_BYTES": "1048576",
+            "SEEDBED_MAX_LAYERS": "10",
+            "SEEDBED_MAX_TENSOR_ELEMENTS": "1000",
+            "UNRELATED": "ignored",
+        }
+    )
     assert (s.host, s.port, s.workers, s.log_level) == ("0.0.0.0", 9001, 3, "warning")
     assert s.access_log is False and s.max_body_bytes == 2_000_000
     assert s.chunk_bytes == 65536 and s.generation_threads == 2
@@ -64,8 +66,12 @@ def test_bad_values_name_the_variable(var: str, value: str, says: str) -> None:
 
 def test_settings_table_covers_every_limit() -> None:
     names = {row[0] for row in settings_table()}
-    assert {"SEEDBED_PORT", "SEEDBED_MAX_BODY_BYTES", "SEEDBED_MAX_LAYERS",
-            "SEEDBED_MAX_REQUEST_ELEMENTS"} <= names
+    assert {
+        "SEEDBED_PORT",
+        "SEEDBED_MAX_BODY_BYTES",
+        "SEEDBED_MAX_LAYERS",
+        "SEEDBED_MAX_REQUEST_ELEMENTS",
+    } <= names
 
 
 def test_docs_list_every_variable() -> None:
@@ -77,11 +83,17 @@ def test_docs_list_every_variable() -> None:
 
 def test_cli_help_and_parse() -> None:
     parser = cli.build_parser()
-    args = parser.parse_args(["serve", "--host", "0.0.0.0", "--port", "9100", "--workers", "2",
-                              "--log-level", "debug"])
+    args = parser.parse_args(
+        ["serve", "--host", "0.0.0.0", "--port", "9100", "--workers", "2", "--log-level", "debug"]
+    )
     assert (args.host, args.port, args.workers, args.log_level) == ("0.0.0.0", 9100, 2, "debug")
-    for bad in (["serve", "--port", "0"], ["serve", "--port", "x"], ["serve", "--workers", "0"],
-                ["serve", "--log-level", "loud"], []):
+    for bad in (
+        ["serve", "--port", "0"],
+        ["serve", "--port", "x"],
+        ["serve", "--workers", "0"],
+        ["serve", "--log-level", "loud"],
+        [],
+    ):
         with pytest.raises(SystemExit) as caught:
             parser.parse_args(bad)
         assert caught.value.code == 2
@@ -96,8 +108,10 @@ def test_serve_refuses_bad_environment(
 
 
 def test_offline_plan_command(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    request = {"seed": 12, "layers": [
-        {"name": "kiln", "kind": "dense", "n_in": 6, "n_out": 4, "activation": "relu"}]}
+    request = {
+        "seed": 12,
+        "layers": [{"name": "kiln", "kind": "dense", "n_in": 6, "n_out": 4, "activation": "relu"}],
+    }
     path = tmp_path / "kiln.json"
     path.write_text(json.dumps(request), encoding="utf-8")
     assert cli.main(["plan", str(path)]) == 0
@@ -110,8 +124,9 @@ def test_offline_plan_command(tmp_path: Path, capsys: pytest.CaptureFixture[str]
     assert cli.main(["plan", str(path)]) == 2
 
 
-def test_settings_command(monkeypatch: pytest.MonkeyPatch,
-                          capsys: pytest.CaptureFixture[str]) -> None:
+def test_settings_command(
+    monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
     monkeypatch.setenv("SEEDBED_PORT", "8700")
     assert cli.main(["settings"]) == 0
     out = capsys.readouterr().out

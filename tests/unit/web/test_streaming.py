@@ -24,9 +24,15 @@ WIDE: dict[str, Any] = {
     "seed": 99,
     "dtype": "float64",
     "layers": [
-        {"name": "panorama", "kind": "dense", "n_in": SIDE, "n_out": SIDE, "bias": False,
-         # uniform is the cheapest sampler: keeps this test quick.
-         "init": {"method": "symmetric_uniform", "bound": 0.01}},
+        {
+            "name": "panorama",
+            "kind": "dense",
+            "n_in": SIDE,
+            "n_out": SIDE,
+            "bias": False,
+            # uniform is the cheapest sampler: keeps this test quick.
+            "init": {"method": "symmetric_uniform", "bound": 0.01},
+        },
     ],
 }
 CHUNK = 1 << 20
@@ -43,8 +49,10 @@ def _scope(method: str, path: str, query: bytes, body_len: int) -> dict[str, Any
         "raw_path": path.encode(),
         "root_path": "",
         "query_string": query,
-        "headers": [(b"content-type", b"application/json"),
-                    (b"content-length", str(body_len).encode())],
+        "headers": [
+            (b"content-type", b"application/json"),
+            (b"content-length", str(body_len).encode()),
+        ],
         "client": ("127.0.0.1", 5000),
         "server": ("127.0.0.1", 8600),
     }

@@ -35,12 +35,30 @@ from typing import Literal
 
 Severity = Literal["error", "warning", "note"]
 SEVERITY_ORDER: dict[str, int] = {"error": 0, "warning": 1, "note": 2}
-FINDING_CODES = frozenset({
-    "non_finite", "all_zero", "all_constant", "mean_offset", "twin_units", "rank_deficient",
-    "near_degenerate", "rank_skipped", "scale_too_large", "scale_too_small", "scale_off",
-    "not_as_planned", "missing_tensor", "not_in_request", "shape_mismatch", "dtype_mismatch",
-    "not_float", "not_analysed", "empty_tensor", "ignored_member",
-})
+FINDING_CODES = frozenset(
+    {
+        "non_finite",
+        "all_zero",
+        "all_constant",
+        "mean_offset",
+        "twin_units",
+        "rank_deficient",
+        "near_degenerate",
+        "rank_skipped",
+        "scale_too_large",
+        "scale_too_small",
+        "scale_off",
+        "not_as_planned",
+        "missing_tensor",
+        "not_in_request",
+        "shape_mismatch",
+        "dtype_mismatch",
+        "not_float",
+        "not_analysed",
+        "empty_tensor",
+        "ignored_member",
+    }
+)
 
 
 @dataclass(frozen=True)
@@ -52,9 +70,12 @@ class Finding:
 
     def __post_init__(self) -> None:
         if self.code not in FINDING_CODES or self.severity not in SEVERITY_ORDER:
-            raise ValueError(f"unknown finding code or severity: {self.code!r}, "
-                             f"{self.severity!r}")
+            raise ValueError(f"unknown finding code or severity: {self.code!r}, {self.severity!r}")
 
     def as_dict(self) -> dict[str, str | None]:
-        return {"tensor": self.tensor, "severity": self.severity, "code": self.code,
-                "message": self.message}
+        return {
+            "tensor": self.tensor,
+            "severity": self.severity,
+            "code": self.code,
+            "message": self.message,
+        }

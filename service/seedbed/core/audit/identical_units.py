@@ -39,8 +39,9 @@ def _wide_groups(rows: np.ndarray, offset: int) -> list[tuple[int, ...]]:
         by_digest.setdefault(hashlib.sha256(rows[i].tobytes()).digest(), []).append(i)
     out = []
     for members in by_digest.values():
-        if len(members) > 1 and all(rows[members[0]].tobytes() == rows[j].tobytes()
-                                    for j in members[1:]):
+        if len(members) > 1 and all(
+            rows[members[0]].tobytes() == rows[j].tobytes() for j in members[1:]
+        ):
             out.append(tuple(i + offset for i in members))
     return out
 
@@ -60,7 +61,7 @@ def _groups_in(rows: np.ndarray, offset: int) -> list[tuple[int, ...]]:
     starts = np.concatenate(([0], np.cumsum(counts)[:-1]))
     out = []
     for k in repeated:
-        members = order[starts[k]:starts[k] + counts[k]]
+        members = order[starts[k] : starts[k] + counts[k]]
         out.append(tuple(int(i) + offset for i in members))
     return out
 
@@ -77,6 +78,6 @@ def twin_units(units: np.ndarray, blocks: int = 1) -> TwinGroups:
     groups: list[tuple[int, ...]] = []
     if units.shape[1] > 0:
         for b in range(blocks):
-            groups.extend(_groups_in(units[b * per:(b + 1) * per], b * per))
+            groups.extend(_groups_in(units[b * per : (b + 1) * per], b * per))
     groups.sort(key=lambda g: g[0])
     return TwinGroups(tuple(groups), int(units.shape[1]))

@@ -38,11 +38,21 @@ def shape_finding(stored: StoredTensor, t: TensorPlan, layout: str) -> Finding |
         return None
     other = "in_out" if layout == "out_in" else "out_in"
     other_shape = _in_out_shape(t) if layout == "out_in" else t.logical_shape
-    hint = (f"; that is the {other} arrangement of this tensor, so the request's layout "
-            f"({layout}) does not match the file") if stored.shape == other_shape else ""
-    return Finding(stored.name, "error", "shape_mismatch",
-                   f"the file has shape {list(stored.shape)}; the request describes "
-                   f"{list(t.shape)}{hint}. Values were not compared with the plan")
+    hint = (
+        (
+            f"; that is the {other} arrangement of this tensor, so the request's layout "
+            f"({layout}) does not match the file"
+        )
+        if stored.shape == other_shape
+        else ""
+    )
+    return Finding(
+        stored.name,
+        "error",
+        "shape_mismatch",
+        f"the file has shape {list(stored.shape)}; the request describes "
+        f"{list(t.shape)}{hint}. Values were not compared with the plan",
+    )
 
 
 def _in_out_shape(t: TensorPlan) -> tuple[int, ...]:
@@ -73,9 +83,13 @@ def _constant_check(stored: StoredTensor, values: np.ndarray, t: TensorPlan) -> 
         target = np.asarray(v, dtype=np.float64).astype(values.dtype)
         if not np.array_equal(block, np.broadcast_to(target, block.shape)):
             where = f" in gate block {b}" if len(wanted) > 1 else ""
-            return Finding(stored.name, "warning", "not_as_planned",
-                           f"the plan sets every value{where} to {v:g} ({t.method}); the file "
-                           "holds other values there")
+            return Finding(
+                stored.name,
+                "warning",
+                "not_as_planned",
+                f"the plan sets every value{where} to {v:g} ({t.method}); the file "
+                "holds other values there",
+            )
     return None
 
 
@@ -83,23 +97,34 @@ def _ratio_finding(name: str, ratio: float, observed: float, t: TensorPlan) -> F
     if QUIET_BAND[0] <= ratio <= QUIET_BAND[1]:
         return None
     why = f"{t.method}" + (f", fan-in {t.fan_in}" if t.fan_in is not None else "")
-    base = (f"root mean square {observed:.4g} is {ratio:.3g} times the recommended std "
-            f"{t.std:.4g} ({why})")
+    base = (
+        f"root mean square {observed:.4g} is {ratio:.3g} times the recommended std "
+        f"{t.std:.4g} ({why})"
+    )
     if NOTE_BAND[0] <= ratio <= NOTE_BAND[1]:
         return Finding(name, "note", "scale_off", base + "; within a factor of 2")
     if ratio > 1:
-        return Finding(name, "warning", "scale_too_large",
-                       base + f": each such layer multiplies the signal's scale by about "
-                       f"{ratio:.3g}, and over depth the factors compound, so activations "
-                       "and gradients grow (explode)")
-    return Finding(name, "warning", "scale_too_small",
-                   base + f": each such layer multiplies the signal's scale by about "
-                   f"{ratio:.3g}, and over depth the factors compound, so activations and "
-                   "gradients shrink (vanish)")
+        return Finding(
+            name,
+            "warning",
+            "scale_too_large",
+            base + f": each such layer multiplies the signal's scale by about "
+            f"{ratio:.3g}, and over depth the factors compound, so activations "
+            "and gradients grow (explode)",
+        )
+    return Finding(
+        name,
+        "warning",
+        "scale_too_small",
+        base + f": each such layer multiplies the signal's scale by about "
+        f"{ratio:.3g}, and over depth the factors compound, so activations and "
+        "gradients shrink (vanish)",
+    )
 
 
-def compare_with_plan(stored: StoredTensor, values: np.ndarray | None, stats: ValueStats | None,
-                      t: TensorPlan) -> tuple[dict[str, Any], list[Finding]]:
+def compare_with_plan(
+    stored: StoredTensor, values: np.ndarray | None, stats: ValueStats | None, t: TensorPlan
+) -> tuple[dict[str, Any], list[Finding]]:
     """The `planned` entry of a tensor's report and the findings of the comparison."""
     entry: dict[str, Any] = {
         "layer": t.layer,
@@ -114,8 +139,14 @@ def compare_with_plan(stored: StoredTensor, values: np.ndarray | None, stats: Va
     }
     findings: list[Finding] = []
     if stored.dtype != t.dtype:
-        findings.append(Finding(stored.name, "note", "dtype_mismatch",
-                                f"stored as {stored.dtype}; the request says {t.dtype}"))
+        findings.append(
+            Finding(
+                stored.name,
+                "note",
+                "dtype_mismatch",
+                f"stored as {stored.dtype}; the request says {t.dtype}",
+            )
+        )
     if values is None or stats is None or stats.mean is None or stats.std is None:
         return entry, findings
     rms = math.sqrt(stats.mean**2 + stats.std**2)
@@ -140,11 +171,25 @@ def plan_coverage(plan: Plan, names: list[str]) -> list[Finding]:
     """Tensors the request describes that the file lacks, and the reverse."""
     present = set(names)
     planned = {t.tensor for t in plan.tensors}
-    out = [Finding(t.tensor, "warning", "missing_tensor",
-                   f"the request describes {t.tensor} ({list(t.shape)}, {t.method}); the file "
-                   "has no tensor of that name")
-           for t in plan.tensors if t.tensor not in present]
-    out += [Finding(n, "note", "not_in_request",
-                    "the request does not describe this tensor, so it has no recommended scale")
-            for n in names if n not in planned]
+    out = [
+        Finding(
+            t.tensor,
+            "warning",
+            "missing_tensor",
+            f"the request describes {t.tensor} ({list(t.shape)}, {t.method}); the file "
+            "has no tensor of that name",
+        )
+        for t in plan.tensors
+        if t.tensor not in present
+    ]
+    out += [
+        Finding(
+            n,
+            "note",
+            "not_in_request",
+            "the request does not describe this tensor, so it has no recommended scale",
+        )
+        for n in names
+        if n not in planned
+    ]
     return out

@@ -25,21 +25,26 @@ def require_something_read(upload: Upload) -> Upload:
     # Tensors whose dtype is not analysed count as skipped too: nothing of theirs is read.
     skipped = [*upload.skipped, *(t.name for t in upload.tensors)]
     why = {t.name: t.note for t in upload.tensors if t.note}
-    shown = ", ".join(repr(n) + (f" ({why[n]})" if n in why else "")
-                      for n in skipped[:_SHOWN_MEMBERS])
+    shown = ", ".join(
+        repr(n) + (f" ({why[n]})" if n in why else "") for n in skipped[:_SHOWN_MEMBERS]
+    )
     more = f" and {len(skipped) - _SHOWN_MEMBERS} more" if len(skipped) > _SHOWN_MEMBERS else ""
     if not skipped:
         what = f"the {upload.container} file holds no tensors at all"
     else:
-        what = (f"no member of the {upload.container} file is a tensor that is read; skipped: "
-                f"{shown}{more}")
-    pickled = any(n.endswith(".pkl") or n.endswith("/version") or "/data/" in n
-                  for n in skipped)
-    framework = (" The members look like a framework's pickle-based save (a data.pkl with "
-                 "raw storages beside it)." if pickled else "")
+        what = (
+            f"no member of the {upload.container} file is a tensor that is read; skipped: "
+            f"{shown}{more}"
+        )
+    pickled = any(n.endswith(".pkl") or n.endswith("/version") or "/data/" in n for n in skipped)
+    framework = (
+        " The members look like a framework's pickle-based save (a data.pkl with "
+        "raw storages beside it)."
+        if pickled
+        else ""
+    )
     raise UploadRefused(
         "no_tensors_read",
         f"{what}, so the audit has nothing to give a verdict on.{framework} Pickled data is "
         f"never unpickled here; {_CONVERT}.",
     )
-

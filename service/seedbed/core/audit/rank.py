@@ -81,8 +81,9 @@ def work_of(rows: int, cols: int) -> int:
     return rows * cols * min(rows, cols)
 
 
-def numerical_rank(matrix: np.ndarray, roundoff: float, full_work: int, sample_short: int,
-                   sample_long: int) -> RankResult:
+def numerical_rank(
+    matrix: np.ndarray, roundoff: float, full_work: int, sample_short: int, sample_long: int
+) -> RankResult:
     """Rank of a finite 2-D matrix under the tolerance above (sampled when it is too big)."""
     m, n = matrix.shape
     if work_of(m, n) <= full_work:
@@ -99,5 +100,6 @@ def numerical_rank(matrix: np.ndarray, roundoff: float, full_work: int, sample_s
     tol = max(rounding, largest * max(r, c) * FLOAT64_EPS)
     rank = int(np.count_nonzero(s > tol))
     rows, cols = (c, r) if transposed else (r, c)
-    return RankResult(rows, cols, rank, tol, largest, float(s[-1]) if s.size else 0.0, sampled,
-                      work_of(r, c))
+    return RankResult(
+        rows, cols, rank, tol, largest, float(s[-1]) if s.size else 0.0, sampled, work_of(r, c)
+    )

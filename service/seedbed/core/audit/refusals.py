@@ -13,8 +13,15 @@ from __future__ import annotations
 #                      framework's pickle-based zip, an empty safetensors file): an audit that
 #                      read nothing has no verdict
 REFUSAL_CODES = frozenset(
-    {"pickled_data", "too_large", "corrupt_file", "truncated_file", "unsupported_file",
-     "empty_file", "no_tensors_read"}
+    {
+        "pickled_data",
+        "too_large",
+        "corrupt_file",
+        "truncated_file",
+        "unsupported_file",
+        "empty_file",
+        "no_tensors_read",
+    }
 )
 
 

@@ -46,7 +46,7 @@ class ValueStats:
 
 def _pieces(values: np.ndarray) -> list[np.ndarray]:
     flat = values.reshape(-1)
-    return [flat[i:i + PIECE] for i in range(0, flat.size, PIECE)]
+    return [flat[i : i + PIECE] for i in range(0, flat.size, PIECE)]
 
 
 def value_stats(values: np.ndarray) -> ValueStats:
@@ -75,5 +75,4 @@ def value_stats(values: np.ndarray) -> ValueStats:
         x = piece.astype(np.float64)
         x = x[np.isfinite(x)]
         squares += float(np.square(x - mean).sum())
-    return ValueStats(count, nan, posinf, neginf, mean, (squares / finite_count) ** 0.5,
-                      low, high)
+    return ValueStats(count, nan, posinf, neginf, mean, (squares / finite_count) ** 0.5, low, high)

@@ -56,8 +56,9 @@ class DiagnosticLimits:
         for f in fields(self):
             value = getattr(self, f.name)
             if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-                raise ValueError(f"DiagnosticLimits.{f.name} must be a positive integer, "
-                                 f"got {value!r}")
+                raise ValueError(
+                    f"DiagnosticLimits.{f.name} must be a positive integer, got {value!r}"
+                )
 
 
 @dataclass(frozen=True)
@@ -120,8 +121,11 @@ def run_cost(network: Network, plan: Plan, batch: int) -> Cost:
         w, kept = _step_work(step, batch)
         work += w
         kept_total += kept
-        widest = max(widest, batch * step.out_features * math.prod(step.grid_out),
-                     batch * step.in_features * math.prod(step.grid_out))
+        widest = max(
+            widest,
+            batch * step.out_features * math.prod(step.grid_out),
+            batch * step.in_features * math.prod(step.grid_out),
+        )
     memory = weight_bytes + kept_total + 6 * 8 * widest
     return Cost(work, generated, memory)
 
@@ -135,27 +139,39 @@ def cost_problems(costs: list[Cost], batch: int, limits: DiagnosticLimits) -> li
     memory = max(c.memory_bytes for c in costs)
     if work > limits.max_multiply_adds:
         fit = max(1, int(batch * limits.max_multiply_adds / work))
-        problems.append(Problem(
-            "batch", "too_large",
-            f"these diagnostics would take about {work:.3g} multiply-adds ({runs} run(s) at "
-            f"batch {batch}); the limit is {limits.max_multiply_adds} "
-            f"({limits.max_multiply_adds:.3g}); try a batch of at most about {fit}, fewer "
-            "alternatives or a smaller network"
-            f"{raised_by('max_multiply_adds', DIAGNOSE_SETTING_PREFIX)}"))
+        problems.append(
+            Problem(
+                "batch",
+                "too_large",
+                f"these diagnostics would take about {work:.3g} multiply-adds ({runs} run(s) at "
+                f"batch {batch}); the limit is {limits.max_multiply_adds} "
+                f"({limits.max_multiply_adds:.3g}); try a batch of at most about {fit}, fewer "
+                "alternatives or a smaller network"
+                f"{raised_by('max_multiply_adds', DIAGNOSE_SETTING_PREFIX)}",
+            )
+        )
     if generated > limits.max_generated_values:
-        problems.append(Problem(
-            "alternatives", "too_large",
-            f"these diagnostics would generate {generated} random weight values ({runs} run(s) "
-            f"of the whole network); the limit is {limits.max_generated_values}; use fewer "
-            "alternatives or a smaller network"
-            f"{raised_by('max_generated_values', DIAGNOSE_SETTING_PREFIX)}"))
+        problems.append(
+            Problem(
+                "alternatives",
+                "too_large",
+                f"these diagnostics would generate {generated} random weight values ({runs} run(s) "
+                f"of the whole network); the limit is {limits.max_generated_values}; use fewer "
+                "alternatives or a smaller network"
+                f"{raised_by('max_generated_values', DIAGNOSE_SETTING_PREFIX)}",
+            )
+        )
     if memory > limits.max_memory_bytes:
-        problems.append(Problem(
-            "batch", "too_large",
-            f"one run would need about {memory} bytes of memory (weights and the values kept "
-            f"for the backward pass at batch {batch}); the limit is {limits.max_memory_bytes} "
-            "bytes; use a smaller batch or a smaller network"
-            f"{raised_by('max_memory_bytes', DIAGNOSE_SETTING_PREFIX)}"))
+        problems.append(
+            Problem(
+                "batch",
+                "too_large",
+                f"one run would need about {memory} bytes of memory (weights and the values kept "
+                f"for the backward pass at batch {batch}); the limit is {limits.max_memory_bytes} "
+                "bytes; use a smaller batch or a smaller network"
+                f"{raised_by('max_memory_bytes', DIAGNOSE_SETTING_PREFIX)}",
+            )
+        )
     return problems
 
 

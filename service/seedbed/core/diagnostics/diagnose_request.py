@@ -37,8 +37,10 @@ RECOMMENDED = "recommended"
 DEFAULT_BATCH = 64
 LABEL_MAX = 64
 _LABEL = re.compile(r"[A-Za-z0-9][A-Za-z0-9 _.,:+=()/\-]*")
-_LABEL_TEXT = (f"1 to {LABEL_MAX} characters: letters, digits, spaces and _ . , : + = ( ) / -, "
-               "starting with a letter or digit")
+_LABEL_TEXT = (
+    f"1 to {LABEL_MAX} characters: letters, digits, spaces and _ . , : + = ( ) / -, "
+    "starting with a letter or digit"
+)
 
 
 class _Strict(BaseModel):
@@ -51,22 +53,25 @@ class AlternativeSpec(_Strict):
     model_config = ConfigDict(title="diagnostic alternative")
 
     label: Annotated[str, Allowed(_LABEL_TEXT)] = Field(
-        description="Name of the run in the response and the chart.",
-        examples=["tiny uniform"])
+        description="Name of the run in the response and the chart.", examples=["tiny uniform"]
+    )
     init: WeightOverride = Field(
         description="Applied to every dense, conv, attention and embedding layer's weights.",
-        examples=[{"method": "symmetric_uniform", "bound": 0.01}])
+        examples=[{"method": "symmetric_uniform", "bound": 0.01}],
+    )
 
     @field_validator("label", mode="after")
     @classmethod
     def _check_label(cls, value: str) -> str:
         if not 1 <= len(value) <= LABEL_MAX or not _LABEL.fullmatch(value):
-            raise field_error("invalid_value", f"got {describe_input(value)}; allowed: "
-                                               f"{_LABEL_TEXT}")
+            raise field_error(
+                "invalid_value", f"got {describe_input(value)}; allowed: {_LABEL_TEXT}"
+            )
         if value == RECOMMENDED:
-            raise field_error("invalid_value",
-                              f"{RECOMMENDED!r} names the first run (the request as given); "
-                              "choose another label")
+            raise field_error(
+                "invalid_value",
+                f"{RECOMMENDED!r} names the first run (the request as given); choose another label",
+            )
         return value
 
 
@@ -76,21 +81,29 @@ class DiagnoseBody(_Strict):
     model_config = ConfigDict(title="diagnose request")
 
     request: Annotated[Any, Allowed("a network request object, as for /v1/weights")] = Field(
-        description="The network, exactly as for /v1/weights.")
-    alternatives: Annotated[
-        list[AlternativeSpec], Allowed("a list of {label, init} objects")
-    ] = Field(default_factory=list, description="Initialisations to compare, in chart order.")
+        description="The network, exactly as for /v1/weights."
+    )
+    alternatives: Annotated[list[AlternativeSpec], Allowed("a list of {label, init} objects")] = (
+        Field(default_factory=list, description="Initialisations to compare, in chart order.")
+    )
     batch: Annotated[int, Field(ge=1), Allowed("a positive integer")] = Field(
-        default=DEFAULT_BATCH, description="Samples in the synthetic batch.", examples=[64])
+        default=DEFAULT_BATCH, description="Samples in the synthetic batch.", examples=[64]
+    )
 
 
 def parse_body(data: object) -> DiagnoseBody:
     """Validate the outer body (the inner request is parsed by seedbed.core.request.parse)."""
     if not isinstance(data, dict):
-        raise RequestRejected([Problem(
-            BODY, "invalid_type",
-            f"got {describe_input(data)}; allowed: a JSON object with fields request, "
-            "alternatives, batch")])
+        raise RequestRejected(
+            [
+                Problem(
+                    BODY,
+                    "invalid_type",
+                    f"got {describe_input(data)}; allowed: a JSON object with fields request, "
+                    "alternatives, batch",
+                )
+            ]
+        )
     try:
         body = DiagnoseBody.model_validate(data)
     except ValidationError as err:
@@ -99,10 +112,14 @@ def parse_body(data: object) -> DiagnoseBody:
     problems = []
     for i, alt in enumerate(body.alternatives):
         if alt.label in seen:
-            problems.append(Problem(
-                f"alternatives[{i}].label", "duplicate_name",
-                f"label {alt.label!r} is already used by alternatives[{seen[alt.label]}]; "
-                "labels must be unique"))
+            problems.append(
+                Problem(
+                    f"alternatives[{i}].label",
+                    "duplicate_name",
+                    f"label {alt.label!r} is already used by alternatives[{seen[alt.label]}]; "
+                    "labels must be unique",
+                )
+            )
         seen.setdefault(alt.label, i)
     if problems:
         raise RequestRejected(problems)

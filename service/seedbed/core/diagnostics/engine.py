@@ -78,8 +78,9 @@ class WeightStore:
         self._logit: dict[str, float] = {}
         self._skip: dict[str, float] = {}
         for entry in plan.multipliers:
-            target = {"attention_logit_scale": self._logit,
-                      "residual_alpha": self._skip}.get(str(entry.get("name")))
+            target = {"attention_logit_scale": self._logit, "residual_alpha": self._skip}.get(
+                str(entry.get("name"))
+            )
             if target is not None:
                 for name in entry.get("applies_to", ()):
                     target[str(name)] = float(entry["value"])
@@ -110,8 +111,9 @@ class WeightStore:
         if stored is None:
             served = render_rows(self._plan, t, threads=self._threads)
             keep = np.float64 if t.dtype == "float64" else np.float32  # both exact
-            logical = np.transpose(np.asarray(served, dtype=keep),
-                                   tuple(int(a) for a in np.argsort(t.served_axes)))
+            logical = np.transpose(
+                np.asarray(served, dtype=keep), tuple(int(a) for a in np.argsort(t.served_axes))
+            )
             stored = np.ascontiguousarray(logical)
             self._values[name] = stored
         if stored.dtype == np.float64:
@@ -174,15 +176,15 @@ def _multiplier(store: WeightStore, branch: str) -> float:
     return m
 
 
-def synthetic_inputs(network: Network, batch: int,
-                     rng: np.random.Generator) -> np.ndarray:
+def synthetic_inputs(network: Network, batch: int, rng: np.random.Generator) -> np.ndarray:
     if network.vocab is not None:
         return rng.integers(0, network.vocab, size=(batch, *network.input_grid))
     return rng.standard_normal((batch, *network.input_grid, network.input_features))
 
 
-def simulate(network: Network, plan: Plan, batch: int, *, keep_arrays: bool = False,
-             threads: int = 1) -> Simulation:
+def simulate(
+    network: Network, plan: Plan, batch: int, *, keep_arrays: bool = False, threads: int = 1
+) -> Simulation:
     """Run the synthetic batch forward and the loss gradient back (see module doc)."""
     store = WeightStore(plan, threads)
     rng = np.random.default_rng(INPUT_SEED)
@@ -219,8 +221,9 @@ class _Saved:
     groups: list[npt.NDArray[np.int64]]
 
 
-def _forward_step(step: Step, x: Any, skip: FloatArray | None, store: WeightStore
-                  ) -> tuple[FloatArray, _Saved, LayerRecord]:
+def _forward_step(
+    step: Step, x: Any, skip: FloatArray | None, store: WeightStore
+) -> tuple[FloatArray, _Saved, LayerRecord]:
     offset = store.scalar(f"{step.name}.offset")  # Fixup's scalar before the layer (0 at start)
     if offset is not None and step.kind != "embedding":
         x = x + offset
@@ -236,11 +239,18 @@ def _forward_step(step: Step, x: Any, skip: FloatArray | None, store: WeightStor
     del rows
     own = act.post
     record = LayerRecord(
-        layer=step.name, index=step.index, kind=step.kind, activation=step.activation,
-        role=step.role, branch=step.branch, branch_end=step.branch_end,
-        main_path=step.on_main_path, units=step.out_features,
+        layer=step.name,
+        index=step.index,
+        kind=step.kind,
+        activation=step.activation,
+        role=step.role,
+        branch=step.branch,
+        branch_end=step.branch_end,
+        main_path=step.on_main_path,
+        units=step.out_features,
         dead_fraction=float(np.mean(act.dead)) if act.dead.size else 0.0,
-        saturated_fraction=act.saturated, zero_weights=zero,
+        saturated_fraction=act.saturated,
+        zero_weights=zero,
     )
     m = alpha = 1.0
     if step.branch_end and step.branch is not None:
@@ -257,8 +267,13 @@ def _forward_step(step: Step, x: Any, skip: FloatArray | None, store: WeightStor
     return out, _Saved(cache, act.slope, m, alpha, groups), record
 
 
-def _locked(network: Network, pos: int, groups: list[npt.NDArray[np.int64]],
-            grad: FloatArray, store: WeightStore) -> list[bool]:
+def _locked(
+    network: Network,
+    pos: int,
+    groups: list[npt.NDArray[np.int64]],
+    grad: FloatArray,
+    store: WeightStore,
+) -> list[bool]:
     """Locked twin groups of step `pos` given the gradient of its own output
     (see twin_groups.py)."""
     if np.any(grad):
@@ -273,8 +288,14 @@ def _locked(network: Network, pos: int, groups: list[npt.NDArray[np.int64]],
     return [same_rows(blocks, g) for g in groups]
 
 
-def _backward(network: Network, saved: list[_Saved], sim: Simulation, store: WeightStore,
-              projection: FloatArray, keep_arrays: bool) -> None:
+def _backward(
+    network: Network,
+    saved: list[_Saved],
+    sim: Simulation,
+    store: WeightStore,
+    projection: FloatArray,
+    keep_arrays: bool,
+) -> None:
     g: FloatArray = projection
     pending: list[FloatArray] = []
     grads: list[FloatArray] = []
@@ -307,5 +328,4 @@ def _backward(network: Network, saved: list[_Saved], sim: Simulation, store: Wei
         sim.gradients = grads[::-1]
 
 
-__all__ = ["INPUT_SEED", "LayerRecord", "Simulation", "WeightStore", "simulate",
-           "synthetic_inputs"]
+__all__ = ["INPUT_SEED", "LayerRecord", "Simulation", "WeightStore", "simulate", "synthetic_inputs"]

@@ -136,29 +136,46 @@ def build_network(parsed: ParsedRequest) -> Network:
     layers = list(parsed.request.layers)
     problems: list[Problem] = []
     if parsed.request.widths == "unchecked":
-        problems.append(Problem(
-            "widths", "not_allowed",
-            "widths \"unchecked\" says the layers are a collection, not one network; "
-            "diagnostics run a signal through the layers in order, so they need layers that "
-            "chain: omit widths"))
+        problems.append(
+            Problem(
+                "widths",
+                "not_allowed",
+                'widths "unchecked" says the layers are a collection, not one network; '
+                "diagnostics run a signal through the layers in order, so they need layers that "
+                "chain: omit widths",
+            )
+        )
     for i, lay in enumerate(layers):
         if lay.reads is not None:
-            problems.append(Problem(
-                f"layers[{i}].reads", "not_allowed",
-                f"layer {lay.name!r} reads {list(lay.reads) or 'an input of the network'} "
-                "rather than the layer before it; diagnostics simulate one chain of layers. "
-                "Diagnose each path (the trunk with one head) as its own request"))
+            problems.append(
+                Problem(
+                    f"layers[{i}].reads",
+                    "not_allowed",
+                    f"layer {lay.name!r} reads {list(lay.reads) or 'an input of the network'} "
+                    "rather than the layer before it; diagnostics simulate one chain of layers. "
+                    "Diagnose each path (the trunk with one head) as its own request",
+                )
+            )
         if lay.kind == "recurrent":
-            problems.append(Problem(
-                f"layers[{i}].kind", "not_allowed",
-                f"layer {lay.name!r} is recurrent; diagnostics do not simulate recurrent layers "
-                f"(allowed: {', '.join(SIMULATED_KINDS)}, an embedding only as the first "
-                "layer). Diagnose the feed-forward part on its own."))
+            problems.append(
+                Problem(
+                    f"layers[{i}].kind",
+                    "not_allowed",
+                    f"layer {lay.name!r} is recurrent; diagnostics do not simulate "
+                    "recurrent layers "
+                    f"(allowed: {', '.join(SIMULATED_KINDS)}, an embedding only as the first "
+                    "layer). Diagnose the feed-forward part on its own.",
+                )
+            )
         elif lay.kind == "embedding" and i > 0:
-            problems.append(Problem(
-                f"layers[{i}].kind", "not_allowed",
-                f"layer {lay.name!r} is an embedding after layers[0]; diagnostics feed token "
-                "ids only to an embedding that is the first layer"))
+            problems.append(
+                Problem(
+                    f"layers[{i}].kind",
+                    "not_allowed",
+                    f"layer {lay.name!r} is an embedding after layers[0]; diagnostics feed token "
+                    "ids only to an embedding that is the first layer",
+                )
+            )
     if problems:
         raise RequestRejected(problems)
 
@@ -172,45 +189,73 @@ def build_network(parsed: ParsedRequest) -> Network:
     for i, lay in enumerate(layers):
         n_in, n_out = _widths(lay)
         if lay.kind != "embedding" and n_in != features:
-            before = (f"layers[{i - 1}] ({layers[i - 1].name!r}) produces"
-                      if i else "the network input has")
-            problems.append(Problem(
-                f"layers[{i}].{_in_field(lay.kind)}", "invalid_value",
-                f"layer {lay.name!r} expects {n_in} input features but {before} {features}; "
-                f"allowed: {features}"))
+            before = (
+                f"layers[{i - 1}] ({layers[i - 1].name!r}) produces"
+                if i
+                else "the network input has"
+            )
+            problems.append(
+                Problem(
+                    f"layers[{i}].{_in_field(lay.kind)}",
+                    "invalid_value",
+                    f"layer {lay.name!r} expects {n_in} input features but {before} {features}; "
+                    f"allowed: {features}",
+                )
+            )
         if lay.kind == "conv" and len(lay.kernel) != len(grid):
-            problems.append(Problem(
-                f"layers[{i}].kernel", "not_allowed",
-                f"layer {lay.name!r} has a {len(lay.kernel)}-d kernel but the simulated signal "
-                f"has {len(grid)} spatial dims here (grid {list(grid)}); diagnostics run every "
-                "conv of a network on one grid, so all kernels need the same number of dims"))
+            problems.append(
+                Problem(
+                    f"layers[{i}].kernel",
+                    "not_allowed",
+                    f"layer {lay.name!r} has a {len(lay.kernel)}-d kernel but the simulated signal "
+                    f"has {len(grid)} spatial dims here (grid {list(grid)}); diagnostics run every "
+                    "conv of a network on one grid, so all kernels need the same number of dims",
+                )
+            )
             grid_out = grid
         else:
             grid_out = _grid_after(lay, grid)
         start, end = flags[i]
         if start:
             branch_input = (features, grid, i)
-        steps.append(Step(
-            index=i, layer=lay, name=lay.name, kind=lay.kind,
-            activation=lay.activation or "linear", activation_param=lay.activation_param,
-            role=lay.role, branch=getattr(lay, "branch", None), branch_start=start,
-            branch_end=end, in_features=features if lay.kind != "embedding" else n_in,
-            out_features=n_out, grid_in=grid, grid_out=grid_out))
+        steps.append(
+            Step(
+                index=i,
+                layer=lay,
+                name=lay.name,
+                kind=lay.kind,
+                activation=lay.activation or "linear",
+                activation_param=lay.activation_param,
+                role=lay.role,
+                branch=getattr(lay, "branch", None),
+                branch_start=start,
+                branch_end=end,
+                in_features=features if lay.kind != "embedding" else n_in,
+                out_features=n_out,
+                grid_in=grid,
+                grid_out=grid_out,
+            )
+        )
         features, grid = n_out, grid_out
         if end and branch_input is not None:
             b_features, b_grid, b_first = branch_input
             if (b_features, b_grid) != (features, grid):
-                problems.append(Problem(
-                    f"layers[{i}]", "invalid_value",
-                    f"residual branch {steps[-1].branch!r} (layers[{b_first}]..layers[{i}]) "
-                    f"takes {_shape_text(b_features, b_grid)} but its last layer {lay.name!r} "
-                    f"gives {_shape_text(features, grid)}; the two are added, so they must "
-                    "match"))
+                problems.append(
+                    Problem(
+                        f"layers[{i}]",
+                        "invalid_value",
+                        f"residual branch {steps[-1].branch!r} (layers[{b_first}]..layers[{i}]) "
+                        f"takes {_shape_text(b_features, b_grid)} but its last layer {lay.name!r} "
+                        f"gives {_shape_text(features, grid)}; the two are added, so they must "
+                        "match",
+                    )
+                )
             branch_input = None
     if problems:
         raise RequestRejected(problems)
-    return Network(steps=tuple(steps), input_grid=_initial_grid(layers),
-                   input_features=first_in, vocab=vocab)
+    return Network(
+        steps=tuple(steps), input_grid=_initial_grid(layers), input_features=first_in, vocab=vocab
+    )
 
 
 __all__ = ["GRID_SIDE", "SEQUENCE_LENGTH", "Network", "Step", "build_network"]

@@ -64,6 +64,7 @@ def _need(w: WeightLookup, name: str) -> FloatArray:
 
 # --- dense -----------------------------------------------------------------------------------
 
+
 def dense_forward(step: Step, x: FloatArray, w: WeightLookup) -> tuple[FloatArray, Any]:
     weight = _need(w, f"{step.name}.weight")
     y = _rows(x) @ weight.T
@@ -79,6 +80,7 @@ def dense_backward(step: Step, dy: FloatArray, cache: Any, w: WeightLookup) -> F
 
 
 # --- conv ------------------------------------------------------------------------------------
+
 
 def _grouped(x: FloatArray, kernel: FloatArray, groups: int) -> FloatArray:
     """(N, c_in) times one tap (c_out, c_in/groups) -> (N, c_out), group by group."""
@@ -132,8 +134,9 @@ def _correlate(u: FloatArray, weight: FloatArray, groups: int, mirror: bool) -> 
     return out
 
 
-def _correlate_back(dy: FloatArray, weight: FloatArray, groups: int, mirror: bool,
-                    c_in: int) -> FloatArray:
+def _correlate_back(
+    dy: FloatArray, weight: FloatArray, groups: int, mirror: bool, c_in: int
+) -> FloatArray:
     axes = tuple(range(1, dy.ndim - 1))
     du = np.zeros((*dy.shape[:-1], c_in), dtype=np.float64)
     rows = _rows(dy)
@@ -179,6 +182,7 @@ def conv_backward(step: Step, dy: FloatArray, cache: Any, w: WeightLookup) -> Fl
 
 
 # --- attention -------------------------------------------------------------------------------
+
 
 def _softmax(s: FloatArray) -> FloatArray:
     e = np.exp(s - np.max(s, axis=-1, keepdims=True))
@@ -233,6 +237,7 @@ def attention_backward(step: Step, dy: FloatArray, cache: Any, w: WeightLookup) 
 
 # --- norm ------------------------------------------------------------------------------------
 
+
 def norm_forward(step: Step, x: FloatArray, w: WeightLookup) -> tuple[FloatArray, Any]:
     mean = np.mean(x, axis=-1, keepdims=True)
     centred = x - mean
@@ -257,8 +262,10 @@ def norm_backward(step: Step, dy: FloatArray, cache: Any, w: WeightLookup) -> Fl
 
 # --- embedding -------------------------------------------------------------------------------
 
-def embedding_forward(step: Step, ids: npt.NDArray[np.int64],
-                      w: WeightLookup) -> tuple[FloatArray, Any]:
+
+def embedding_forward(
+    step: Step, ids: npt.NDArray[np.int64], w: WeightLookup
+) -> tuple[FloatArray, Any]:
     table = _need(w, f"{step.name}.weight")
     return table[ids], None
 

@@ -74,8 +74,10 @@ class Diagnosis:
 
 
 def _prefixed(problems: Iterable[Problem], prefix: str) -> list[Problem]:
-    return [Problem(prefix if p.field == BODY else f"{prefix}.{p.field}", p.code, p.message)
-            for p in problems]
+    return [
+        Problem(prefix if p.field == BODY else f"{prefix}.{p.field}", p.code, p.message)
+        for p in problems
+    ]
 
 
 def _parse_inner(data: object, limits: Limits) -> ParsedRequest:
@@ -99,15 +101,18 @@ def _network(raw: object, parsed: ParsedRequest) -> Network:
 
 def _layer_of(field: str) -> int | None:
     if field.startswith("layers[") and "]" in field:
-        inside = field[len("layers["):field.index("]")]
+        inside = field[len("layers[") : field.index("]")]
         return int(inside) if inside.isdigit() else None
     return None
 
 
-def _alternative_plan(request: NetworkRequest, alt: AlternativeSpec, i: int,
-                      limits: Limits) -> Plan:
-    layers = [lay.model_copy(update={"init": alt.init}) if lay.kind in OVERRIDDEN_KINDS else lay
-              for lay in request.layers]
+def _alternative_plan(
+    request: NetworkRequest, alt: AlternativeSpec, i: int, limits: Limits
+) -> Plan:
+    layers = [
+        lay.model_copy(update={"init": alt.init}) if lay.kind in OVERRIDDEN_KINDS else lay
+        for lay in request.layers
+    ]
     modified = ParsedRequest.of(request.model_copy(update={"layers": layers}))
     problems = size_problems(modified.request, modified.slots, limits)
     plan: Plan | None = None
@@ -120,9 +125,11 @@ def _alternative_plan(request: NetworkRequest, alt: AlternativeSpec, i: int,
         out = []
         for p in problems:
             k = _layer_of(p.field)
-            where = (f"applied to layer {request.layers[k].name!r}"
-                     if k is not None and k < len(request.layers)
-                     else "applied to every weight layer")
+            where = (
+                f"applied to layer {request.layers[k].name!r}"
+                if k is not None and k < len(request.layers)
+                else "applied to every weight layer"
+            )
             code = p.code if p.code == "too_large" else "invalid_value"
             out.append(Problem(f"alternatives[{i}].init", code, f"{where}: {p.message}"))
         raise RequestRejected(out)
@@ -155,8 +162,7 @@ def _weight_variance_times_fan(step_layer: Any, t: TensorPlan) -> float | None:
     return None
 
 
-def _mean_field_entries(network: Network, plan: Plan,
-                        notes: list[str]) -> list[dict[str, Any]]:
+def _mean_field_entries(network: Network, plan: Plan, notes: list[str]) -> list[dict[str, Any]]:
     """Mean-field figures per (activation, sigma_w^2, sigma_b^2) among hidden dense/conv
     layers with random weights (the theory's i.i.d. zero-mean assumption)."""
     by_name = {t.tensor: t for t in plan.tensors}
@@ -173,17 +179,18 @@ def _mean_field_entries(network: Network, plan: Plan,
         sb2 = _bias_second_moment(by_name.get(f"{step.name}.bias"))
         if sw2 is None or not 0 < sw2 < math.inf or not 0 <= sb2 < math.inf:
             continue
-        key = (step.activation, step.activation_param, float(f"{sw2:.12g}"),
-               float(f"{sb2:.12g}"))
+        key = (step.activation, step.activation_param, float(f"{sw2:.12g}"), float(f"{sb2:.12g}"))
         groups.setdefault(key, []).append(step.name)
     out: list[dict[str, Any]] = []
     for n, ((act, param, sw2, sb2), names) in enumerate(groups.items()):
         if n == MEAN_FIELD_GROUPS:
             left = sum(len(v) for v in list(groups.values())[n:])
-            notes.append(f"mean-field figures are given for the first {MEAN_FIELD_GROUPS} "
-                         f"distinct (activation, sigma_w^2, sigma_b^2) groups only; "
-                         f"{len(groups) - n} more group(s) covering {left} layer(s) are left "
-                         "out")
+            notes.append(
+                f"mean-field figures are given for the first {MEAN_FIELD_GROUPS} "
+                f"distinct (activation, sigma_w^2, sigma_b^2) groups only; "
+                f"{len(groups) - n} more group(s) covering {left} layer(s) are left "
+                "out"
+            )
             break
         entry = mean_field(act, sw2, sb2, param).as_dict()
         entry["layers"] = names[:MEAN_FIELD_LAYERS_LISTED]
@@ -195,25 +202,39 @@ def _mean_field_entries(network: Network, plan: Plan,
 def _limit_problems(batch: int, alternatives: int, dl: DiagnosticLimits) -> list[Problem]:
     problems = []
     if batch > dl.max_batch:
-        problems.append(Problem("batch", "too_large",
-                                f"batch {batch} is over the limit of {dl.max_batch} samples"
-                                f"{raised_by('max_batch', DIAGNOSE_SETTING_PREFIX)}"))
+        problems.append(
+            Problem(
+                "batch",
+                "too_large",
+                f"batch {batch} is over the limit of {dl.max_batch} samples"
+                f"{raised_by('max_batch', DIAGNOSE_SETTING_PREFIX)}",
+            )
+        )
     if alternatives > dl.max_alternatives:
-        problems.append(Problem("alternatives", "too_large",
-                                f"{alternatives} alternatives given; the limit is "
-                                f"{dl.max_alternatives}"
-                                f"{raised_by('max_alternatives', DIAGNOSE_SETTING_PREFIX)}"))
+        problems.append(
+            Problem(
+                "alternatives",
+                "too_large",
+                f"{alternatives} alternatives given; the limit is "
+                f"{dl.max_alternatives}"
+                f"{raised_by('max_alternatives', DIAGNOSE_SETTING_PREFIX)}",
+            )
+        )
     return problems
 
 
 def _sum_inverse_width(network: Network) -> float:
-    return sum(1.0 / s.out_features for s in network.steps
-               if s.on_main_path and s.role != "output")
+    return sum(1.0 / s.out_features for s in network.steps if s.on_main_path and s.role != "output")
 
 
-def diagnose(data: object, limits: Limits | None = None,
-             diagnostic_limits: DiagnosticLimits | None = None, *, threads: int = 1,
-             keep_arrays: bool = False) -> Diagnosis:
+def diagnose(
+    data: object,
+    limits: Limits | None = None,
+    diagnostic_limits: DiagnosticLimits | None = None,
+    *,
+    threads: int = 1,
+    keep_arrays: bool = False,
+) -> Diagnosis:
     """Validate a diagnose body, refuse it if too costly, and run every alternative."""
     limits = limits if limits is not None else Limits()
     dl = diagnostic_limits if diagnostic_limits is not None else DiagnosticLimits()
@@ -248,14 +269,14 @@ def diagnose(data: object, limits: Limits | None = None,
 
 # --- the document ----------------------------------------------------------------------------
 
+
 def _ratio(value: float | None, ref: float | None) -> float | None:
     if value is None or ref is None or ref == 0.0:
         return None
     return value / ref
 
 
-def _layer_entry(r: LayerRecord, act_ref: float | None, grad_ref: float | None
-                 ) -> dict[str, Any]:
+def _layer_entry(r: LayerRecord, act_ref: float | None, grad_ref: float | None) -> dict[str, Any]:
     entry: dict[str, Any] = {
         "layer": r.layer,
         "index": r.index,
@@ -287,8 +308,9 @@ def _grades(runs: list[Run]) -> dict[str, dict[str, Any]]:
     for run in runs:
         forward, backward, depth = directions(run.simulation.records)
         value = score(forward, backward)
-        entries.append((run.label, run.verdict.verdict == "stable", value,
-                        plan_signature(run.plan)))
+        entries.append(
+            (run.label, run.verdict.verdict == "stable", value, plan_signature(run.plan))
+        )
         out[run.label] = {
             "forward": forward.as_dict(depth),
             "backward": backward.as_dict(depth),
@@ -305,11 +327,16 @@ def _grades(runs: list[Run]) -> dict[str, dict[str, Any]]:
 def _summary(run: Run, grade: dict[str, Any]) -> str:
     """One sentence a reader can choose by."""
     if grade["same_as"] is not None:
-        return (f"{run.label!r} draws every tensor exactly as {grade['same_as']!r} does (same "
-                "values): not a separate choice.")
+        return (
+            f"{run.label!r} draws every tensor exactly as {grade['same_as']!r} does (same "
+            "values): not a separate choice."
+        )
     chi = grade["chi_1"]
-    phase = (f"; mean field: {grade['phase']} (chi_1 = {chi:.3g})"
-             if grade["phase"] is not None and chi is not None else "")
+    phase = (
+        f"; mean field: {grade['phase']} (chi_1 = {chi:.3g})"
+        if grade["phase"] is not None and chi is not None
+        else ""
+    )
     parts = []
     for name in ("forward", "backward"):
         d = grade[name]
@@ -346,7 +373,8 @@ def notice(d: Diagnosis) -> str:
         f"with the sum of 1/width over the layers ({short_cite('hanin-2018')}); here that sum "
         f"is {d.sum_inverse_width:.3g}: the larger it is, the further one network's scales can "
         "wander from the infinite-width picture, and the more these figures vary with the "
-        "seed. Mean-field figures are infinite-width estimates.")
+        "seed. Mean-field figures are infinite-width estimates."
+    )
 
 
 def diagnosis_document(d: Diagnosis) -> dict[str, Any]:
@@ -357,11 +385,14 @@ def diagnosis_document(d: Diagnosis) -> dict[str, Any]:
         "simulation": {
             "batch": d.batch,
             "grid": list(d.network.input_grid),
-            "input": ("token ids uniform over the vocabulary" if d.network.vocab is not None
-                      else "standard normal values"),
+            "input": (
+                "token ids uniform over the vocabulary"
+                if d.network.vocab is not None
+                else "standard normal values"
+            ),
             "input_seed": INPUT_SEED,
             "loss": "sum of the final output times a fixed standard normal projection: "
-                    "unit-variance gradients at the output",
+            "unit-variance gradients at the output",
             "conv_padding": "circular (periodic): every position has the full fan-in",
             "attention": "bidirectional over all positions, no mask",
         },
@@ -371,29 +402,31 @@ def diagnosis_document(d: Diagnosis) -> dict[str, Any]:
         },
         "definitions": {
             "activation_std": "std over all values of the layer's output (after its "
-                              "activation; for a branch's last layer, after the residual sum)",
+            "activation; for a branch's last layer, after the residual sum)",
             "gradient_std": "std of the loss gradient with respect to that output",
             "band": [LOW, HIGH],
             "activation_reference": "the first main-path layer's activation std",
             "gradient_reference": "the gradient std at the network's output",
             "dead": "rectifier family: pre-activation <= 0 for every value of the unit; "
-                    "tanh/sigmoid: derivative exactly 0 for every value; linear/softmax: never",
+            "tanh/sigmoid: derivative exactly 0 for every value; linear/softmax: never",
             "saturated": dict(SATURATION_RULES),
             "symmetric_share": SYMMETRIC_SHARE,
             "grade": f"forward: last main-path activation std over the first's; backward: "
-                     f"first main-path gradient std over the output's; steady within "
-                     f"{STEADY_FACTOR:g}x end to end (ln({STEADY_FACTOR:g})/L per layer over "
-                     f"L layers), drifting within {DRIFTING_FACTOR:g}x, poor beyond",
+            f"first main-path gradient std over the output's; steady within "
+            f"{STEADY_FACTOR:g}x end to end (ln({STEADY_FACTOR:g})/L per layer over "
+            f"L layers), drifting within {DRIFTING_FACTOR:g}x, poor beyond",
             "rank": "runs whose verdict is stable first, then by |ln forward ratio| + "
-                    "|ln backward ratio|; an alternative identical to an earlier run shares "
-                    "its rank and names it in same_as",
+            "|ln backward ratio|; an alternative identical to an earlier run shares "
+            "its rank and names it in same_as",
             "phase": "mean-field phase (ordered, critical, chaotic) and chi_1 of the largest "
-                     "group of hidden dense/conv layers (Poole et al. 2016; Schoenholz et al. "
-                     "2017)",
+            "group of hidden dense/conv layers (Poole et al. 2016; Schoenholz et al. "
+            "2017)",
         },
         "runs": [_run_document(r, grades[r.label]) for r in d.runs],
-        "ranking": sorted((r.label for r in d.runs if grades[r.label]["same_as"] is None),
-                          key=lambda label: grades[label]["rank"]),
+        "ranking": sorted(
+            (r.label for r in d.runs if grades[r.label]["same_as"] is None),
+            key=lambda label: grades[label]["rank"],
+        ),
     }
 
 

@@ -48,8 +48,9 @@ def _with_bias(parts: list[FloatArray], bias: FloatArray | None) -> list[FloatAr
     return parts if bias is None else [*parts, bias.reshape(-1, 1)]
 
 
-def incoming_rows(step: Step,
-                  lookup: Callable[[str], FloatArray | None]) -> list[FloatArray] | None:
+def incoming_rows(
+    step: Step, lookup: Callable[[str], FloatArray | None]
+) -> list[FloatArray] | None:
     """Blocks of columns, one row per unit of `step`, that together determine its output: the
     weight matrix first, then (conv) the group index and (with a bias) the bias."""
     name = step.name
@@ -61,8 +62,9 @@ def incoming_rows(step: Step,
         weight = lookup(f"{name}.weight")
         assert weight is not None
         c_out = weight.shape[0]
-        group = np.repeat(np.arange(step.layer.groups, dtype=np.float64),
-                          c_out // step.layer.groups).reshape(-1, 1)
+        group = np.repeat(
+            np.arange(step.layer.groups, dtype=np.float64), c_out // step.layer.groups
+        ).reshape(-1, 1)
         return _with_bias([weight.reshape(c_out, -1), group], lookup(f"{name}.bias"))
     if step.kind == "attention":
         weight = lookup(f"{name}.output.weight")
@@ -75,8 +77,9 @@ def incoming_rows(step: Step,
     return None
 
 
-def outgoing_rows(step: Step,
-                  lookup: Callable[[str], FloatArray | None]) -> list[FloatArray] | None:
+def outgoing_rows(
+    step: Step, lookup: Callable[[str], FloatArray | None]
+) -> list[FloatArray] | None:
     """One row per *input* feature of `step`: the weights that feature is multiplied by (None
     for kinds where a feature's influence is not a column of weights)."""
     name = step.name
@@ -185,8 +188,11 @@ class TwinSummary:
 
 def summarise(units: int, groups: list[IntArray], locked: list[bool] | None) -> TwinSummary:
     in_groups = sum(int(g.size) for g in groups)
-    locked_units = (None if locked is None else
-                    sum(int(g.size) for g, flag in zip(groups, locked, strict=True) if flag))
+    locked_units = (
+        None
+        if locked is None
+        else sum(int(g.size) for g, flag in zip(groups, locked, strict=True) if flag)
+    )
     listed = groups[:GROUPS_LISTED]
     return TwinSummary(
         units=units,
@@ -194,8 +200,7 @@ def summarise(units: int, groups: list[IntArray], locked: list[bool] | None) -> 
         group_sizes=[int(g.size) for g in listed],
         group_count=len(groups),
         twin_fraction=in_groups / units if units else 0.0,
-        locked_fraction=None if locked_units is None else (locked_units / units if units
-                                                           else 0.0),
+        locked_fraction=None if locked_units is None else (locked_units / units if units else 0.0),
     )
 
 

@@ -34,8 +34,9 @@ from seedbed.core.activations import activation_derivative, apply_activation
 
 FloatArray = npt.NDArray[np.float64]
 
-RECTIFIER_FAMILY = frozenset({"relu", "leaky_relu", "elu", "selu", "gelu", "silu", "softplus",
-                              "hard_swish"})
+RECTIFIER_FAMILY = frozenset(
+    {"relu", "leaky_relu", "elu", "selu", "gelu", "silu", "softplus", "hard_swish"}
+)
 FLAT_WHEN_SATURATED = frozenset({"tanh", "sigmoid", "hard_sigmoid"})
 SATURATION_RULES: dict[str, str] = {
     "tanh": "|tanh(x)| > 0.99",
@@ -87,12 +88,16 @@ def activate(activation: str, param: float | None, pre: FloatArray) -> Activated
     if activation == "softmax":
         return Activated(post, post, dead_units(activation, pre, None), None)
     slope = activation_derivative(activation, pre, param)
-    return Activated(post, slope, dead_units(activation, pre, slope),
-                     saturated_fraction(activation, post))
+    return Activated(
+        post, slope, dead_units(activation, pre, slope), saturated_fraction(activation, post)
+    )
 
 
-def activation_backward(activation: str, slope: npt.NDArray[np.float64] | npt.NDArray[np.bool_]
-                        | None, grad_post: FloatArray) -> FloatArray:
+def activation_backward(
+    activation: str,
+    slope: npt.NDArray[np.float64] | npt.NDArray[np.bool_] | None,
+    grad_post: FloatArray,
+) -> FloatArray:
     """Gradient with respect to the pre-activation from the gradient of the output."""
     if slope is None:
         return grad_post

@@ -67,11 +67,16 @@ def _symmetric(records: list[LayerRecord]) -> Verdict | None:
         if r.units >= 2 and r.twins.locked_fraction >= SYMMETRIC_SHARE:
             share = r.twins.locked_fraction
             return Verdict(
-                "symmetric", r.layer, r.index, "twin_units", None,
+                "symmetric",
+                r.layer,
+                r.index,
+                "twin_units",
+                None,
                 f"{share:.0%} of the {r.units} units of {r.layer!r} are locked twins: "
                 f"{r.twins.group_count} group(s) of units with identical incoming weights that "
                 "also receive identical gradients, so every update keeps them identical. "
-                "Use a random init (any method but constant or identity) for this layer.")
+                "Use a random init (any method but constant or identity) for this layer.",
+            )
     return None
 
 
@@ -95,30 +100,52 @@ def _activations(main: list[LayerRecord], notes: list[str]) -> Verdict | None:
     first = main[0]
     ref = first.activation_std
     if ref is None:
-        return Verdict("exploding", first.layer, first.index, "activation_std", None,
-                       f"the output of {first.layer!r}, the first layer, is not finite")
+        return Verdict(
+            "exploding",
+            first.layer,
+            first.index,
+            "activation_std",
+            None,
+            f"the output of {first.layer!r}, the first layer, is not finite",
+        )
     if ref == 0.0:
         if first.zero_weights:
-            notes.append(f"{first.layer!r} has all-zero weights: its output is constant at the "
-                         "start, so activation scales after it are not judged")
+            notes.append(
+                f"{first.layer!r} has all-zero weights: its output is constant at the "
+                "start, so activation scales after it are not judged"
+            )
             return None
-        return Verdict("vanishing", first.layer, first.index, "activation_std", 0.0,
-                       f"the output of {first.layer!r}, the first layer, is constant over the "
-                       "batch (std 0)")
+        return Verdict(
+            "vanishing",
+            first.layer,
+            first.index,
+            "activation_std",
+            0.0,
+            f"the output of {first.layer!r}, the first layer, is constant over the batch (std 0)",
+        )
     for r in main[1:]:
         if r.zero_weights and not r.branch_end:
-            notes.append(f"{r.layer!r} has all-zero weights: its output is constant at the "
-                         "start, so activation scales from it on are not judged")
+            notes.append(
+                f"{r.layer!r} has all-zero weights: its output is constant at the "
+                "start, so activation scales from it on are not judged"
+            )
             return None
         ratio = _ratio(r.activation_std, ref)
         kind = _band(ratio)
         if kind is not None:
-            what = ("is not finite" if ratio is None else
-                    f"is {ratio:.3g} times the first layer's ({r.activation_std:.3g} vs "
-                    f"{ref:.3g})")
-            return Verdict(kind, r.layer, r.index, "activation_std", ratio,
-                           f"the activation std of {r.layer!r} {what}; allowed band "
-                           f"[{LOW:g}, {HIGH:g}]")
+            what = (
+                "is not finite"
+                if ratio is None
+                else f"is {ratio:.3g} times the first layer's ({r.activation_std:.3g} vs {ref:.3g})"
+            )
+            return Verdict(
+                kind,
+                r.layer,
+                r.index,
+                "activation_std",
+                ratio,
+                f"the activation std of {r.layer!r} {what}; allowed band [{LOW:g}, {HIGH:g}]",
+            )
     return None
 
 
@@ -126,27 +153,41 @@ def _gradients(main: list[LayerRecord], notes: list[str]) -> Verdict | None:
     last = main[-1]
     ref = last.gradient_std
     if ref is None or ref == 0.0:
-        return Verdict("exploding" if ref is None else "vanishing", last.layer, last.index,
-                       "gradient_std", None,
-                       f"the loss gradient at {last.layer!r} is "
-                       f"{'not finite' if ref is None else 'zero'}")
+        return Verdict(
+            "exploding" if ref is None else "vanishing",
+            last.layer,
+            last.index,
+            "gradient_std",
+            None,
+            f"the loss gradient at {last.layer!r} is {'not finite' if ref is None else 'zero'}",
+        )
     for pos in range(len(main) - 2, -1, -1):
         above = main[pos + 1]
         if above.zero_weights and not above.branch_end:
-            notes.append(f"{above.layer!r} has all-zero weights: no gradient passes below it "
-                         "before the first update (by design for zero-initialised layers), so "
-                         "gradients below it are not judged")
+            notes.append(
+                f"{above.layer!r} has all-zero weights: no gradient passes below it "
+                "before the first update (by design for zero-initialised layers), so "
+                "gradients below it are not judged"
+            )
             return None
         r = main[pos]
         ratio = _ratio(r.gradient_std, ref)
         kind = _band(ratio)
         if kind is not None:
-            what = ("is not finite" if ratio is None else
-                    f"is {ratio:.3g} times the one at the output ({r.gradient_std:.3g} vs "
-                    f"{ref:.3g})")
-            return Verdict(kind, r.layer, r.index, "gradient_std", ratio,
-                           f"the gradient std at {r.layer!r} {what}; allowed band "
-                           f"[{LOW:g}, {HIGH:g}]")
+            what = (
+                "is not finite"
+                if ratio is None
+                else f"is {ratio:.3g} times the one at the output ({r.gradient_std:.3g} vs "
+                f"{ref:.3g})"
+            )
+            return Verdict(
+                kind,
+                r.layer,
+                r.index,
+                "gradient_std",
+                ratio,
+                f"the gradient std at {r.layer!r} {what}; allowed band [{LOW:g}, {HIGH:g}]",
+            )
     return None
 
 
@@ -161,11 +202,23 @@ def judge(records: list[LayerRecord]) -> Verdict:
         for check in (_activations, _gradients):
             found = check(main, notes)
             if found is not None:
-                return Verdict(found.verdict, found.failed_at, found.failed_index,
-                               found.quantity, found.ratio, found.reason, tuple(notes))
-    return Verdict("stable", reason=(
-        f"activation and gradient stds stay within [{LOW:g}, {HIGH:g}] of their references "
-        "along the main path and no layer has locked twin units"), notes=tuple(notes))
+                return Verdict(
+                    found.verdict,
+                    found.failed_at,
+                    found.failed_index,
+                    found.quantity,
+                    found.ratio,
+                    found.reason,
+                    tuple(notes),
+                )
+    return Verdict(
+        "stable",
+        reason=(
+            f"activation and gradient stds stay within [{LOW:g}, {HIGH:g}] of their references "
+            "along the main path and no layer has locked twin units"
+        ),
+        notes=tuple(notes),
+    )
 
 
 __all__ = ["HIGH", "LOW", "SYMMETRIC_SHARE", "Verdict", "judge"]

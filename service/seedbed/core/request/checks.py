@@ -60,7 +60,12 @@ def _policy(parsed: ParsedRequest, limits: Limits) -> list[Problem]:
 STRUCTURE_CHECKS: tuple[RequestCheck, ...] = (_branches,)
 # Every request-wide check, in the order its problems are reported.
 CHECKS: tuple[RequestCheck, ...] = (
-    _layer_names, _tensor_names, _branches, chain_problems, _dtype_ranges, _sizes
+    _layer_names,
+    _tensor_names,
+    _branches,
+    chain_problems,
+    _dtype_ranges,
+    _sizes,
 )
 POLICY_CHECK: RequestCheck = _policy
 

@@ -84,7 +84,7 @@ SETTING_PREFIX = "SEEDBED_"
 
 
 def raised_by(limit: str, prefix: str = SETTING_PREFIX) -> str:
-    """"; the service's setting SEEDBED_<LIMIT> raises it", to end a refusal with."""
+    """ "; the service's setting SEEDBED_<LIMIT> raises it", to end a refusal with."""
     return f"; the service's setting {prefix}{limit.upper()} raises it"
 
 

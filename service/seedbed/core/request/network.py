@@ -100,7 +100,7 @@ class NetworkRequest(StrictModel):
     ) = Field(
         default=None,
         description="Omit it: each layer's input width must equal what it reads (the layer "
-        "before it, or the layers named in its `reads`). \"unchecked\": the layers are a "
+        'before it, or the layers named in its `reads`). "unchecked": the layers are a '
         "collection of separate layers rather than one network, and no width between them is "
         "checked (diagnose refuses such a request: it needs a chain).",
         examples=["unchecked"],

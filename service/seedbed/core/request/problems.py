@@ -266,8 +266,9 @@ def _translate(root: type[BaseModel], error: Any) -> Problem:
         # the value as sent.
         sent = value.get("kind") if isinstance(value, dict) else ctx.get("tag")
         hint = did_you_mean(sent, tags.split(", "))
-        return Problem(path, "invalid_value",
-                       f"got {describe_input(sent)}; allowed kinds: {tags}{hint}")
+        return Problem(
+            path, "invalid_value", f"got {describe_input(sent)}; allowed kinds: {tags}{hint}"
+        )
 
     where = locate(root, loc)
     path = where.path
@@ -320,8 +321,9 @@ def _translate(root: type[BaseModel], error: Any) -> Problem:
         suggestion = ""
         if choice:
             suggestion = did_you_mean(value, _QUOTED.findall(str(ctx.get("expected", ""))))
-        return Problem(path, code,
-                       f"got {describe_input(value)}{hint}; allowed: {expected}{suggestion}")
+        return Problem(
+            path, code, f"got {describe_input(value)}{hint}; allowed: {expected}{suggestion}"
+        )
     # Range and pattern checks on numbers and strings.
     expected = allowed or _expected_from_ctx(ctx) or "see the field's description"
     return Problem(path, "invalid_value", f"got {describe_input(value)}; allowed: {expected}")

@@ -54,9 +54,13 @@ def audit_limits_from_env(environ: Mapping[str, str] | None = None) -> AuditLimi
 
 
 def _too_large(field: str, seen: str, limit: int, what: str) -> ApiError:
-    return ApiError.one(413, field, "body_too_large",
-                        f"the {what} is {seen} bytes; at most {limit} bytes are accepted "
-                        f"({MAX_AUDIT_ENV} for the file)")
+    return ApiError.one(
+        413,
+        field,
+        "body_too_large",
+        f"the {what} is {seen} bytes; at most {limit} bytes are accepted "
+        f"({MAX_AUDIT_ENV} for the file)",
+    )
 
 
 def _declared_length(request: Request) -> int | None:
@@ -64,8 +68,9 @@ def _declared_length(request: Request) -> int | None:
     if declared is None:
         return None
     if not declared.strip().isdigit():
-        raise ApiError.one(400, "content-length", "invalid_value",
-                           f"Content-Length {declared!r} is not a number")
+        raise ApiError.one(
+            400, "content-length", "invalid_value", f"Content-Length {declared!r} is not a number"
+        )
     return int(declared)
 
 
@@ -94,9 +99,13 @@ class _CappedBuffer:
     def write(self, data: bytes) -> None:
         self.size += len(data)
         if self.size > self.limit:
-            raise ApiError.one(413, REQUEST_PART, "body_too_large",
-                               f"the request part is more than {self.limit} bytes; at most "
-                               f"{self.limit} are accepted (SEEDBED_MAX_BODY_BYTES)")
+            raise ApiError.one(
+                413,
+                REQUEST_PART,
+                "body_too_large",
+                f"the request part is more than {self.limit} bytes; at most "
+                f"{self.limit} are accepted (SEEDBED_MAX_BODY_BYTES)",
+            )
         self.parts.append(data)
 
 
@@ -130,22 +139,28 @@ class _FormReader:
             return self.spool
         if info.name == REQUEST_PART:
             if self.request_part is not None:
-                raise ApiError.one(422, REQUEST_PART, "duplicate_part",
-                                   "send one `request` part only")
+                raise ApiError.one(
+                    422, REQUEST_PART, "duplicate_part", "send one `request` part only"
+                )
             self.request_part = _CappedBuffer(self.request_limit)
             return self.request_part
-        raise ApiError.one(422, "(body)", "unknown_part",
-                           f"the form has a part named {info.name[:60]!r}; allowed: "
-                           f"{FILE_PART} (the NPZ or safetensors file) and {REQUEST_PART} "
-                           "(optional JSON describing the network)")
+        raise ApiError.one(
+            422,
+            "(body)",
+            "unknown_part",
+            f"the form has a part named {info.name[:60]!r}; allowed: "
+            f"{FILE_PART} (the NPZ or safetensors file) and {REQUEST_PART} "
+            "(optional JSON describing the network)",
+        )
 
     def close(self) -> None:
         if self.spool is not None:
             self.spool.file.close()
 
 
-async def _read_form(request: Request, limits: AuditLimits,
-                     request_limit: int) -> tuple[_CappedSpool, bytes | None]:
+async def _read_form(
+    request: Request, limits: AuditLimits, request_limit: int
+) -> tuple[_CappedSpool, bytes | None]:
     whole = limits.max_upload_bytes + request_limit + FRAMING_ALLOWANCE
     declared = _declared_length(request)
     if declared is not None and declared > whole:
@@ -171,9 +186,12 @@ async def _read_form(request: Request, limits: AuditLimits,
         reader.close()
         raise
     if reader.spool is None:
-        raise ApiError.one(422, FILE_PART, "missing_field",
-                           "the form has no `file` part; send the NPZ or safetensors file in a "
-                           "part named file")
+        raise ApiError.one(
+            422,
+            FILE_PART,
+            "missing_field",
+            "the form has no `file` part; send the NPZ or safetensors file in a part named file",
+        )
     raw_request = b"".join(reader.request_part.parts) if reader.request_part else None
     return reader.spool, raw_request
 
@@ -205,8 +223,9 @@ def _parse_request_part(raw: bytes) -> Any:
     try:
         return json.loads(text, object_pairs_hook=_unique_keys, parse_constant=_no_constant)
     except json.JSONDecodeError as exc:
-        _refuse_json(f"the request part is not valid JSON: {exc.msg} at line {exc.lineno} "
-                     f"column {exc.colno}")
+        _refuse_json(
+            f"the request part is not valid JSON: {exc.msg} at line {exc.lineno} column {exc.colno}"
+        )
     except (RecursionError, ValueError) as exc:
         _refuse_json(f"the request part is not usable JSON: {exc}")
 
@@ -216,8 +235,14 @@ async def _plan_of(raw: bytes, request: Request) -> Plan:
     try:
         plan: Plan = await run_in_threadpool(build_plan, data, settings_of(request).limits)
     except RequestRejected as exc:
-        faults = [Fault(f"{REQUEST_PART}.{p.field}" if p.field != "(body)" else REQUEST_PART,
-                        p.code, p.message) for p in exc.problems]
+        faults = [
+            Fault(
+                f"{REQUEST_PART}.{p.field}" if p.field != "(body)" else REQUEST_PART,
+                p.code,
+                p.message,
+            )
+            for p in exc.problems
+        ]
         raise ApiError(413 if exc.too_large else 422, faults) from None
     return plan
 
@@ -228,8 +253,10 @@ async def _plan_of(raw: bytes, request: Request) -> Plan:
 class FindingDoc(BaseModel):
     tensor: str | None = Field(description="The tensor concerned; null for the file as a whole.")
     severity: str = Field(description="error | warning | note.")
-    code: str = Field(description="Machine-readable kind, e.g. twin_units, all_zero, "
-                                  "non_finite, rank_deficient, scale_too_large, missing_tensor.")
+    code: str = Field(
+        description="Machine-readable kind, e.g. twin_units, all_zero, "
+        "non_finite, rank_deficient, scale_too_large, missing_tensor."
+    )
     message: str = Field(description="What was found, with the numbers, and what it means.")
 
 
@@ -259,15 +286,19 @@ class TensorReportDoc(BaseModel):
     all_constant: bool | None
     units: dict[str, Any] | None = Field(
         description="Which axis holds the units (first axis, or the output axis from the "
-        "request), their count, values per unit and blocks (gates, groups).")
+        "request), their count, values per unit and blocks (gates, groups)."
+    )
     twins: dict[str, Any] | None = Field(
-        description="group_count, units_in_groups and the first groups of identical units.")
+        description="group_count, units_in_groups and the first groups of identical units."
+    )
     rank: dict[str, Any] | None = Field(
         description="Numerical rank, the full rank possible, the tolerance and whether a "
-        "sample was decomposed.")
+        "sample was decomposed."
+    )
     planned: dict[str, Any] | None = Field(
         description="With a request: the plan's method, recommended_std, constant values, "
-        "observed_rms and ratio = observed_rms / recommended_std.")
+        "observed_rms and ratio = observed_rms / recommended_std."
+    )
 
 
 class AuditReportDoc(BaseModel):
@@ -297,15 +328,20 @@ _REQUEST_BODY = {
                     "type": "object",
                     "required": [FILE_PART],
                     "properties": {
-                        FILE_PART: {"type": "string", "format": "binary",
-                                    "description": "The NPZ or safetensors file."},
+                        FILE_PART: {
+                            "type": "string",
+                            "format": "binary",
+                            "description": "The NPZ or safetensors file.",
+                        },
                         REQUEST_PART: {"$ref": f"#/components/schemas/{REQUEST_SCHEMA_NAME}"},
                     },
                 },
                 "encoding": {REQUEST_PART: {"contentType": "application/json"}},
                 "examples": {
-                    name: {"summary": ex["summary"],
-                           "value": {REQUEST_PART: ex["value"], FILE_PART: "(binary file)"}}
+                    name: {
+                        "summary": ex["summary"],
+                        "value": {REQUEST_PART: ex["value"], FILE_PART: "(binary file)"},
+                    }
                     for name, ex in EXAMPLES.items()
                 },
             },
@@ -328,9 +364,15 @@ _REQUEST_BODY = {
     response_class=JSONResponse,
     responses={
         200: {"model": AuditReportDoc, "description": "The audit report."},
-        **error_responses(400, 413, 415, 422, 503,
-                          s503="Too many audits are running at once (code too_many_audits); "
-                               "the Retry-After header says when to try again."),
+        **error_responses(
+            400,
+            413,
+            415,
+            422,
+            503,
+            s503="Too many audits are running at once (code too_many_audits); "
+            "the Retry-After header says when to try again.",
+        ),
     },
     openapi_extra=_REQUEST_BODY,
 )
@@ -355,11 +397,14 @@ def _audit_slot(request: Request) -> Iterator[None]:
     running = getattr(state, "audits_running", 0)
     if running >= cap:
         raise ApiError.one(
-            503, "(request)", "too_many_audits",
+            503,
+            "(request)",
+            "too_many_audits",
             f"{running} audits are running, the most this service runs at once (the "
             f"service's setting SEEDBED_MAX_CONCURRENT_AUDITS raises it); retry after "
             f"{AUDIT_RETRY_AFTER_S} seconds",
-            headers={"Retry-After": str(AUDIT_RETRY_AFTER_S)})
+            headers={"Retry-After": str(AUDIT_RETRY_AFTER_S)},
+        )
     state.audits_running = running + 1
     try:
         yield
@@ -375,27 +420,35 @@ async def _audit(request: Request) -> JSONResponse:
     if media in RAW_MEDIA_TYPES:
         spool, field = await _read_raw(request, limits), "(body)"
     elif media == MULTIPART:
-        spool, raw_request = await _read_form(request, limits,
-                                              settings_of(request).max_body_bytes)
+        spool, raw_request = await _read_form(request, limits, settings_of(request).max_body_bytes)
         field = FILE_PART
     else:
         shown = repr(raw_type) if raw_type is not None else "missing"
-        raise ApiError.one(415, "content-type", "unsupported_media_type",
-                           f"Content-Type is {shown}; send the file as application/octet-stream "
-                           f"or application/zip, or as the `file` part of {MULTIPART}")
+        raise ApiError.one(
+            415,
+            "content-type",
+            "unsupported_media_type",
+            f"Content-Type is {shown}; send the file as application/octet-stream "
+            f"or application/zip, or as the `file` part of {MULTIPART}",
+        )
     try:
         plan = await _plan_of(raw_request, request) if raw_request is not None else None
         if media == "application/zip" and spool.size:
             spool.file.seek(0)
             if spool.file.read(2) != b"PK":
-                raise ApiError.one(422, "(body)", "not_a_zip",
-                                   "the body was sent as application/zip but is not a zip "
-                                   "archive; send safetensors as application/octet-stream")
+                raise ApiError.one(
+                    422,
+                    "(body)",
+                    "not_a_zip",
+                    "the body was sent as application/zip but is not a zip "
+                    "archive; send safetensors as application/octet-stream",
+                )
         try:
             report = await run_in_threadpool(audit_upload, spool.file, spool.size, limits, plan)
         except UploadRefused as exc:
-            raise ApiError.one(413 if exc.too_large else 422, field, exc.code,
-                               exc.message) from None
+            raise ApiError.one(
+                413 if exc.too_large else 422, field, exc.code, exc.message
+            ) from None
     finally:
         spool.file.close()
     return JSONResponse(report)

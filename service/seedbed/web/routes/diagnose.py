@@ -43,8 +43,16 @@ _EXAMPLE_BODY: dict[str, Any] = {
     "request": {
         "seed": 4471,
         "layers": [
-            *({"name": f"sensors.{i}", "kind": "dense", "n_in": 128, "n_out": 128,
-               "activation": "relu"} for i in range(12)),
+            *(
+                {
+                    "name": f"sensors.{i}",
+                    "kind": "dense",
+                    "n_in": 128,
+                    "n_out": 128,
+                    "activation": "relu",
+                }
+                for i in range(12)
+            ),
             {"name": "humidity", "kind": "dense", "n_in": 128, "n_out": 1, "role": "output"},
         ],
     },
@@ -64,7 +72,7 @@ _BODY_SCHEMA: dict[str, Any] = {
         "alternatives": {
             "type": "array",
             "description": "Initialisations to compare with the request as given; each `init` "
-                           "applies to every dense, conv, attention and embedding layer.",
+            "applies to every dense, conv, attention and embedding layer.",
             "items": {
                 "type": "object",
                 "additionalProperties": False,
@@ -75,8 +83,12 @@ _BODY_SCHEMA: dict[str, Any] = {
                 },
             },
         },
-        "batch": {"type": "integer", "minimum": 1, "default": DEFAULT_BATCH,
-                  "description": "Samples in the synthetic batch."},
+        "batch": {
+            "type": "integer",
+            "minimum": 1,
+            "default": DEFAULT_BATCH,
+            "description": "Samples in the synthetic batch.",
+        },
     },
 }
 
@@ -92,8 +104,9 @@ def _finite(value: Any) -> Any:
     return value
 
 
-def _document(data: Any, request_limits: Any, limits: DiagnosticLimits,
-              threads: int) -> dict[str, Any]:
+def _document(
+    data: Any, request_limits: Any, limits: DiagnosticLimits, threads: int
+) -> dict[str, Any]:
     document: dict[str, Any] = _finite(
         diagnosis_document(diagnose(data, request_limits, limits, threads=threads))
     )
@@ -118,23 +131,33 @@ def _document(data: Any, request_limits: Any, limits: DiagnosticLimits,
         200: {
             "model": DiagnosisDocument,
             "description": "The diagnosis (JSON), or its chart.",
-            "content": {"application/json": {
-                            "schema": {"$ref": "#/components/schemas/DiagnosisDocument"}},
-                        SVG_MEDIA_TYPE: {"schema": {"type": "string"}},
-                        "text/html": {"schema": {"type": "string"}}},
+            "content": {
+                "application/json": {"schema": {"$ref": "#/components/schemas/DiagnosisDocument"}},
+                SVG_MEDIA_TYPE: {"schema": {"type": "string"}},
+                "text/html": {"schema": {"type": "string"}},
+            },
         },
         **error_responses(400, 413, 415, 422),
     },
-    openapi_extra={"requestBody": {
-        "required": True,
-        "description": "The network, the alternatives to compare and the batch size.",
-        "content": {"application/json": {
-            "schema": _BODY_SCHEMA,
-            "examples": {"greenhouse-regressor": {
-                "summary": "A deep ReLU regressor against tiny-uniform and constant starts",
-                "value": _EXAMPLE_BODY}},
-        }},
-    }},
+    openapi_extra={
+        "requestBody": {
+            "required": True,
+            "description": "The network, the alternatives to compare and the batch size.",
+            "content": {
+                "application/json": {
+                    "schema": _BODY_SCHEMA,
+                    "examples": {
+                        "greenhouse-regressor": {
+                            "summary": (
+                                "A deep ReLU regressor against tiny-uniform and constant starts"
+                            ),
+                            "value": _EXAMPLE_BODY,
+                        }
+                    },
+                }
+            },
+        }
+    },
 )
 async def diagnose_signal(
     request: Request,
@@ -145,8 +168,9 @@ async def diagnose_signal(
     settings = settings_of(request)
     data = await read_json_body(request, settings.max_body_bytes)
     budget = diagnostic_limits_of(request)
-    document = await run_in_threadpool(_document, data, settings.limits, budget,
-                                       settings.threads_per_request())
+    document = await run_in_threadpool(
+        _document, data, settings.limits, budget, settings.threads_per_request()
+    )
     if chart == "svg":
         return Response(chart_svg(document), media_type=SVG_MEDIA_TYPE)
     if chart == "html":

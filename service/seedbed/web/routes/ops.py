@@ -19,8 +19,13 @@ router = APIRouter(tags=["operations"])
     summary="Is the process alive?",
     description="Answers at once without touching the core; stays responsive while weights "
     "stream, because generation runs off the event loop.",
-    responses={200: {"model": Liveness, "description": "Alive.",
-                     "content": {"application/json": {"example": {"status": "alive"}}}}},
+    responses={
+        200: {
+            "model": Liveness,
+            "description": "Alive.",
+            "content": {"application/json": {"example": {"status": "alive"}}},
+        }
+    },
 )
 @router.head(
     "/healthz",
@@ -55,7 +60,7 @@ async def healthz() -> JSONResponse:
                         "registry": "ok",
                     }
                 }
-            }
+            },
         },
         503: {"model": NotReadyReport, "description": "Not ready; `reason` says why."},
     },

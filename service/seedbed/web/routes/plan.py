@@ -54,8 +54,10 @@ async def draft_plan(request: Request) -> Response:
     operation_id="describeCatalog",
     summary="Methods, distributions and activations the service knows",
     description="Each entry carries its gain and the published source it comes from.",
-    responses={200: {"model": CatalogDocument, "description": "The catalog."},
-               304: {"description": "Unchanged."}},
+    responses={
+        200: {"model": CatalogDocument, "description": "The catalog."},
+        304: {"description": "Unchanged."},
+    },
 )
 @router.head("/v1/catalog", operation_id="describeCatalogHead", summary="Catalog headers only.")
 async def describe_catalog(request: Request) -> Response:

@@ -109,10 +109,20 @@ _PUBLISH_BODY = {
                                 "seed": 424242,
                                 "dtype": "float32",
                                 "layers": [
-                                    {"name": "trunk", "kind": "dense", "n_in": 64,
-                                     "n_out": 32, "activation": "relu"},
-                                    {"name": "count", "kind": "dense", "n_in": 32,
-                                     "n_out": 1, "role": "output"},
+                                    {
+                                        "name": "trunk",
+                                        "kind": "dense",
+                                        "n_in": 64,
+                                        "n_out": 32,
+                                        "activation": "relu",
+                                    },
+                                    {
+                                        "name": "count",
+                                        "kind": "dense",
+                                        "n_in": 32,
+                                        "n_out": 1,
+                                        "role": "output",
+                                    },
                                 ],
                             },
                         },
@@ -199,7 +209,10 @@ async def _db(call: Callable[..., T], *args: Any) -> T:
 
 def _refused(exc: AuthenticationError) -> ApiError:
     return ApiError.one(
-        401, "authorization", "not_authenticated", str(exc),
+        401,
+        "authorization",
+        "not_authenticated",
+        str(exc),
         {"WWW-Authenticate": 'Bearer realm="seedbed"'},
     )
 
@@ -280,11 +293,15 @@ def _summary_doc(s: VersionSummary) -> dict[str, Any]:
     ),
     status_code=201,
     responses={
-        201: {"model": PublishedRecipe,
-              "description": "Published; `Location` is the new version's URL."},
-        200: {"model": PublishedRecipe,
-              "description": "The newest version already stores this request: that version, "
-                             "unchanged; `Location` is its URL."},
+        201: {
+            "model": PublishedRecipe,
+            "description": "Published; `Location` is the new version's URL.",
+        },
+        200: {
+            "model": PublishedRecipe,
+            "description": "The newest version already stores this request: that version, "
+            "unchanged; `Location` is its URL.",
+        },
         **_AUTH_DOC,
         **error_responses(400, 413, 415, 422),
         **_UNAVAILABLE_DOC,
@@ -321,8 +338,10 @@ async def publish_recipe(request: Request) -> Response:
 # --- reading ----------------------------------------------------------------------------------
 
 # Checked by hand (_checked_name) for an error that states the rule; the schema shows it too.
-_NAME = Path(description=f"The recipe's name: {NAME_PATTERN_TEXT}.",
-             json_schema_extra={"pattern": f"^{NAME_PATTERN_TEXT}$"})
+_NAME = Path(
+    description=f"The recipe's name: {NAME_PATTERN_TEXT}.",
+    json_schema_extra={"pattern": f"^{NAME_PATTERN_TEXT}$"},
+)
 
 
 @router.get(
@@ -331,11 +350,19 @@ _NAME = Path(description=f"The recipe's name: {NAME_PATTERN_TEXT}.",
     summary="Recipe names with their latest version",
     description="In name order, `limit` at a time; pass the previous page's `next_after` as "
     "`after` for the next page (null on the last page).",
-    responses={200: {"model": RecipePage, "description": "One page of names."}, **_AUTH_DOC,
-               **_UNAVAILABLE_DOC, **error_responses(422)},
+    responses={
+        200: {"model": RecipePage, "description": "One page of names."},
+        **_AUTH_DOC,
+        **_UNAVAILABLE_DOC,
+        **error_responses(422),
+    },
 )
-@router.head("/v1/recipes", operation_id="listRecipesHead", summary="List headers only.",
-             responses=error_responses(422))
+@router.head(
+    "/v1/recipes",
+    operation_id="listRecipesHead",
+    summary="List headers only.",
+    responses=error_responses(422),
+)
 async def list_recipe_names(
     request: Request,
     after: str | None = Query(None, description="Continue after this name.", max_length=100),
@@ -346,8 +373,11 @@ async def list_recipe_names(
     rows = await _db(list_recipes, registry.engine, after, limit)
     doc = {
         "recipes": [
-            {**_summary_doc(r.latest), "latest_version": r.latest_version,
-             "first_published_at": iso(r.first_published_at)}
+            {
+                **_summary_doc(r.latest),
+                "latest_version": r.latest_version,
+                "first_published_at": iso(r.first_published_at),
+            }
             for r in rows
         ],
         "next_after": rows[-1].name if len(rows) == limit else None,
@@ -359,12 +389,20 @@ async def list_recipe_names(
     "/v1/recipes/{name}",
     operation_id="listRecipeVersions",
     summary="The versions of one recipe",
-    responses={200: {"model": RecipeVersionList, "description": "Every version, oldest first."},
-               **_AUTH_DOC, **error_responses(404, s404="No recipe has this name."),
-               **_UNAVAILABLE_DOC, **error_responses(422)},
+    responses={
+        200: {"model": RecipeVersionList, "description": "Every version, oldest first."},
+        **_AUTH_DOC,
+        **error_responses(404, s404="No recipe has this name."),
+        **_UNAVAILABLE_DOC,
+        **error_responses(422),
+    },
 )
-@router.head("/v1/recipes/{name}", operation_id="listRecipeVersionsHead",
-             summary="Version list headers only.", responses=error_responses(422))
+@router.head(
+    "/v1/recipes/{name}",
+    operation_id="listRecipeVersionsHead",
+    summary="Version list headers only.",
+    responses=error_responses(422),
+)
 async def recipe_versions(request: Request, name: str = _NAME) -> Response:
     registry = await _registry(request)
     _checked_name(name)
@@ -377,8 +415,9 @@ async def recipe_versions(request: Request, name: str = _NAME) -> Response:
     return _json_response(request, _json_bytes(doc), {"Cache-Control": MUTABLE})
 
 
-async def _stored(request: Request, registry: Registry, name: str, version: int | None
-                  ) -> RecipeVersion:
+async def _stored(
+    request: Request, registry: Registry, name: str, version: int | None
+) -> RecipeVersion:
     _checked_name(name)
     await _check_reader(request, registry)
     try:
@@ -394,8 +433,10 @@ LATEST_MAX_AGE = "max-age=30"
 _MAX_VERSION = 2**31 - 1
 _VERSION_RULE = f"a version number 1..{_MAX_VERSION}, or {LATEST!r} for the newest version"
 # Checked by hand (_version_of) for an error that states the rule; the schema shows it too.
-_VERSION = Path(description=f"The version: {_VERSION_RULE}.",
-                json_schema_extra={"pattern": "^(latest|[1-9][0-9]{0,9})$"})
+_VERSION = Path(
+    description=f"The version: {_VERSION_RULE}.",
+    json_schema_extra={"pattern": "^(latest|[1-9][0-9]{0,9})$"},
+)
 
 
 def _version_of(text: str) -> int | None:
@@ -406,12 +447,14 @@ def _version_of(text: str) -> int | None:
         number = int(text)
         if number <= _MAX_VERSION:
             return number
-    raise ApiError.one(422, "version", "invalid_value",
-                       f"got {text[:40]!r}; allowed: {_VERSION_RULE}")
+    raise ApiError.one(
+        422, "version", "invalid_value", f"got {text[:40]!r}; allowed: {_VERSION_RULE}"
+    )
 
 
-def _resolved_headers(registry: Registry, record: RecipeVersion, asked: int | None,
-                      etag: str | None, link: str) -> dict[str, str]:
+def _resolved_headers(
+    registry: Registry, record: RecipeVersion, asked: int | None, etag: str | None, link: str
+) -> dict[str, str]:
     """Caching headers for a version named by number (immutable, strong tag) or by `latest`
     (short, weak tag), and where the concrete version lives. Without `etag` the caller sets
     the ETag (the weights response computes its own)."""
@@ -435,16 +478,22 @@ def _resolved_headers(registry: Registry, record: RecipeVersion, asked: int | No
     "a year. `latest` names the newest version: the body is that version's (its `version` "
     "field says which), with a weak ETag, `Cache-Control: max-age=30`, `Content-Location` and "
     "`X-Seedbed-Recipe` naming the concrete version.",
-    responses={200: {"model": StoredRecipe, "description": "The stored version."},
-               304: {"description": "Unchanged."}, **_AUTH_DOC,
-               **error_responses(404, s404="No such name or version."),
-               **_UNAVAILABLE_DOC, **error_responses(422)},
+    responses={
+        200: {"model": StoredRecipe, "description": "The stored version."},
+        304: {"description": "Unchanged."},
+        **_AUTH_DOC,
+        **error_responses(404, s404="No such name or version."),
+        **_UNAVAILABLE_DOC,
+        **error_responses(422),
+    },
 )
-@router.head("/v1/recipes/{name}/{version}", operation_id="describeRecipeVersionHead",
-             summary="Stored version headers only.", responses=error_responses(422))
-async def recipe_version(
-    request: Request, name: str = _NAME, version: str = _VERSION
-) -> Response:
+@router.head(
+    "/v1/recipes/{name}/{version}",
+    operation_id="describeRecipeVersionHead",
+    summary="Stored version headers only.",
+    responses=error_responses(422),
+)
+async def recipe_version(request: Request, name: str = _NAME, version: str = _VERSION) -> Response:
     registry = await _registry(request)
     asked = _version_of(version)
     record = await _stored(request, registry, name, asked)
@@ -456,8 +505,9 @@ async def recipe_version(
         "content_sha256": record.content_sha256,
     }
     body = _json_bytes(doc)
-    headers = _resolved_headers(registry, record, asked, body_etag(body),
-                                _links(name, record.summary.version)["self"])
+    headers = _resolved_headers(
+        registry, record, asked, body_etag(body), _links(name, record.summary.version)["self"]
+    )
     if none_match(request.headers.get("if-none-match"), headers["ETag"]):
         return Response(status_code=304, headers=headers)
     return _json_response(request, body, headers)
@@ -468,7 +518,9 @@ def _replanned(record: RecipeVersion, settings_limits: Any) -> Plan:
     s = record.summary
     if plan.algorithm != s.algorithm:
         raise ApiError.one(
-            409, "version", "algorithm_changed",
+            409,
+            "version",
+            "algorithm_changed",
             f"{s.name} v{s.version} was published under the generator {s.algorithm!r}; this "
             f"server runs {plan.algorithm!r}, whose bytes differ, so it cannot serve this "
             "version's weights; ask a server that runs the recipe's algorithm",
@@ -476,7 +528,9 @@ def _replanned(record: RecipeVersion, settings_limits: Any) -> Plan:
     missing = sorted({t.tensor for t in plan.tensors} ^ set(record.fingerprints))
     if missing:
         raise ApiError.one(
-            500, "version", "recipe_inconsistent",
+            500,
+            "version",
+            "recipe_inconsistent",
             f"{s.name} v{s.version}: the stored fingerprints do not match the stored request's "
             f"tensors ({', '.join(missing[:5])}); the stored version is damaged",
         )
@@ -507,9 +561,13 @@ def _replanned(record: RecipeVersion, settings_limits: Any) -> Plan:
         **_UNAVAILABLE_DOC,
     },
 )
-@router.head("/v1/recipes/{name}/{version}/weights", operation_id="fetchRecipeWeightsHead",
-             summary="Weights headers only.", response_class=Response,
-             responses=error_responses(422))
+@router.head(
+    "/v1/recipes/{name}/{version}/weights",
+    operation_id="fetchRecipeWeightsHead",
+    summary="Weights headers only.",
+    response_class=Response,
+    responses=error_responses(422),
+)
 async def recipe_weights(
     request: Request,
     name: str = _NAME,
@@ -535,5 +593,3 @@ async def recipe_weights(
         weak=asked is None,
     )
     return await weights_response(request, plan, options)
-
-

@@ -51,9 +51,7 @@ async def generate_weights(
         "member), safetensors (manifest in the header metadata) or json (base64 in `data`). "
         "docs/formats.md says why npz is the default everywhere.",
     ),
-    tensor: str | None = Query(
-        None, description="Serve only this tensor (a name from the plan)."
-    ),
+    tensor: str | None = Query(None, description="Serve only this tensor (a name from the plan)."),
     rows: str | None = Query(
         None,
         description="START:STOP rows of the served first axis of `tensor`; the block equals "

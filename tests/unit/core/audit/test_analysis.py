@@ -20,8 +20,12 @@ from seedbed.core.audit.rank import numerical_rank
 from seedbed.core.audit.stats import value_stats
 from seedbed.core.audit.stored import FLOAT_ROUNDOFF
 
-DTYPES = {"float64": np.float64, "float32": np.float32, "float16": np.float16,
-          "bfloat16": ml_dtypes.bfloat16}
+DTYPES = {
+    "float64": np.float64,
+    "float32": np.float32,
+    "float16": np.float16,
+    "bfloat16": ml_dtypes.bfloat16,
+}
 
 
 def test_statistics_match_numpy_across_piece_boundaries(monkeypatch: pytest.MonkeyPatch) -> None:
@@ -66,12 +70,16 @@ def _brute_twins(rows: np.ndarray, blocks: int) -> list[tuple[int, ...]]:
 
 
 @settings(max_examples=40, deadline=None)
-@given(seed=st.integers(0, 2**32 - 1), n=st.integers(2, 40), width=st.integers(1, 6),
-       blocks=st.sampled_from([1, 2, 4]), copies=st.lists(st.tuples(st.integers(0, 39),
-                                                                     st.integers(0, 39)),
-                                                           max_size=8))
-def test_twins_equal_a_brute_force_comparison(seed: int, n: int, width: int, blocks: int,
-                                              copies: list[tuple[int, int]]) -> None:
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    n=st.integers(2, 40),
+    width=st.integers(1, 6),
+    blocks=st.sampled_from([1, 2, 4]),
+    copies=st.lists(st.tuples(st.integers(0, 39), st.integers(0, 39)), max_size=8),
+)
+def test_twins_equal_a_brute_force_comparison(
+    seed: int, n: int, width: int, blocks: int, copies: list[tuple[int, int]]
+) -> None:
     n = n - n % blocks or blocks
     rng = np.random.default_rng(seed)
     rows = rng.standard_normal((n, width)).astype(np.float32)
@@ -131,8 +139,9 @@ def test_float64_rank_agrees_with_numpy_matrix_rank() -> None:
 def test_large_matrices_are_sampled_and_still_reveal_low_rank() -> None:
     rng = np.random.default_rng(8)
     a = _low_rank(rng, 300, 700, 12).astype(np.float32)
-    res = numerical_rank(a, FLOAT_ROUNDOFF["float32"], full_work=1 << 20, sample_short=64,
-                         sample_long=128)
+    res = numerical_rank(
+        a, FLOAT_ROUNDOFF["float32"], full_work=1 << 20, sample_short=64, sample_long=128
+    )
     assert res.sampled and (res.rows, res.cols) == (64, 128)
     assert res.rank == 12
     # A full-rank matrix of the same shape: the sample is full rank too.

@@ -38,6 +38,7 @@ def _setup(request: dict[str, Any]) -> tuple[Network, Plan]:
 
 # --- the torch rebuild --------------------------------------------------------------------
 
+
 def _act(name: str, param: float | None, x: Any) -> Any:
     if name == "linear":
         return x
@@ -47,8 +48,15 @@ def _act(name: str, param: float | None, x: Any) -> Any:
         return F.elu(x, alpha=param)
     if name == "softmax":
         return torch.softmax(x, dim=-1)
-    return {"relu": torch.relu, "tanh": torch.tanh, "sigmoid": torch.sigmoid, "selu": F.selu,
-            "gelu": F.gelu, "silu": F.silu, "softplus": F.softplus}[name](x)
+    return {
+        "relu": torch.relu,
+        "tanh": torch.tanh,
+        "sigmoid": torch.sigmoid,
+        "selu": F.selu,
+        "gelu": F.gelu,
+        "silu": F.silu,
+        "softplus": F.softplus,
+    }[name](x)
 
 
 def _conv(step: Step, x: Any, w: Any, b: Any) -> Any:
@@ -66,8 +74,11 @@ def _conv(step: Step, x: Any, w: Any, b: Any) -> Any:
         return y.movedim(1, -1)
     # torch keeps transposed kernels as (c_in, c_out/g, *k); ours are (c_out, c_in/g, *k)
     c_out, c_in_g = w.shape[0], w.shape[1]
-    wt = (w.reshape(g, c_out // g, c_in_g, *kernel).transpose(1, 2)
-          .reshape(g * c_in_g, c_out // g, *kernel))
+    wt = (
+        w.reshape(g, c_out // g, c_in_g, *kernel)
+        .transpose(1, 2)
+        .reshape(g * c_in_g, c_out // g, *kernel)
+    )
     conv_t = {1: F.conv_transpose1d, 2: F.conv_transpose2d, 3: F.conv_transpose3d}[nd]
     full = conv_t(xc, wt, None, stride=stride, groups=g)  # y[i*s + o] += W_o x[i]
     # fold onto the periodic grid of n*s positions, shifted by the kernel centre
@@ -75,8 +86,7 @@ def _conv(step: Step, x: Any, w: Any, b: Any) -> Any:
         size, c = n * s, (k - 1) // 2
         dim = 2 + axis
         length = full.shape[dim]
-        pieces = torch.zeros((*full.shape[:dim], size, *full.shape[dim + 1:]),
-                             dtype=full.dtype)
+        pieces = torch.zeros((*full.shape[:dim], size, *full.shape[dim + 1 :]), dtype=full.dtype)
         for j in range(length):
             index = [slice(None)] * full.dim()
             index[dim] = slice(j, j + 1)
@@ -135,8 +145,13 @@ def torch_run(network: Network, sim: Simulation) -> tuple[list[Any], list[Any]]:
         elif step.kind == "attention":
             pre = _attention(step, inp, lookup, store.logit_scale(name))
         elif step.kind == "norm":
-            pre = F.layer_norm(inp, (step.out_features,), lookup(f"{name}.scale"),
-                               lookup(f"{name}.shift"), eps=1e-5)
+            pre = F.layer_norm(
+                inp,
+                (step.out_features,),
+                lookup(f"{name}.scale"),
+                lookup(f"{name}.shift"),
+                eps=1e-5,
+            )
         else:
             pre = F.embedding(inp, lookup(f"{name}.weight"))
         pre = pre + scalar(f"{name}.activation_offset")
@@ -157,8 +172,9 @@ def torch_run(network: Network, sim: Simulation) -> tuple[list[Any], list[Any]]:
 def _compare(network: Network, plan: Plan, batch: int) -> Simulation:
     sim = simulate(network, plan, batch, keep_arrays=True)
     outs, grads = torch_run(network, sim)
-    for step, record, mine, ref, g_mine, g_ref in zip(network.steps, sim.records, sim.outputs,
-                                                      outs, sim.gradients, grads, strict=True):
+    for step, record, mine, ref, g_mine, g_ref in zip(
+        network.steps, sim.records, sim.outputs, outs, sim.gradients, grads, strict=True
+    ):
         ref_np = ref.detach().numpy()
         scale = max(float(np.max(np.abs(ref_np))), 1e-300)
         np.testing.assert_allclose(mine, ref_np, rtol=0, atol=1e-10 * scale, err_msg=step.name)
@@ -167,16 +183,17 @@ def _compare(network: Network, plan: Plan, batch: int) -> Simulation:
         np.testing.assert_allclose(g_mine, g_np, rtol=0, atol=1e-9 * g_scale, err_msg=step.name)
         assert record.activation_std == pytest.approx(float(ref_np.std()), rel=1e-9, abs=1e-300)
         assert record.gradient_std == pytest.approx(float(g_np.std()), rel=1e-8, abs=1e-300)
-        assert record.activation_mean == pytest.approx(float(ref_np.mean()),
-                                                       rel=1e-8, abs=1e-12 * scale)
+        assert record.activation_mean == pytest.approx(
+            float(ref_np.mean()), rel=1e-8, abs=1e-12 * scale
+        )
     return sim
 
 
 # --- networks -------------------------------------------------------------------------------
 
+
 def _dense(name: str, n_in: int, n_out: int, act: str, **extra: Any) -> dict[str, Any]:
-    return {"name": name, "kind": "dense", "n_in": n_in, "n_out": n_out, "activation": act,
-            **extra}
+    return {"name": name, "kind": "dense", "n_in": n_in, "n_out": n_out, "activation": act, **extra}
 
 
 def test_mlp_with_every_activation_matches_torch() -> None:
@@ -191,14 +208,44 @@ def test_mlp_with_every_activation_matches_torch() -> None:
 
 def test_convs_grouped_strided_transposed_match_torch() -> None:
     layers = [
-        {"name": "c1", "kind": "conv", "channels_in": 3, "channels_out": 8, "kernel": [3, 3],
-         "activation": "relu"},
-        {"name": "c2", "kind": "conv", "channels_in": 8, "channels_out": 8, "kernel": [3, 3],
-         "groups": 2, "stride": [2, 2], "activation": "tanh"},
-        {"name": "c3", "kind": "conv", "channels_in": 8, "channels_out": 6, "kernel": [2, 3],
-         "stride": [1, 2], "activation": "gelu"},
-        {"name": "up", "kind": "conv", "channels_in": 6, "channels_out": 4, "kernel": [3, 2],
-         "stride": [2, 2], "groups": 2, "transposed": True, "activation": "relu"},
+        {
+            "name": "c1",
+            "kind": "conv",
+            "channels_in": 3,
+            "channels_out": 8,
+            "kernel": [3, 3],
+            "activation": "relu",
+        },
+        {
+            "name": "c2",
+            "kind": "conv",
+            "channels_in": 8,
+            "channels_out": 8,
+            "kernel": [3, 3],
+            "groups": 2,
+            "stride": [2, 2],
+            "activation": "tanh",
+        },
+        {
+            "name": "c3",
+            "kind": "conv",
+            "channels_in": 8,
+            "channels_out": 6,
+            "kernel": [2, 3],
+            "stride": [1, 2],
+            "activation": "gelu",
+        },
+        {
+            "name": "up",
+            "kind": "conv",
+            "channels_in": 6,
+            "channels_out": 4,
+            "kernel": [3, 2],
+            "stride": [2, 2],
+            "groups": 2,
+            "transposed": True,
+            "activation": "relu",
+        },
         _dense("head", 4, 3, "linear", role="output"),
     ]
     network, plan = _setup({"seed": "conv-check", "layers": layers})
@@ -209,30 +256,72 @@ def test_convs_grouped_strided_transposed_match_torch() -> None:
 
 def test_conv_1d_transposed_and_3d_match_torch() -> None:
     one = [
-        {"name": "a", "kind": "conv", "channels_in": 2, "channels_out": 4, "kernel": [5],
-         "activation": "silu"},
-        {"name": "b", "kind": "conv", "channels_in": 4, "channels_out": 4, "kernel": [4],
-         "stride": [3], "transposed": True, "groups": 4, "activation": "linear"},
+        {
+            "name": "a",
+            "kind": "conv",
+            "channels_in": 2,
+            "channels_out": 4,
+            "kernel": [5],
+            "activation": "silu",
+        },
+        {
+            "name": "b",
+            "kind": "conv",
+            "channels_in": 4,
+            "channels_out": 4,
+            "kernel": [4],
+            "stride": [3],
+            "transposed": True,
+            "groups": 4,
+            "activation": "linear",
+        },
     ]
     network, plan = _setup({"seed": 5, "layers": one})
     assert network.steps[-1].grid_out == (192,)
     _compare(network, plan, 2)
-    three = [{"name": "v", "kind": "conv", "channels_in": 2, "channels_out": 3,
-              "kernel": [3, 3, 3], "activation": "elu"},
-             {"name": "w", "kind": "conv", "channels_in": 3, "channels_out": 2,
-              "kernel": [1, 2, 3], "stride": [1, 2, 1], "activation": "sigmoid"}]
+    three = [
+        {
+            "name": "v",
+            "kind": "conv",
+            "channels_in": 2,
+            "channels_out": 3,
+            "kernel": [3, 3, 3],
+            "activation": "elu",
+        },
+        {
+            "name": "w",
+            "kind": "conv",
+            "channels_in": 3,
+            "channels_out": 2,
+            "kernel": [1, 2, 3],
+            "stride": [1, 2, 1],
+            "activation": "sigmoid",
+        },
+    ]
     network, plan = _setup({"seed": 6, "layers": three})
     _compare(network, plan, 2)
 
 
-TRANSFORMER = {"name": "enc", "kind": "transformer_block", "dim": 16, "heads": 4, "mlp_dim": 32,
-               "repeat": 2}
+TRANSFORMER = {
+    "name": "enc",
+    "kind": "transformer_block",
+    "dim": 16,
+    "heads": 4,
+    "mlp_dim": 32,
+    "repeat": 2,
+}
 
 
 def _lm(block: dict[str, Any], **request: Any) -> dict[str, Any]:
-    return {"seed": "lm", "layers": [
-        {"name": "tok", "kind": "embedding", "vocab": 50, "dim": 16}, block,
-        _dense("head", 16, 50, "linear", role="output")], **request}
+    return {
+        "seed": "lm",
+        "layers": [
+            {"name": "tok", "kind": "embedding", "vocab": 50, "dim": 16},
+            block,
+            _dense("head", 16, 50, "linear", role="output"),
+        ],
+        **request,
+    }
 
 
 def test_pre_norm_transformer_matches_torch() -> None:
@@ -242,8 +331,9 @@ def test_pre_norm_transformer_matches_torch() -> None:
 
 
 def test_deepnorm_residual_alpha_matches_torch() -> None:
-    request = _lm(dict(TRANSFORMER, norm="post"),
-                  depth_policy={"name": "deepnorm", "architecture": "encoder"})
+    request = _lm(
+        dict(TRANSFORMER, norm="post"), depth_policy={"name": "deepnorm", "architecture": "encoder"}
+    )
     network, plan = _setup(request)
     alphas = [m for m in plan.multipliers if m["name"] == "residual_alpha"]
     assert alphas and alphas[0]["value"] > 1
@@ -253,17 +343,19 @@ def test_deepnorm_residual_alpha_matches_torch() -> None:
 
 
 def test_branch_gates_multiply_the_branch_output() -> None:
-    layers = [_dense("in", 12, 12, "relu"),
-              _dense("r.a", 12, 12, "relu", branch="r"),
-              _dense("r.b", 12, 12, "linear", branch="r", role="residual_out"),
-              _dense("out", 12, 2, "linear", role="output")]
-    network, plan = _setup({"seed": 9, "layers": layers,
-                            "depth_policy": {"name": "skip_gate"}})
+    layers = [
+        _dense("in", 12, 12, "relu"),
+        _dense("r.a", 12, 12, "relu", branch="r"),
+        _dense("r.b", 12, 12, "linear", branch="r", role="residual_out"),
+        _dense("out", 12, 2, "linear", role="output"),
+    ]
+    network, plan = _setup({"seed": 9, "layers": layers, "depth_policy": {"name": "skip_gate"}})
     gate = plan.tensor("r.gate")
     # the policy starts the gate at 0; a trained gate is what makes the product visible
     half = dataclasses.replace(gate, scale=0.5, value=0.5)
-    plan = dataclasses.replace(plan, tensors=tuple(half if t.tensor == "r.gate" else t
-                                                   for t in plan.tensors))
+    plan = dataclasses.replace(
+        plan, tensors=tuple(half if t.tensor == "r.gate" else t for t in plan.tensors)
+    )
     sim = _compare(network, plan, 8)
     record = sim.records[2]
     assert record.branch_end and record.branch_output_std is not None
@@ -271,12 +363,31 @@ def test_branch_gates_multiply_the_branch_output() -> None:
 
 
 def test_fixup_offsets_and_zero_layers_match_torch() -> None:
-    layers = [{"name": "stem", "kind": "conv", "channels_in": 3, "channels_out": 8,
-               "kernel": [3, 3], "activation": "relu"},
-              {"name": "res", "kind": "residual_conv_block", "channels": 8, "kernel": [3, 3],
-               "repeat": 2},
-              {"name": "cls", "kind": "conv", "channels_in": 8, "channels_out": 4,
-               "kernel": [1, 1], "role": "output"}]
+    layers = [
+        {
+            "name": "stem",
+            "kind": "conv",
+            "channels_in": 3,
+            "channels_out": 8,
+            "kernel": [3, 3],
+            "activation": "relu",
+        },
+        {
+            "name": "res",
+            "kind": "residual_conv_block",
+            "channels": 8,
+            "kernel": [3, 3],
+            "repeat": 2,
+        },
+        {
+            "name": "cls",
+            "kind": "conv",
+            "channels_in": 8,
+            "channels_out": 4,
+            "kernel": [1, 1],
+            "role": "output",
+        },
+    ]
     network, plan = _setup({"seed": 3, "layers": layers, "depth_policy": {"name": "fixup"}})
     assert any(t.tensor.endswith(".offset") for t in plan.tensors)
     sim = _compare(network, plan, 4)
@@ -285,26 +396,36 @@ def test_fixup_offsets_and_zero_layers_match_torch() -> None:
 
 # --- mean field -----------------------------------------------------------------------------
 
+
 def test_wide_tanh_network_approaches_the_length_fixed_point() -> None:
     integrate = require_oracle("scipy.integrate")
     optimize = require_oracle("scipy.optimize")
     sw2, bias, width, depth = 1.5, 0.2, 512, 16
-    layers = [_dense(f"t{i}", width, width, "tanh",
-                     init={"method": "lecun", "distribution": "normal", "gain": math.sqrt(sw2)},
-                     bias_init={"method": "constant", "value": bias})
-              for i in range(depth)]
+    layers = [
+        _dense(
+            f"t{i}",
+            width,
+            width,
+            "tanh",
+            init={"method": "lecun", "distribution": "normal", "gain": math.sqrt(sw2)},
+            bias_init={"method": "constant", "value": bias},
+        )
+        for i in range(depth)
+    ]
     network, plan = _setup({"seed": 21, "dtype": "float64", "layers": layers})
     sim = simulate(network, plan, 64, keep_arrays=True)
 
     def length(q: float) -> float:
         def f(z: float) -> float:
-            return float(math.tanh(math.sqrt(q) * z) ** 2 * math.exp(-z * z / 2)
-                         / math.sqrt(2 * math.pi))
+            return float(
+                math.tanh(math.sqrt(q) * z) ** 2 * math.exp(-z * z / 2) / math.sqrt(2 * math.pi)
+            )
+
         return sw2 * integrate.quad(f, -40, 40, limit=200)[0] + bias * bias
 
     q_star = optimize.brentq(lambda q: length(q) - q, 1e-6, 10.0)
     # pre-activation second moment of the last layer: sigma_w^2 E[x^2] of its input + b^2
     previous = sim.outputs[-2]
-    measured = sw2 * float(np.mean(previous ** 2)) + bias * bias
+    measured = sw2 * float(np.mean(previous**2)) + bias * bias
     # finite width (Hanin & Rolnick 2018) and a finite batch leave a few percent
     assert measured == pytest.approx(q_star, rel=0.05)

@@ -72,6 +72,7 @@ def test_summary_caps_what_it_lists_but_counts_everything() -> None:
 
 # --- dead and saturated units ---------------------------------------------------------------
 
+
 def test_dead_and_saturated_units_follow_the_documented_rules() -> None:
     pre = np.array([[-1.0, 2.0, -0.5, 30.0], [-2.0, -1.0, 0.0, 25.0]])
     assert dead_units("relu", pre, None).tolist() == [True, False, True, False]
@@ -89,6 +90,7 @@ def test_dead_and_saturated_units_follow_the_documented_rules() -> None:
 
 # --- structure and limits through diagnose() ------------------------------------------------
 
+
 def _dense(name: str, n_in: int, n_out: int, **extra: Any) -> dict[str, Any]:
     return {"name": name, "kind": "dense", "n_in": n_in, "n_out": n_out, **extra}
 
@@ -99,28 +101,68 @@ def _fields(body: dict[str, Any], limits: DiagnosticLimits | None = None) -> lis
     return [p.field for p in caught.value.problems]
 
 
-@pytest.mark.parametrize(("layers", "field"), [
-    ([_dense("a", 8, 8), _dense("b", 9, 4)], "request.layers[1].n_in"),
-    ([_dense("a", 8, 8), {"name": "r", "kind": "recurrent", "cell": "gru", "n_in": 8,
-                          "hidden": 8}], "request.layers[1].kind"),
-    ([_dense("a", 8, 8), {"name": "e", "kind": "embedding", "vocab": 5, "dim": 8}],
-     "request.layers[1].kind"),
-    ([{"name": "c", "kind": "conv", "channels_in": 2, "channels_out": 2, "kernel": [3, 3]},
-      {"name": "d", "kind": "conv", "channels_in": 2, "channels_out": 2, "kernel": [3]}],
-     "request.layers[1].kernel"),
-    ([{"name": "c", "kind": "conv", "channels_in": 2, "channels_out": 2, "kernel": [3, 3],
-       "branch": "b"},
-      {"name": "d", "kind": "conv", "channels_in": 2, "channels_out": 2, "kernel": [3, 3],
-       "stride": [2, 2], "branch": "b"}], "request.layers[1]"),
-])
+@pytest.mark.parametrize(
+    ("layers", "field"),
+    [
+        ([_dense("a", 8, 8), _dense("b", 9, 4)], "request.layers[1].n_in"),
+        (
+            [
+                _dense("a", 8, 8),
+                {"name": "r", "kind": "recurrent", "cell": "gru", "n_in": 8, "hidden": 8},
+            ],
+            "request.layers[1].kind",
+        ),
+        (
+            [_dense("a", 8, 8), {"name": "e", "kind": "embedding", "vocab": 5, "dim": 8}],
+            "request.layers[1].kind",
+        ),
+        (
+            [
+                {
+                    "name": "c",
+                    "kind": "conv",
+                    "channels_in": 2,
+                    "channels_out": 2,
+                    "kernel": [3, 3],
+                },
+                {"name": "d", "kind": "conv", "channels_in": 2, "channels_out": 2, "kernel": [3]},
+            ],
+            "request.layers[1].kernel",
+        ),
+        (
+            [
+                {
+                    "name": "c",
+                    "kind": "conv",
+                    "channels_in": 2,
+                    "channels_out": 2,
+                    "kernel": [3, 3],
+                    "branch": "b",
+                },
+                {
+                    "name": "d",
+                    "kind": "conv",
+                    "channels_in": 2,
+                    "channels_out": 2,
+                    "kernel": [3, 3],
+                    "stride": [2, 2],
+                    "branch": "b",
+                },
+            ],
+            "request.layers[1]",
+        ),
+    ],
+)
 def test_unsupported_structure_names_the_field(layers: list[dict[str, Any]], field: str) -> None:
     assert _fields({"request": {"seed": 1, "layers": layers}}) == [field]
 
 
 def test_structure_errors_in_blocks_point_at_the_block() -> None:
-    layers = [{"name": "tok", "kind": "embedding", "vocab": 10, "dim": 8},
-              {"name": "enc", "kind": "transformer_block", "dim": 8, "heads": 2, "mlp_dim": 16},
-              {"name": "rnn", "kind": "recurrent", "cell": "lstm", "n_in": 8, "hidden": 8}]
+    layers = [
+        {"name": "tok", "kind": "embedding", "vocab": 10, "dim": 8},
+        {"name": "enc", "kind": "transformer_block", "dim": 8, "heads": 2, "mlp_dim": 16},
+        {"name": "rnn", "kind": "recurrent", "cell": "lstm", "n_in": 8, "hidden": 8},
+    ]
     assert _fields({"request": {"seed": 1, "layers": layers}}) == ["request.layers[2].kind"]
 
 
@@ -130,23 +172,38 @@ def test_bad_bodies_name_the_field() -> None:
     assert _fields({"request": good, "batch": True}) == ["batch"]
     assert _fields({"request": good, "extra": 1}) == ["extra"]
     assert _fields({"request": {"seed": 1, "layers": []}}) == ["request.layers"]
-    assert _fields({"request": good, "alternatives": [
-        {"label": "x", "init": {"method": "he"}}, {"label": "x", "init": {"method": "he"}}]}
+    assert _fields(
+        {
+            "request": good,
+            "alternatives": [
+                {"label": "x", "init": {"method": "he"}},
+                {"label": "x", "init": {"method": "he"}},
+            ],
+        }
     ) == ["alternatives[1].label"]
-    assert _fields({"request": good, "alternatives": [
-        {"label": "recommended", "init": {"method": "he"}}]}) == ["alternatives[0].label"]
-    assert _fields({"request": good, "alternatives": [
-        {"label": "z", "init": {"method": "constant"}}]}) == ["alternatives[0].init.value"]
-    assert _fields({"request": {"seed": 1, "layers": [_dense("a", 4, 5)]}, "alternatives": [
-        {"label": "z", "init": {"method": "identity"}}]}) == ["alternatives[0].init"]
+    assert _fields(
+        {"request": good, "alternatives": [{"label": "recommended", "init": {"method": "he"}}]}
+    ) == ["alternatives[0].label"]
+    assert _fields(
+        {"request": good, "alternatives": [{"label": "z", "init": {"method": "constant"}}]}
+    ) == ["alternatives[0].init.value"]
+    assert _fields(
+        {
+            "request": {"seed": 1, "layers": [_dense("a", 4, 5)]},
+            "alternatives": [{"label": "z", "init": {"method": "identity"}}],
+        }
+    ) == ["alternatives[0].init"]
     with pytest.raises(RequestRejected) as caught:
         diagnose([1, 2])
     assert caught.value.problems[0].field == "(body)"
 
 
 def test_limits_refuse_before_running_with_the_numbers() -> None:
-    body = {"request": {"seed": 1, "layers": [_dense("a", 256, 256), _dense("b", 256, 256)]},
-            "alternatives": [{"label": "g", "init": {"method": "glorot"}}], "batch": 128}
+    body = {
+        "request": {"seed": 1, "layers": [_dense("a", 256, 256), _dense("b", 256, 256)]},
+        "alternatives": [{"label": "g", "init": {"method": "glorot"}}],
+        "batch": 128,
+    }
     for limits, field, number in [
         (DiagnosticLimits(max_batch=100), "batch", "100"),
         (DiagnosticLimits(max_alternatives=1, max_batch=128), None, None),
@@ -163,8 +220,11 @@ def test_limits_refuse_before_running_with_the_numbers() -> None:
         problem = caught.value.problems[0]
         assert problem.field == field and number in problem.message
     with pytest.raises(RequestRejected) as caught:
-        diagnose(dict(body, alternatives=[{"label": f"a{i}", "init": {"method": "he"}}
-                                          for i in range(9)]))
+        diagnose(
+            dict(
+                body, alternatives=[{"label": f"a{i}", "init": {"method": "he"}} for i in range(9)]
+            )
+        )
     assert caught.value.too_large and caught.value.problems[0].field == "alternatives"
     with pytest.raises(ValueError, match="max_batch"):
         DiagnosticLimits(max_batch=0)
@@ -172,14 +232,18 @@ def test_limits_refuse_before_running_with_the_numbers() -> None:
 
 # --- chart ----------------------------------------------------------------------------------
 
+
 @pytest.fixture(scope="module")
 def small_document() -> dict[str, Any]:
     layers = [_dense(f"h{i}", 32, 32, activation="relu") for i in range(8)]
-    body = {"request": {"seed": 7, "layers": layers},
-            "alternatives": [{"label": "tiny (0.01)", "init": {"method": "symmetric_uniform",
-                                                              "bound": 0.01}},
-                             {"label": "flat", "init": {"method": "constant", "value": 0.0}}],
-            "batch": 16}
+    body = {
+        "request": {"seed": 7, "layers": layers},
+        "alternatives": [
+            {"label": "tiny (0.01)", "init": {"method": "symmetric_uniform", "bound": 0.01}},
+            {"label": "flat", "init": {"method": "constant", "value": 0.0}},
+        ],
+        "batch": 16,
+    }
     return diagnosis_document(diagnose(body))
 
 
@@ -205,13 +269,22 @@ def test_chart_html_embeds_the_svg_and_the_verdicts(small_document: dict[str, An
 
 
 def test_mean_field_groups_are_capped_with_a_note() -> None:
-    layers = [_dense(f"h{i}", 16, 16, activation="tanh",
-                     bias_init={"method": "constant", "value": 0.01 * (i + 1)})
-              for i in range(10)]
-    run = diagnosis_document(diagnose({"request": {"seed": 1, "layers": layers},
-                                       "batch": 4}))["runs"][0]
+    layers = [
+        _dense(
+            f"h{i}",
+            16,
+            16,
+            activation="tanh",
+            bias_init={"method": "constant", "value": 0.01 * (i + 1)},
+        )
+        for i in range(10)
+    ]
+    run = diagnosis_document(diagnose({"request": {"seed": 1, "layers": layers}, "batch": 4}))[
+        "runs"
+    ][0]
     assert len(run["mean_field"]) == 8
     assert [e["sigma_b2"] for e in run["mean_field"]] == pytest.approx(
-        [(0.01 * (i + 1)) ** 2 for i in range(8)])
+        [(0.01 * (i + 1)) ** 2 for i in range(8)]
+    )
     (note,) = run["mean_field_notes"]
     assert "2 more group(s) covering 2 layer(s)" in note

@@ -32,8 +32,17 @@ BOUND = 0.01
 
 
 def _mlp(width: int, depth: int, act: str = "relu", **extra: Any) -> list[dict[str, Any]]:
-    return [{"name": f"h{i}", "kind": "dense", "n_in": width, "n_out": width,
-             "activation": act, **extra} for i in range(depth)]
+    return [
+        {
+            "name": f"h{i}",
+            "kind": "dense",
+            "n_in": width,
+            "n_out": width,
+            "activation": act,
+            **extra,
+        }
+        for i in range(depth)
+    ]
 
 
 @pytest.fixture(scope="module")
@@ -70,8 +79,9 @@ def test_tiny_uniform_vanishes_within_ten_layers(deep_relu: dict[str, Any]) -> N
     # He et al. 2015's derivation: each layer multiplies the std by sqrt(n Var[w] / 2)
     predicted = math.sqrt(WIDTH * BOUND**2 / 3 / 2)
     for below, above in itertools.pairwise(layers[1:9]):
-        assert above["activation_std"] / below["activation_std"] == pytest.approx(predicted,
-                                                                                 rel=0.1)
+        assert above["activation_std"] / below["activation_std"] == pytest.approx(
+            predicted, rel=0.1
+        )
 
 
 def test_all_constant_is_symmetric_at_the_first_hidden_layer(deep_relu: dict[str, Any]) -> None:
@@ -91,8 +101,9 @@ def test_the_document_is_strict_json(deep_relu: dict[str, Any]) -> None:
 
 
 def _run(request: dict[str, Any], batch: int = 32) -> dict[str, Any]:
-    run: dict[str, Any] = diagnosis_document(diagnose({"request": request,
-                                                       "batch": batch}))["runs"][0]
+    run: dict[str, Any] = diagnosis_document(diagnose({"request": request, "batch": batch}))[
+        "runs"
+    ][0]
     return run
 
 
@@ -102,8 +113,7 @@ def test_large_gain_explodes_and_overflow_is_reported_as_null() -> None:
     # per layer the std grows by gain * sqrt(1/2) ~ 7e4: past 1e3 at the second layer
     assert run["verdict"] == "exploding" and run["failed_at"] == "h1"
     assert run["failed_quantity"] == "activation_std" and run["failed_ratio"] > 1e3
-    assert any(layer["non_finite"] and layer["activation_std"] is None
-               for layer in run["layers"])
+    assert any(layer["non_finite"] and layer["activation_std"] is None for layer in run["layers"])
 
 
 def test_sigmoid_stack_vanishes_in_the_gradients_only() -> None:
@@ -115,12 +125,31 @@ def test_sigmoid_stack_vanishes_in_the_gradients_only() -> None:
 
 
 def test_fixup_resnet_is_not_symmetric_nor_vanishing() -> None:
-    layers = [{"name": "stem", "kind": "conv", "channels_in": 3, "channels_out": 16,
-               "kernel": [3, 3], "activation": "relu"},
-              {"name": "res", "kind": "residual_conv_block", "channels": 16, "kernel": [3, 3],
-               "repeat": 4},
-              {"name": "cls", "kind": "conv", "channels_in": 16, "channels_out": 10,
-               "kernel": [1, 1], "role": "output"}]
+    layers = [
+        {
+            "name": "stem",
+            "kind": "conv",
+            "channels_in": 3,
+            "channels_out": 16,
+            "kernel": [3, 3],
+            "activation": "relu",
+        },
+        {
+            "name": "res",
+            "kind": "residual_conv_block",
+            "channels": 16,
+            "kernel": [3, 3],
+            "repeat": 4,
+        },
+        {
+            "name": "cls",
+            "kind": "conv",
+            "channels_in": 16,
+            "channels_out": 10,
+            "kernel": [1, 1],
+            "role": "output",
+        },
+    ]
     run = _run({"seed": 4, "layers": layers, "depth_policy": {"name": "fixup"}}, batch=8)
     assert run["verdict"] == "stable", run["reason"]
     ends = [layer for layer in run["layers"] if layer["branch"] and layer["main_path"]]
@@ -130,10 +159,18 @@ def test_fixup_resnet_is_not_symmetric_nor_vanishing() -> None:
 
 
 def test_skip_gate_transformer_is_stable() -> None:
-    layers = [{"name": "tok", "kind": "embedding", "vocab": 64, "dim": 32},
-              {"name": "enc", "kind": "transformer_block", "dim": 32, "heads": 4,
-               "mlp_dim": 64, "repeat": 3},
-              {"name": "head", "kind": "dense", "n_in": 32, "n_out": 64, "role": "output"}]
+    layers = [
+        {"name": "tok", "kind": "embedding", "vocab": 64, "dim": 32},
+        {
+            "name": "enc",
+            "kind": "transformer_block",
+            "dim": 32,
+            "heads": 4,
+            "mlp_dim": 64,
+            "repeat": 3,
+        },
+        {"name": "head", "kind": "dense", "n_in": 32, "n_out": 64, "role": "output"},
+    ]
     run = _run({"seed": 5, "layers": layers, "depth_policy": {"name": "skip_gate"}}, batch=4)
     assert run["verdict"] == "stable", run["reason"]
     inner = [layer for layer in run["layers"] if layer["branch"] and not layer["main_path"]]

@@ -80,7 +80,10 @@ def test_48_block_transformer_expands_to_documented_names_and_count() -> None:
     # pre-norm: each norm opens its branch; the attention / mlp_out layer closes it
     assert [request.layers[k].name for k in first_attn.indices] == ["enc.0.attn_norm", "enc.0.attn"]
     assert [request.layers[k].name for k in first_mlp.indices] == [
-        "enc.0.mlp_norm", "enc.0.mlp_in", "enc.0.mlp_out"]
+        "enc.0.mlp_norm",
+        "enc.0.mlp_in",
+        "enc.0.mlp_out",
+    ]
     assert request.layers[first_attn.last_map or 0].role == "residual_out"
     assert request.layers[first_mlp.last_map or 0].name == "enc.0.mlp_out"
     mlp_in = request.layers[4]
@@ -128,8 +131,11 @@ def test_residual_conv_block_variants(norm: str | None, expected: list[tuple[str
     got = [(layer.name, layer.activation) for layer in request.layers[: len(expected)]]
     assert got == [(f"res.0.{part}", act) for part, act in expected]
     assert len(request.layers) == 3 * len(expected)
-    assert [b.name for b in branches_of(request)] == ["res.0.branch", "res.1.branch",
-                                                       "res.2.branch"]
+    assert [b.name for b in branches_of(request)] == [
+        "res.0.branch",
+        "res.1.branch",
+        "res.2.branch",
+    ]
     convs = [layer for layer in request.layers if layer.kind == "conv"]
     assert all(c.channels_in == c.channels_out == 8 for c in convs)  # type: ignore[union-attr]
     assert [c.role for c in convs[:2]] == ["hidden", "residual_out"]
@@ -139,8 +145,12 @@ def test_shorthand_means_the_same_as_its_expansion_written_out() -> None:
     # The canonical form (the ETag's basis) and every tensor's bytes are those of the expanded
     # layers written by hand: the shorthand is notation, not a different network.
     short = {"seed": 5, "layers": [block(repeat=2, activation="leaky_relu")]}
-    written = {"seed": 5, "layers": block_layer_dicts(
-        TransformerBlock.model_validate(block(repeat=2, activation="leaky_relu")))}
+    written = {
+        "seed": 5,
+        "layers": block_layer_dicts(
+            TransformerBlock.model_validate(block(repeat=2, activation="leaky_relu"))
+        ),
+    }
     assert canonical_request(parse(short).request) == canonical_request(parse(written).request)
     a, b = build_plan(short), build_plan(written)
     assert a.tensors == b.tensors
@@ -197,8 +207,9 @@ def test_expanded_count_boundary() -> None:
 
 def test_model_validation_checks_the_expanded_count_too() -> None:
     with pytest.raises(Exception, match="expand to 15 layers"):
-        NetworkRequest.model_validate({"seed": 1, "layers": [block(repeat=3)]},
-                                      context={"limits": Limits(max_layers=14)})
+        NetworkRequest.model_validate(
+            {"seed": 1, "layers": [block(repeat=3)]}, context={"limits": Limits(max_layers=14)}
+        )
 
 
 def test_a_huge_repeat_is_named_without_printing_it() -> None:
@@ -232,19 +243,26 @@ def test_expanded_names_must_fit_the_name_limit() -> None:
         ({"mlp_dim": None}, "layers[1].mlp_dim", "invalid_type"),
     ],
 )
-def test_block_field_errors_point_at_the_block(change: dict[str, Any], field: str,
-                                               code: str) -> None:
+def test_block_field_errors_point_at_the_block(
+    change: dict[str, Any], field: str, code: str
+) -> None:
     err = rejected({"seed": 1, "layers": [dense("stem"), {**block(), **change}]})
     assert (field, code) in fields(err), fields(err)
 
 
 def test_errors_after_a_block_keep_the_written_index() -> None:
     # The dense layer is layers[1] as written, though it is the 11th layer after expansion.
-    err = rejected({"seed": 1, "layers": [block(repeat=2), dense("head", bias=False,
-                                                                  bias_init=None, n_out=0)]})
+    err = rejected(
+        {"seed": 1, "layers": [block(repeat=2), dense("head", bias=False, bias_init=None, n_out=0)]}
+    )
     assert fields(err) == [("layers[1].n_out", "invalid_value")]
-    err = rejected({"seed": 1, "layers": [block(repeat=2), dense("head", init={
-        "method": "he", "std": 1e300})], "dtype": "float32"})
+    err = rejected(
+        {
+            "seed": 1,
+            "layers": [block(repeat=2), dense("head", init={"method": "he", "std": 1e300})],
+            "dtype": "float32",
+        }
+    )
     assert fields(err) == [("layers[1].init.std", "invalid_value")]
 
 
@@ -302,8 +320,9 @@ def test_branch_misuse_is_refused_with_the_field() -> None:
          "layers[1].dim", ("16 features", "output 32")),
     ],
 )  # fmt: skip
-def test_branch_width_mismatch_names_the_output_field(layers: list[dict[str, Any]], field: str,
-                                                      numbers: tuple[str, str]) -> None:
+def test_branch_width_mismatch_names_the_output_field(
+    layers: list[dict[str, Any]], field: str, numbers: tuple[str, str]
+) -> None:
     err = rejected({"seed": 1, "layers": layers})
     (p,) = err.problems
     assert (p.field, p.code) == (field, "invalid_value")
@@ -313,8 +332,10 @@ def test_branch_width_mismatch_names_the_output_field(layers: list[dict[str, Any
 def test_matching_branches_are_accepted_and_found() -> None:
     layers = [dense("stem", 8, 16, activation="relu")]
     for i in range(3):
-        layers += [dense(f"b{i}.up", 16, 64, activation="relu", branch=f"r{i}"),
-                   dense(f"b{i}.down", 64, 16, role="residual_out", branch=f"r{i}")]
+        layers += [
+            dense(f"b{i}.up", 16, 64, activation="relu", branch=f"r{i}"),
+            dense(f"b{i}.down", 64, 16, role="residual_out", branch=f"r{i}"),
+        ]
     layers.append(dense("head", 16, 2, role="output"))
     request = parse({"seed": 1, "layers": layers}).request
     found = [(b.name, b.start, b.stop, b.maps) for b in branches_of(request)]
@@ -323,8 +344,12 @@ def test_matching_branches_are_accepted_and_found() -> None:
 
 def test_an_embedding_cannot_sit_in_a_branch() -> None:
     # It reads token ids, not the branch's input, so its output cannot be added back to it.
-    err = rejected({"seed": 1, "layers": [
-        {"name": "e", "kind": "embedding", "vocab": 10, "dim": 4, "branch": "b"}]})
+    err = rejected(
+        {
+            "seed": 1,
+            "layers": [{"name": "e", "kind": "embedding", "vocab": 10, "dim": 4, "branch": "b"}],
+        }
+    )
     assert ("layers[0].branch", "not_allowed") in fields(err)
 
 
@@ -335,8 +360,9 @@ def test_branches_keep_the_drift_estimate_to_the_trunk() -> None:
         layers = []
         for i in range(30):
             extra = {"branch": f"r{i}"} if with_branches else {}
-            layers.append(dense(f"l{i}", activation="relu",
-                                init={"method": "he", "std": 0.01}, **extra))
+            layers.append(
+                dense(f"l{i}", activation="relu", init={"method": "he", "std": 0.01}, **extra)
+            )
         return {"seed": 1, "layers": layers}
 
     assert not any("shrinks" in w for w in build_plan(body(True)).warnings)
@@ -377,8 +403,13 @@ def test_the_example_in_the_depth_guide_is_valid_and_as_described() -> None:
 
 def test_new_models_explain_every_field_and_examples_are_valid() -> None:
     # The models feed the OpenAPI document: every field needs a description and an example.
-    for model in (TransformerBlock, ResidualConvBlock, *POLICY_MODELS.values(),
-                  NetworkRequest, DenseLayer):
+    for model in (
+        TransformerBlock,
+        ResidualConvBlock,
+        *POLICY_MODELS.values(),
+        NetworkRequest,
+        DenseLayer,
+    ):
         for name, info in model.model_fields.items():
             assert info.description and info.examples, f"{model.__name__}.{name}"
     for example in NetworkRequest.model_json_schema()["examples"]:

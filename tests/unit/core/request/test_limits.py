@@ -81,8 +81,9 @@ def test_request_element_limit_sums_every_tensor() -> None:
     limits = Limits(max_request_elements=100)
     # 9*10 weight + 9 bias = 99 elements: fits; one more layer of 2x1 (+1 bias) does not.
     parse({"seed": 1, "layers": [dense("a", 10, 9)]}, limits)
-    err = rejected({"seed": 1, "layers": [dense("a", 10, 9), dense("b", 1, 2)],
-                    "widths": "unchecked"}, limits)
+    err = rejected(
+        {"seed": 1, "layers": [dense("a", 10, 9), dense("b", 1, 2)], "widths": "unchecked"}, limits
+    )
     (p,) = err.problems
     assert (p.field, p.code) == ("layers", "too_large")
     assert "103 elements in total" in p.message and "limit is 100" in p.message
@@ -111,9 +112,7 @@ def test_largest_allowed_size_reaches_the_element_limit_with_its_numbers() -> No
 
 def test_orthogonal_override_size() -> None:
     limits = Limits(max_orthogonal_dim=64)
-    parse(
-        {"seed": 1, "layers": [dense("sq", 64, 64, init={"method": "orthogonal"})]}, limits
-    )
+    parse({"seed": 1, "layers": [dense("sq", 64, 64, init={"method": "orthogonal"})]}, limits)
     conv = {"name": "k", "kind": "conv", "channels_in": 8, "channels_out": 16, "kernel": [3, 3],
             "init": {"method": "orthogonal"}}  # fmt: skip
     err = rejected({"seed": 1, "layers": [conv]}, limits)

@@ -227,7 +227,9 @@ def test_table_is_large_enough() -> None:
     assert len({case[0] for case in BAD}) == len(BAD)
 
 
-@pytest.mark.parametrize(("label", "body", "field", "code", "allowed"), BAD, ids=[b[0] for b in BAD])  # noqa: E501
+@pytest.mark.parametrize(
+    ("label", "body", "field", "code", "allowed"), BAD, ids=[b[0] for b in BAD]
+)
 def test_bad_input(label: str, body: object, field: str, code: str, allowed: str) -> None:
     err = rejected(copy.deepcopy(body))
     found = [p for p in err.problems if p.field == field]
@@ -472,8 +474,10 @@ def _override(draw: st.DrawFn) -> dict[str, Any]:
         if draw(st.booleans()):
             out["gain"] = draw(positive | st.integers(min_value=1, max_value=5))
     else:
-        dist = "uniform" if method == "symmetric_uniform" else draw(
-            st.sampled_from(["uniform", "normal", "truncated_normal"])
+        dist = (
+            "uniform"
+            if method == "symmetric_uniform"
+            else draw(st.sampled_from(["uniform", "normal", "truncated_normal"]))
         )
         if draw(st.booleans()):
             out["distribution"] = dist
@@ -571,8 +575,15 @@ def test_canonical_form_is_a_fixed_point(body: dict[str, Any]) -> None:
     assert again == first
 
 
-@pytest.mark.parametrize(("kind", "said"), [({}, "an object"), ([1], "a list of 1 items"),
-                                            (5, "the integer 5"), ("dens", "the string 'dens'")])
+@pytest.mark.parametrize(
+    ("kind", "said"),
+    [
+        ({}, "an object"),
+        ([1], "a list of 1 items"),
+        (5, "the integer 5"),
+        ("dens", "the string 'dens'"),
+    ],
+)
 def test_bad_kind_is_described_as_sent(kind: object, said: str) -> None:
     with pytest.raises(RequestRejected) as err:
         parse({"seed": 1, "layers": [{"name": "a", "kind": kind}]})
