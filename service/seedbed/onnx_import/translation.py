@@ -991,14 +991,19 @@ def translate(
     bindings: list[Binding] = []
     inference: list[dict[str, Any]] = []
     claimed: set[str] = set()
+    # Names of the layer group emitted last: a bidirectional layer's two halves both read what
+    # came before them, and whatever follows reads both halves joined (widths add up).
+    previous: list[str] = []
     for layer in reader.layers:
         names = (
             [layer.name]
             if layer.directions == 1
             else [f"{layer.name}.forward", f"{layer.name}.reverse"]
         )
-        for name in names:
+        for position, name in enumerate(names):
             entry: dict[str, Any] = {"name": name, **layer.fields}
+            if not layer.branch and (position == 1 or len(previous) > 1):
+                entry["reads"] = list(previous)
             if layer.fields["kind"] != "recurrent" or layer.fields["cell"] == "simple":
                 entry["activation"] = layer.activation
                 if layer.activation_param is not None:
@@ -1008,6 +1013,7 @@ def translate(
             if layer.branch:
                 entry["branch"] = layer.branch
             layers_json.append(entry)
+        previous = names
         for init, part, args in layer.bindings:
             claimed.add(init)
             if init in keep_set:
