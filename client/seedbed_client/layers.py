@@ -139,6 +139,9 @@ class LayerSpec:
     class_prior: float | None = None  # output layers: bias = log(pi / (1 - pi))
     branch: str | None = None  # residual branch (consecutive layers with one name; docs/depth.md)
     block: str | None = None  # a label grouping layers in the plan's layer list
+    # What the layer reads when it is not the layer listed before it (a second head on a trunk,
+    # a projection skip, a concatenation); () reads the network input (docs/service.md).
+    reads: tuple[str, ...] | None = None
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {"name": self.name, "kind": self.kind}
@@ -209,6 +212,17 @@ class LayerSpec:
                     f"{where}.role",
                     "invalid_value",
                     f"got {self.role!r}; allowed: {', '.join(ROLES)}",
+                )
+            )
+        if self.reads is not None and not (
+            isinstance(self.reads, tuple | list)
+            and all(isinstance(r, str) and _NAME.fullmatch(r) for r in self.reads)
+        ):
+            out.append(
+                Problem(
+                    f"{where}.reads",
+                    "invalid_value",
+                    f"got {self.reads!r}; allowed: a list of layer names",
                 )
             )
         for label in ("branch", "block"):
@@ -673,6 +687,8 @@ class NetworkSpec:
     dtype: str = "float32"
     layout: str = "out_in"
     depth_policy: DepthPolicy | None = None
+    # "unchecked": a collection of layers whose widths need not chain (docs/service.md)
+    widths: str | None = None
 
     @classmethod
     def from_request(cls, request: Mapping[str, Any]) -> NetworkSpec:
@@ -689,7 +705,7 @@ class NetworkSpec:
                 data["bias_value"] = bias_init.get("value")
             if "init" in data:
                 data["init"] = InitOverride(**data["init"])
-            for key in ("kernel", "stride", "gate_order"):
+            for key in ("kernel", "stride", "gate_order", "reads"):
                 if isinstance(data.get(key), list):
                     data[key] = tuple(data[key])
             layers.append(LAYER_CLASSES[kind](**data))
@@ -700,6 +716,7 @@ class NetworkSpec:
             dtype=request.get("dtype", "float32"),
             layout=request.get("layout", "out_in"),
             depth_policy=None if policy is None else DepthPolicy.from_dict(policy),
+            widths=request.get("widths"),
         )
 
     def add(self, *layers: LayerSpec) -> NetworkSpec:
@@ -835,6 +852,8 @@ class NetworkSpec:
         }
         if self.depth_policy is not None:
             out["depth_policy"] = self.depth_policy.to_dict()
+        if self.widths is not None:
+            out["widths"] = self.widths
         return out
 
     def to_request(self, limits: RequestLimits | None = None) -> dict[str, Any]:

@@ -18,7 +18,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
-from e2e.server import RunningServer
+from support.server import RunningServer
 
 from .conftest import ROOT
 

@@ -22,8 +22,8 @@ from typing import Any
 import numpy as np
 import pytest
 
-from .networks import greenhouse_controller, harbor_crane_monitor, variant
-from .server import ROOT, RunningServer
+from support.networks import greenhouse_controller, harbor_crane_monitor, variant
+from support.server import ROOT, RunningServer
 
 
 def run_cli(

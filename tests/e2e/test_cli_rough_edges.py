@@ -16,7 +16,7 @@ from pathlib import Path
 
 import pytest
 
-from .server import RunningServer
+from support.server import RunningServer
 
 pytestmark = pytest.mark.skipif(sys.platform == "win32", reason="POSIX pipes and modes")
 

@@ -25,8 +25,8 @@ import pytest
 from seedbed_client import AsyncClient, Client, RetryPolicy
 from seedbed_client.errors import ServiceUnavailable, SpecInvalid
 
-from .networks import greenhouse_controller, variant
-from .server import RunningServer
+from support.networks import greenhouse_controller, variant
+from support.server import RunningServer
 
 QUICK = RetryPolicy(attempts=1)
 

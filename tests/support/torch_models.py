@@ -199,7 +199,7 @@ def _bn(name: str, dim: int, activation: str, **extra: Any) -> dict[str, Any]:
 def kiln_request() -> dict[str, Any]:
     layers = [_conv("stem", 3, 16, 3), _bn("stem_bn", 16, "relu")]
 
-    def block(i: int, c_in: int, c_out: int, stride: int) -> list[dict[str, Any]]:
+    def block(i: int, c_in: int, c_out: int, stride: int, block_input: str) -> list[dict[str, Any]]:
         p = f"stage.{i}"
         identity = c_in == c_out and stride == 1
         br = {"branch": f"{p}.conv3.skip"} if identity else {}
@@ -213,12 +213,17 @@ def kiln_request() -> dict[str, Any]:
         ]
         if not identity:  # the projection skip runs after the branch in forward
             body += [
-                _conv(f"{p}.down.0", c_in, c_out, 1, stride),
+                # it reads the block's input, not the branch's end listed before it
+                _conv(f"{p}.down.0", c_in, c_out, 1, stride, reads=[block_input]),
                 _bn(f"{p}.down.1", c_out, "linear"),
             ]
         return body
 
-    layers += block(0, 16, 16, 1) + block(1, 16, 32, 2) + block(2, 32, 32, 1)
+    layers += (
+        block(0, 16, 16, 1, "stem_bn")
+        + block(1, 16, 32, 2, "stage.0.bn3")
+        + block(2, 32, 32, 1, "stage.1.down.1")
+    )
     layers.append(
         {
             "name": "fc",

@@ -412,6 +412,12 @@ def _assign_branches(flow: g.Flow, parts: list[Part], facts: list[LayerFacts],
             )
             if last is not None and parts[last].layer.get("role", "hidden") == "hidden":
                 parts[last].layer["role"], facts[last].role_from = "residual_out", source
+            if feeds and skip_layers:
+                # The projection does not read the layer listed before it (the branch's end)
+                # but the block's input: say so, or the service's width check would refuse it.
+                for part in parts:
+                    if part.layer["name"] == skip_layers[0]:
+                        part.layer["reads"] = [feeds[-1]]
             continue
         if any(k in taken for k in members):
             notes.append(
