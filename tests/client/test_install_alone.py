@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import pytest
+
 from support.server import RunningServer
 
 from .conftest import ROOT

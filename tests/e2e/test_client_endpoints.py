@@ -24,7 +24,6 @@ import pytest
 
 from seedbed_client import AsyncClient, Client, RetryPolicy
 from seedbed_client.errors import ServiceUnavailable, SpecInvalid
-
 from support.networks import greenhouse_controller, variant
 from support.server import RunningServer
 
