@@ -203,7 +203,7 @@ def _place(delivery: Delivery, target: Path) -> int:
         raise RuntimeError("save() needs a spooled delivery")
     # The spool file was created private (mkstemp: 0600); the saved file gets the mode any other
     # program's new file gets, 0666 less the process umask, before it appears under its name.
-    os.chmod(delivery.path, 0o666 & ~current_umask())
+    os.chmod(delivery.path, 0o666 & ~_current_umask())
     os.replace(delivery.path, target)
     return target.stat().st_size
 
@@ -218,7 +218,7 @@ def _arrays_of(delivery: Delivery) -> dict[str, np.ndarray]:
         delivery.handle.close()  # each array's map keeps its own reference to the file
 
 
-def current_umask() -> int:
+def _current_umask() -> int:
     """The process umask. Reading it means setting it, so it is put back at once."""
     mask = os.umask(0o077)
     os.umask(mask)

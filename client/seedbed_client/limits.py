@@ -197,7 +197,9 @@ def limit_problems(request: Mapping[str, Any], limits: RequestLimits) -> list[Pr
     for check in (wire_facts.layer_count_refusal, wire_facts.expanded_count_refusal):
         refusal = check(layers, limits.max_layers)
         if refusal is not None:
-            return [Problem(*refusal)]
+            field, code, message = refusal
+            # Word for word the service's refusal, which names the setting that raises it.
+            return [Problem(field, code, message + wire_facts.raised_by("max_layers"))]
     names: list[Problem] = []
     for i, layer in enumerate(layers):
         name = layer.get("name") if isinstance(layer, Mapping) else None

@@ -161,6 +161,12 @@ def layer_count_refusal(layers: Sequence[object], max_layers: int) -> Refusal | 
     )
 
 
+def raised_by(limit: str, prefix: str = "SEEDBED_") -> str:
+    """ "; the service's setting SEEDBED_<LIMIT> raises it": the end of a limit's refusal, so that
+    whoever runs the service knows which variable to raise."""
+    return f"; the service's setting {prefix}{limit.upper()} raises it"
+
+
 def expanded_count_refusal(layers: Sequence[object], max_layers: int) -> Refusal | None:
     """The layers expand to more than the limit once block shorthands are expanded.
 
@@ -220,5 +226,6 @@ __all__ = [
     "expanded_count_refusal",
     "is_block_item",
     "layer_count_refusal",
+    "raised_by",
     "raw_layer_count",
 ]

@@ -425,7 +425,8 @@ def test_limits_count_every_kind_like_the_service() -> None:
     from seedbed.core.tensors import request_slots
 
     request = (
-        NetworkSpec(seed=3)
+        # one layer of each kind, not a network: their widths need not chain
+        NetworkSpec(seed=3, widths="unchecked")
         .add(
             DenseSpec("d", 5, 7),
             ConvSpec("c", 6, 4, (3, 2), groups=2, transposed=True),

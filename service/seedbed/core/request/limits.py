@@ -84,8 +84,9 @@ SETTING_PREFIX = "SEEDBED_"
 
 
 def raised_by(limit: str, prefix: str = SETTING_PREFIX) -> str:
-    """ "; the service's setting SEEDBED_<LIMIT> raises it", to end a refusal with."""
-    return f"; the service's setting {prefix}{limit.upper()} raises it"
+    """ "; the service's setting SEEDBED_<LIMIT> raises it", to end a refusal with (one
+    spelling, shared with the client's local checks)."""
+    return wire_facts.raised_by(limit, prefix)
 
 
 def limits_from_context(info: ValidationInfo) -> Limits:
