@@ -48,6 +48,7 @@ def test_show_into_a_closed_pipe_ends_quietly(service: RunningServer, tmp_path: 
     assert proc.stdout is not None and proc.stderr is not None
     proc.stdout.close()  # the reader went away, as `| head -0` would
     stderr = proc.stderr.read().decode()
+    proc.stderr.close()
     code = proc.wait(timeout=60)
     assert "Traceback" not in stderr and "BrokenPipe" not in stderr, stderr
     assert code == -signal.SIGPIPE, (code, stderr)
