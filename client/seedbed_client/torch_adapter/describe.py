@@ -338,6 +338,7 @@ def describe_module(
         p.layer.update((layer_options or {}).get(name, {}))
         f.role = p.layer.get("role", "hidden")
         f.branch = p.layer.get("branch")
+    _say_what_bidirectional_layers_read([p.layer for p in parts])
     request: dict[str, Any] = {
         "seed": seed,
         "dtype": DTYPES[next(iter(dtypes))],
@@ -465,3 +466,23 @@ def _check_locally(request: dict[str, Any], modules: list[str]) -> None:
     problems = request_problems(request)
     if problems:
         raise SpecInvalid(qualified_problems(problems, modules))
+
+
+def _say_what_bidirectional_layers_read(layers: list[dict[str, Any]]) -> None:
+    """A bidirectional recurrent layer is two seedbed layers side by side: its reverse half reads
+    what the forward half reads, and whatever comes next reads both halves joined. The layer
+    list alone would chain them one after the other, so each such step names what it reads."""
+    names = [layer["name"] for layer in layers]
+    for i, layer in enumerate(layers):
+        if layer["kind"] != "recurrent" or not layer["name"].endswith("_reverse"):
+            continue
+        forward = layer["name"][: -len("_reverse")]
+        if i == 0 or names[i - 1] != forward:
+            continue
+        if "reads" not in layer and "branch" not in layer:
+            before = layers[i - 1].get("reads", [names[i - 2]] if i >= 2 else [])
+            layer["reads"] = list(before)
+        if i + 1 < len(layers):
+            after = layers[i + 1]
+            if "reads" not in after and "branch" not in after:
+                after["reads"] = [forward, layer["name"]]

@@ -499,7 +499,7 @@ def test_downloaded_file_verifies_against_its_manifest(
 
 
 def test_compose_reads_an_uploaded_file(watched: Watched, tmp_path: Path) -> None:
-    from .. import networks
+    from support import networks
 
     path = tmp_path / "controller.json"
     path.write_text(json.dumps(networks.greenhouse_controller()))
