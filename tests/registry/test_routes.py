@@ -35,6 +35,8 @@ BIRDSONG: dict[str, Any] = {
     "seed": "dawn-chorus-2026",
     "dtype": "float32",
     "layout": "out_in",
+    # one layer of each kind rather than a network: widths need not chain
+    "widths": "unchecked",
     "layers": [
         {"name": "calls", "kind": "embedding", "vocab": 40, "dim": 16},
         {
