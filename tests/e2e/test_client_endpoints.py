@@ -16,6 +16,7 @@ import subprocess
 import sys
 import xml.etree.ElementTree as ET
 from collections.abc import Callable, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Any
 
@@ -188,7 +189,10 @@ def test_async_client_does_the_same(
             assert (await client.audit(good, request)).passed
             assert (await client.diagnose(_deep_sigmoid())).passed
 
-    asyncio.run(go())
+    # A fresh thread has no event loop of its own, whatever an earlier test (the browser
+    # driver's sync API) left running on this one.
+    with ThreadPoolExecutor(1) as pool:
+        pool.submit(asyncio.run, go()).result()
 
 
 @pytest.fixture(scope="module")
