@@ -57,20 +57,25 @@ def _too_large(limit: int, seen: str) -> ApiError:
     )
 
 
+def declared_length(request: Request) -> int | None:
+    """The body's declared Content-Length (None when chunked); 400 when it is not a number.
+    Every upload route checks it against its limit before reading a byte."""
+    declared = request.headers.get("content-length")
+    if declared is None:
+        return None
+    if not declared.strip().isdigit():
+        raise ApiError.one(
+            400, "content-length", "invalid_value", f"Content-Length {declared!r} is not a number"
+        )
+    return int(declared)
+
+
 async def read_json_body(request: Request, max_bytes: int) -> Any:
     """Parse the body as strict JSON, refusing it before reading when it is declared too big."""
     _check_content_type(request)
-    declared = request.headers.get("content-length")
-    if declared is not None:
-        if not declared.strip().isdigit():
-            raise ApiError.one(
-                400,
-                "content-length",
-                "invalid_value",
-                f"Content-Length {declared!r} is not a number",
-            )
-        if int(declared) > max_bytes:
-            raise _too_large(max_bytes, declared.strip())
+    declared = declared_length(request)
+    if declared is not None and declared > max_bytes:
+        raise _too_large(max_bytes, str(declared))
     parts: list[bytes] = []
     total = 0
     async for chunk in request.stream():

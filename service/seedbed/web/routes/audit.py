@@ -33,6 +33,7 @@ from seedbed.formats.upload_in import audit_upload
 from seedbed.settings import Settings
 from seedbed.web.dependencies import audit_limits_of, settings_of
 from seedbed.web.errors import ApiError, Fault
+from seedbed.web.json_body import declared_length
 from seedbed.web.openapi_doc import EXAMPLES, REQUEST_SCHEMA_NAME, error_responses
 
 router = APIRouter(tags=["audit"])
@@ -61,17 +62,6 @@ def _too_large(field: str, seen: str, limit: int, what: str) -> ApiError:
         f"the {what} is {seen} bytes; at most {limit} bytes are accepted "
         f"({MAX_AUDIT_ENV} for the file)",
     )
-
-
-def _declared_length(request: Request) -> int | None:
-    declared = request.headers.get("content-length")
-    if declared is None:
-        return None
-    if not declared.strip().isdigit():
-        raise ApiError.one(
-            400, "content-length", "invalid_value", f"Content-Length {declared!r} is not a number"
-        )
-    return int(declared)
 
 
 class _CappedSpool:
@@ -111,7 +101,7 @@ class _CappedBuffer:
 
 async def _read_raw(request: Request, limits: AuditLimits) -> _CappedSpool:
     limit = limits.max_upload_bytes
-    declared = _declared_length(request)
+    declared = declared_length(request)
     if declared is not None and declared > limit:
         raise _too_large("(body)", str(declared), limit, "upload")
     spool = _CappedSpool(limit, "(body)")
@@ -162,7 +152,7 @@ async def _read_form(
     request: Request, limits: AuditLimits, request_limit: int
 ) -> tuple[_CappedSpool, bytes | None]:
     whole = limits.max_upload_bytes + request_limit + FRAMING_ALLOWANCE
-    declared = _declared_length(request)
+    declared = declared_length(request)
     if declared is not None and declared > whole:
         raise _too_large("(body)", str(declared), whole, "upload")
     try:

@@ -27,6 +27,7 @@ from seedbed.onnx_import.pipeline import ImportedModel, import_model
 from seedbed.onnx_import.rewrite import seeded_model
 from seedbed.web.dependencies import settings_of
 from seedbed.web.errors import ApiError, Fault
+from seedbed.web.json_body import declared_length
 from seedbed.web.openapi_doc import error_responses
 from seedbed.web.weights_response import Rearranged, WeightsOptions, weights_response
 
@@ -106,17 +107,6 @@ def _too_large(seen: str, limit: int) -> ApiError:
     )
 
 
-def _declared_length(request: Request) -> int | None:
-    declared = request.headers.get("content-length")
-    if declared is None:
-        return None
-    if not declared.strip().isdigit():
-        raise ApiError.one(
-            400, "content-length", "invalid_value", f"Content-Length {declared!r} is not a number"
-        )
-    return int(declared)
-
-
 class _Buffer:
     def __init__(self, limit: int) -> None:
         self.parts: list[bytes] = []
@@ -147,7 +137,7 @@ async def read_model(request: Request) -> bytes:
             f"{MULTIPART}",
         )
     whole = limit if media != MULTIPART else limit + FRAMING_ALLOWANCE
-    declared = _declared_length(request)
+    declared = declared_length(request)
     if declared is not None and declared > whole:
         raise _too_large(str(declared), whole)
     if media != MULTIPART:
