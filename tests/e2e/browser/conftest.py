@@ -50,7 +50,10 @@ def bench_server(server_factory: ServerFactory) -> RunningServer:
     return server_factory()
 
 
-@pytest.fixture(scope="session")
+# Package scope, not session: while Playwright's sync API is open it keeps an asyncio loop
+# marked as running on the main thread, and every later test that starts a loop of its own
+# (asyncio.run, anyio.run) would fail with "already running".
+@pytest.fixture(scope="package")
 def browser_context(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Any]:
     sync_playwright, executable = _require_browser()
     profile = tmp_path_factory.mktemp("chromium-profile")
