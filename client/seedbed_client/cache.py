@@ -36,14 +36,14 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from seedbed_client.environment import ENV_CACHE_DIR, ENV_CACHE_MAX_BYTES, environment
+
 __all__ = [
     "WeightCache",
     "default_cache_dir",
 ]
 
 DEFAULT_MAX_BYTES = 2 * 1024**3
-ENV_DIR = "SEEDBED_CACHE_DIR"
-ENV_MAX_BYTES = "SEEDBED_CACHE_MAX_BYTES"
 # Files that nothing references are removed only after this long, so a store running in another
 # process (blob renamed, entry not yet written) is never undercut.
 ORPHAN_GRACE_S = 600.0
@@ -51,8 +51,8 @@ ORPHAN_GRACE_S = 600.0
 
 def default_cache_dir(env: Mapping[str, str] | None = None) -> Path:
     """SEEDBED_CACHE_DIR, else the platform's per-user cache directory + seedbed."""
-    environ = os.environ if env is None else env
-    explicit = environ.get(ENV_DIR)
+    environ = environment(env)
+    explicit = environ.get(ENV_CACHE_DIR)
     if explicit:
         return Path(explicit).expanduser()
     system = platform.system()
@@ -68,8 +68,8 @@ def default_cache_dir(env: Mapping[str, str] | None = None) -> Path:
 
 
 def default_max_bytes(env: Mapping[str, str] | None = None) -> int:
-    environ = os.environ if env is None else env
-    text = environ.get(ENV_MAX_BYTES)
+    environ = environment(env)
+    text = environ.get(ENV_CACHE_MAX_BYTES)
     if text is None or not text.strip():
         return DEFAULT_MAX_BYTES
     try:
@@ -77,7 +77,7 @@ def default_max_bytes(env: Mapping[str, str] | None = None) -> int:
     except ValueError:
         value = -1
     if value < 0:
-        raise ValueError(f"{ENV_MAX_BYTES}={text!r}: allowed: a whole number of bytes >= 0")
+        raise ValueError(f"{ENV_CACHE_MAX_BYTES}={text!r}: allowed: a whole number of bytes >= 0")
     return value
 
 

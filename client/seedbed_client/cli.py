@@ -46,8 +46,9 @@ from seedbed_client.cli_shared import (
     UsageProblem,
 )
 from seedbed_client.cli_shared import client_from_args as _client
-from seedbed_client.client import DEFAULT_URL, ENV_URL
+from seedbed_client.client import DEFAULT_URL
 from seedbed_client.containers import inspect_body, page_releaser, sniff_format
+from seedbed_client.environment import ENV_URL
 from seedbed_client.errors import (
     IntegrityError,
     SeedbedError,

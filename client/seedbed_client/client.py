@@ -40,6 +40,7 @@ from seedbed_client.endpoint_flows import (
     recipe_weights_flow,
     stored_recipe_flow,
 )
+from seedbed_client.environment import ENV_URL, environment
 from seedbed_client.errors import Problem, SpecInvalid
 from seedbed_client.flows import Delivery, Flow, FlowContext, Source, json_flow, weights_flow
 from seedbed_client.limits import RequestLimits
@@ -84,7 +85,6 @@ __all__ = [
 ]
 
 DEFAULT_URL = "http://127.0.0.1:8600"
-ENV_URL = "SEEDBED_URL"
 DEFAULT_FORMAT: WeightFormat = "npz"
 # A request, or a recipe reference "name@version" / "name@latest" (a bare name means latest).
 WeightsSource = RequestLike | str
@@ -164,7 +164,7 @@ class SavedWeights:
 
 
 def _base_url(base_url: str | None) -> str:
-    url = base_url or os.environ.get(ENV_URL) or DEFAULT_URL
+    url = base_url or environment().get(ENV_URL) or DEFAULT_URL
     if not url.startswith(("http://", "https://")):
         raise SpecInvalid(
             [

@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 from urllib.parse import quote
 
+from seedbed_client.environment import ENV_KEY, ENV_KEY_FILE, environment
 from seedbed_client.errors import IntegrityError, Problem, ServiceUnavailable, SpecInvalid
 from seedbed_client.flows import (
     Delivery,
@@ -35,8 +36,6 @@ from seedbed_client.records import (
 from seedbed_client.spool import ProgressHook
 from seedbed_client.wire import RecipeRef, RecipeWeightsCall, WeightFormat, canonical_json
 
-ENV_KEY = "SEEDBED_PUBLISH_KEY"
-ENV_KEY_FILE = "SEEDBED_PUBLISH_KEY_FILE"
 # Audit uploads are read whole into memory before sending; the service's default limit is
 # 256 MiB, and a larger file would be refused anyway.
 MAX_AUDIT_UPLOAD = 1 << 30
@@ -84,7 +83,7 @@ def publishing_key(
 ) -> str:
     """The key: given, else read from `key_file`, else SEEDBED_PUBLISH_KEY, else the file
     SEEDBED_PUBLISH_KEY_FILE names. Files hold the key on their first non-empty line."""
-    env = os.environ if environ is None else environ
+    env = environment(environ)
     if key:
         return key.strip()
     path = key_file or env.get(ENV_KEY_FILE) or None

@@ -191,27 +191,24 @@ def _origin(var: str, default: str) -> str:
 def _client_settings() -> None:
     """The variables the client commands (fetch, verify, show ...) read, with their sources."""
     from seedbed.settings import client_environment
-    from seedbed_client.cache import (
-        DEFAULT_MAX_BYTES,
-        ENV_DIR,
-        ENV_MAX_BYTES,
-        default_cache_dir,
-        default_max_bytes,
-    )
-    from seedbed_client.client import DEFAULT_URL, ENV_URL
+    from seedbed_client.cache import DEFAULT_MAX_BYTES, default_cache_dir, default_max_bytes
+    from seedbed_client.client import DEFAULT_URL
+    from seedbed_client.environment import ENV_CACHE_DIR, ENV_CACHE_MAX_BYTES, ENV_URL
 
     print("client commands:")
     url = client_environment(ENV_URL) or DEFAULT_URL
     print(f"  {ENV_URL}={url}  ({_origin(ENV_URL, DEFAULT_URL)})")
     print(
-        f"  {ENV_DIR}={default_cache_dir()}  "
-        f"({_origin(ENV_DIR, 'the per-user cache directory + seedbed')})"
+        f"  {ENV_CACHE_DIR}={default_cache_dir()}  "
+        f"({_origin(ENV_CACHE_DIR, 'the per-user cache directory + seedbed')})"
     )
     try:
         limit: object = default_max_bytes()
     except ValueError as exc:
         limit = f"(invalid: {exc})"
-    print(f"  {ENV_MAX_BYTES}={limit}  ({_origin(ENV_MAX_BYTES, str(DEFAULT_MAX_BYTES))})")
+    print(
+        f"  {ENV_CACHE_MAX_BYTES}={limit}  ({_origin(ENV_CACHE_MAX_BYTES, str(DEFAULT_MAX_BYTES))})"
+    )
 
 
 def main(argv: Sequence[str] | None = None) -> int:

@@ -1,8 +1,8 @@
-"""Every variable of the service's environment is read in one module, seedbed/settings.py.
+"""Every environment variable is read in one module per package: seedbed/settings.py for the
+service, seedbed_client/environment.py for the client (which installs and runs alone).
 
-Walks the service's source with ast and fails on any other module that touches os.environ,
-os.getenv, os.putenv or imports environ/getenv from os. (The client package installs and runs
-alone and keeps its own small reader in seedbed_client.)
+Walks both packages' source with ast and fails on any other module that touches os.environ,
+os.getenv, os.putenv or imports environ/getenv from os.
 """
 
 from __future__ import annotations
@@ -10,8 +10,12 @@ from __future__ import annotations
 import ast
 from pathlib import Path
 
-SERVICE = Path(__file__).resolve().parents[2] / "service" / "seedbed"
-ALLOWED = {"settings.py"}
+ROOT = Path(__file__).resolve().parents[2]
+# package source root -> the one module (relative to it) allowed to read the environment
+READERS = {
+    ROOT / "service" / "seedbed": "settings.py",
+    ROOT / "client" / "seedbed_client": "environment.py",
+}
 ENV_NAMES = {"environ", "environb", "getenv", "getenvb", "putenv", "unsetenv"}
 
 
@@ -38,13 +42,16 @@ def test_the_walker_sees_an_environment_read() -> None:
     assert _reads_environment(ast.parse("import os\nos.path.join('a')\n")) == []
 
 
-def test_only_the_settings_module_reads_the_environment() -> None:
-    files = sorted(SERVICE.rglob("*.py"))
-    assert any(f.name == "settings.py" for f in files)
-    offenders = {
-        str(f.relative_to(SERVICE)): lines
-        for f in files
-        if str(f.relative_to(SERVICE)) not in ALLOWED
-        and (lines := _reads_environment(ast.parse(f.read_text(encoding="utf-8"))))
-    }
+def test_only_one_module_per_package_reads_the_environment() -> None:
+    offenders: dict[str, list[int]] = {}
+    for package, reader in READERS.items():
+        files = sorted(package.rglob("*.py"))
+        # The reader itself must be found reading, or the walk is looking in the wrong place.
+        assert _reads_environment(ast.parse((package / reader).read_text(encoding="utf-8")))
+        for f in files:
+            if str(f.relative_to(package)) == reader:
+                continue
+            lines = _reads_environment(ast.parse(f.read_text(encoding="utf-8")))
+            if lines:
+                offenders[str(f.relative_to(ROOT))] = lines
     assert offenders == {}

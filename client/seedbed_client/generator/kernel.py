@@ -14,10 +14,10 @@ modules, so both implementations share one definition of every constant computed
 from __future__ import annotations
 
 import importlib
-import os
 from dataclasses import dataclass
 from types import ModuleType
 
+from ..environment import numpy_disabled_cpu_features
 from .logarithm import LN2_HI, LN2_LO, SERIES
 from .truncation import TRUNCATION_BOUND, TRUNCATION_MASS
 
@@ -43,8 +43,7 @@ def _wide_loops_allowed() -> bool:
     # numpy's switch for its own SIMD dispatch (numpy 1.x names AVX2, numpy 2.4 names the
     # level X86_V3); honouring it runs the kernel's baseline loops in the same test run that
     # takes numpy's AVX2 code away.
-    disabled = os.environ.get("NPY_DISABLE_CPU_FEATURES", "").replace(",", " ").upper().split()
-    return not {"AVX", "AVX2", "X86_V3"} & set(disabled)
+    return not {"AVX", "AVX2", "X86_V3"} & numpy_disabled_cpu_features()
 
 
 def _load() -> tuple[ModuleType | None, KernelStatus]:

@@ -15,7 +15,8 @@ from pathlib import Path
 import pytest
 
 from seedbed_client.cache import WeightCache
-from seedbed_client.endpoint_flows import ENV_KEY, ENV_KEY_FILE, publishing_key
+from seedbed_client.endpoint_flows import publishing_key
+from seedbed_client.environment import ENV_KEY, ENV_KEY_FILE
 from seedbed_client.errors import SpecInvalid
 from seedbed_client.wire import RecipeRef, RecipeWeightsCall, parse_ref
 
