@@ -42,6 +42,7 @@ SLOW_TESTS: tuple[str, ...] = (
     "unit/core/test_golden.py::test_same_digests_with_simd_dispatch_disabled",
     "unit/core/test_activations.py::test_gain_bitwise_identical_in_fresh_process",
     "unit/web/test_generator_status.py::test_settings_command_says_which_generator_runs",
+    "unit/test_bench_scripts.py::test_benchmark_script_starts",
 )
 
 

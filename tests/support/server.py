@@ -1,6 +1,6 @@
 """Start and stop the real service as a child process, the way an operator would run it.
 
-Shared by the end-to-end fixtures (tests/e2e/conftest.py) and benchmarks/bench_service.py, so
+Shared by the end-to-end fixtures (tests/e2e/conftest.py) and tests/bench/bench_service.py, so
 both measure the same thing: `python -m seedbed.cli serve` under uvicorn, on a loopback port.
 
 The child gets the repository's service/ directory on PYTHONPATH, so it runs from a plain

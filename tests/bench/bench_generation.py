@@ -5,7 +5,7 @@ fill_standard (threads = os.cpu_count()) plus round_to_dtype, and measures in th
 numpy's default_rng().random / .standard_normal with dtype=float32 and the raw Philox stream
 (random_raw) as baselines. Prints best-of-N wall times and ratios (seedbed / numpy).
 
-    .venv/bin/python benchmarks/bench_generation.py [--repeats N] [--threads T]
+    .venv/bin/python tests/bench/bench_generation.py [--repeats N] [--threads T]
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "service"))
+sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "service"))
 
 from timing import best_of
 

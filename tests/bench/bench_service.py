@@ -1,6 +1,6 @@
 """Service benchmark: the real server over loopback, against baselines measured in the same run.
 
-    .venv/bin/python benchmarks/bench_service.py [--repeats 5] [--requests 400] [--threads 1]
+    .venv/bin/python tests/bench/bench_service.py [--repeats 5] [--requests 400] [--threads 1]
                                                  [--quick]
 
 Starts `python -m seedbed.cli serve` on a free loopback port (the same launcher as the
@@ -37,7 +37,7 @@ from typing import Any
 import httpx
 import numpy as np
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 sys.path[:0] = [str(ROOT / "tests"), str(ROOT / "service")]
 
 from support.networks import river_gauge_forecaster, single_dense  # noqa: E402

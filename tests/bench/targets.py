@@ -1,7 +1,7 @@
 """Every speed figure of seedbed in one run, each as a ratio against its baseline measured in
 the same run (best of N), with the target beside it.
 
-    .venv/bin/python benchmarks/targets.py [--quick] [--repeats N] [--requests N]
+    .venv/bin/python tests/bench/targets.py [--quick] [--repeats N] [--requests N]
                                            [--write-docs]
 
 Rows (docs/performance.md explains each and keeps the table of the last result):
@@ -44,7 +44,7 @@ from typing import Any
 import httpx
 import numpy as np
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 sys.path[:0] = [str(ROOT / "tests"), str(ROOT / "service"), str(Path(__file__).parent)]
 
 from timing import best_of  # noqa: E402

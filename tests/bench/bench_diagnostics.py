@@ -13,7 +13,7 @@ Measures in one run, best of N:
 and prints seconds and ratios against the 100-product baseline. The difference between the
 last two rows is the simulation's own overhead (activations, statistics, twin detection).
 
-    .venv/bin/python benchmarks/bench_diagnostics.py [--repeats N] [--batch B]
+    .venv/bin/python tests/bench/bench_diagnostics.py [--repeats N] [--batch B]
 """
 
 from __future__ import annotations
@@ -26,7 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "service"))
+sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "service"))
 
 from timing import best_of
 

@@ -1,6 +1,6 @@
 """Client benchmark: a 1 GiB request fetched from the real service, and generated locally.
 
-    .venv/bin/python benchmarks/bench_client.py [--mib 1024] [--keep]
+    .venv/bin/python tests/bench/bench_client.py [--mib 1024] [--keep]
 
 Starts `python -m seedbed.cli serve` on a loopback port (the end-to-end tests' launcher) and
 runs each measurement in a fresh Python process, so each peak resident memory figure (Linux
@@ -34,10 +34,10 @@ import textwrap
 from pathlib import Path
 from typing import Any
 
-ROOT = Path(__file__).resolve().parents[1]
+ROOT = Path(__file__).resolve().parents[2]
 sys.path[:0] = [str(ROOT / "tests"), str(ROOT / "service")]
 
-from e2e.server import start_server  # noqa: E402
+from support.server import start_server  # noqa: E402
 
 MIB = 1 << 20
 
