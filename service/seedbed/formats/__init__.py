@@ -40,13 +40,18 @@ def encode_body(
     tensors: Sequence[OutgoingTensor],
     *,
     digests: Mapping[str, str] | None = None,
+    hold_bytes: int = 0,
 ) -> EncodedBody:
-    """Dispatch on the requested format name (json | npz | safetensors)."""
+    """Dispatch on the requested format name (json | npz | safetensors). `hold_bytes` bounds
+    what safetensors may keep from its hashing pass (the other formats walk their tensors
+    once and ignore it)."""
     builder = BUILDERS.get(format_name)
     if builder is None:
         raise FormatInputError(
             f"format {format_name!r} is not supported; allowed: {', '.join(FORMAT_NAMES)}"
         )
+    if format_name == "safetensors":
+        return safetensors_body(document, tensors, digests=digests, hold_bytes=hold_bytes)
     return builder(document, tensors, digests=digests)
 
 

@@ -8,8 +8,9 @@ our manifest lives as one canonical JSON string.
 
 Because the header comes first and the manifest carries every tensor's SHA-256, the hashes must
 be known before the first byte: unless the caller passes them, the body runs a hashing pass over
-every tensor (a full generation) before streaming the tensors again. The second pass is checked
-against the first, tensor by tensor.
+every tensor (a full generation) before streaming the tensors. Tensors that fit `hold_bytes`
+keep the pieces of the hashing pass and send exactly those (hashed once, generated once);
+larger ones are generated again and that second walk is checked against the first digest.
 """
 
 from __future__ import annotations
@@ -31,8 +32,8 @@ from .common import (
     check_inputs,
     checked_chunks,
     coalesced,
+    drain,
     json_snapshot,
-    tensor_digests,
 )
 
 MEDIA_TYPE = "application/octet-stream"
@@ -76,9 +77,11 @@ def safetensors_body(
     tensors: Sequence[OutgoingTensor],
     *,
     digests: Mapping[str, str] | None = None,
+    hold_bytes: int = 0,
 ) -> EncodedBody:
     """Build the safetensors response. Without `digests`, iterating the body first runs the
-    hashing pass (every tensor generated once) before the header is sent."""
+    hashing pass (every tensor generated once) before the header is sent; up to `hold_bytes`
+    of that pass's output are kept and sent as they are instead of being generated again."""
     tensors = tuple(tensors)
     check_inputs(document, tensors)
     check_digests(digests, tensors)
@@ -95,7 +98,8 @@ def safetensors_body(
     given = dict(digests) if digests is not None else None
 
     def produce() -> Iterator[bytes]:
-        known = given if given is not None else tensor_digests(tensors)
+        held: dict[str, list[bytes]] = {}
+        known = given if given is not None else _hashing_pass(tensors, hold_bytes, held)
         for entry, t in zip(manifest[TENSORS_KEY], tensors, strict=True):
             entry["sha256"] = known[t.name]
         header = _header(manifest, tensors)
@@ -103,6 +107,37 @@ def safetensors_body(
             raise ProducerContractError("safetensors header length changed after sizing")
         yield header
         for t in tensors:
-            yield from checked_chunks(t, known[t.name])
+            pieces = held.pop(t.name, None)
+            if pieces is None:
+                yield from checked_chunks(t, known[t.name])
+                continue
+            # The very pieces the digest was computed over: hashing them again proves nothing.
+            # Released one by one, so the held memory shrinks as the tensor goes out.
+            pieces.reverse()
+            while pieces:
+                yield pieces.pop()
 
     return EncodedBody(content_length, MEDIA_TYPE, coalesced(produce()))
+
+
+def _hashing_pass(
+    tensors: Sequence[OutgoingTensor], hold_bytes: int, held: dict[str, list[bytes]]
+) -> dict[str, str]:
+    """Every tensor's digest, by name; the pieces of tensors that fit the budget go to `held`."""
+    digests: dict[str, str] = {}
+    left = hold_bytes
+    for t in tensors:
+        if t.nbytes > left:
+            digests[t.name] = drain(checked_chunks(t))
+            continue
+        left -= t.nbytes
+        pieces: list[bytes] = []
+        walk = checked_chunks(t)
+        while True:
+            try:
+                pieces.append(next(walk))
+            except StopIteration as done:
+                digests[t.name] = str(done.value)
+                break
+        held[t.name] = pieces
+    return digests

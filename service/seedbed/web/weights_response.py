@@ -9,9 +9,9 @@ From a plan (and an optional block selection) to an encoded body: this is the se
 the core, which produces a tensor's bytes on demand, and the format writers, which arrange
 them in a container. Nothing here holds a whole tensor, with one bounded exception:
 safetensors needs every digest in its header, so its body walks the tensors twice (a hashing
-pass, then the data). Tensors that fit a per-response budget (`HOLD_BUDGET_BYTES`) keep the
-bytes of the first walk for the second instead of being generated again; larger ones are
-generated twice, so memory stays bounded.
+pass, then the data). Tensors that fit a per-response budget (`HOLD_BUDGET_BYTES`, enforced by
+the safetensors writer) send the bytes of the hashing pass instead of being generated and
+hashed again; larger ones are generated twice, so memory stays bounded.
 """
 
 from __future__ import annotations
@@ -42,45 +42,6 @@ from seedbed.web.read_ahead import read_ahead
 HOLD_BUDGET_BYTES = 64 << 20
 
 
-class _HoldBudget:
-    def __init__(self, total: int) -> None:
-        self.left = total
-
-    def take(self, nbytes: int) -> bool:
-        if nbytes > self.left:
-            return False
-        self.left -= nbytes
-        return True
-
-
-def _held_once(
-    produce: Callable[[], Iterator[bytes]], nbytes: int, budget: _HoldBudget
-) -> Callable[[], Iterator[bytes]]:
-    """chunks() for a tensor walked twice: the first walk keeps its pieces (if the budget
-    allows) and the second replays and releases them; any further walk generates anew."""
-    held: list[bytes] | None = None
-    walks = 0
-
-    def chunks() -> Iterator[bytes]:
-        nonlocal held, walks
-        walks += 1
-        if walks == 1 and budget.take(nbytes):
-            kept: list[bytes] = []
-            for piece in produce():
-                kept.append(piece)
-                yield piece
-            held = kept
-            return
-        if held is not None:
-            replay, held = held, None
-            budget.left += nbytes
-            yield from replay
-            return
-        yield from produce()
-
-    return chunks
-
-
 @dataclass(frozen=True)
 class Selection:
     """Rows [start, stop) of one tensor's served first axis."""
@@ -106,7 +67,6 @@ def outgoing_tensors(
     selection: Selection | None,
     chunk_bytes: int,
     threads: int,
-    hold: _HoldBudget | None = None,
 ) -> list[OutgoingTensor]:
     def producer(t: TensorPlan, start: int, stop: int | None) -> OutgoingTensor:
         def generate() -> Iterator[bytes]:
@@ -120,14 +80,13 @@ def outgoing_tensors(
         nbytes = math.prod(shape) * t.itemsize
         # Tensors of several pieces generate the next piece while this one is hashed and sent.
         source = read_ahead(generate) if nbytes >= 2 * chunk_bytes else generate
-        chunks = source if hold is None else _held_once(source, nbytes, hold)
         return OutgoingTensor(
             name=t.tensor,
             dtype=t.dtype,
             shape=shape,
             nbytes=nbytes,
             entry=entry,
-            chunks=chunks,
+            chunks=source,
         )
 
     if selection is None:
@@ -171,13 +130,14 @@ def encode_weights(
     every tensor while streaming and skip their own hashing pass; the bytes are the same."""
     if rearranged is not None:
         doc = {**response_document(plan, None), **rearranged.document}
-        return encode_body(fmt, doc, rearranged.tensors(), digests=digests)
-    hold = _HoldBudget(HOLD_BUDGET_BYTES) if fmt == "safetensors" and digests is None else None
-    tensors = outgoing_tensors(plan, selection, chunk_bytes, threads, hold)
+        return encode_body(
+            fmt, doc, rearranged.tensors(), digests=digests, hold_bytes=HOLD_BUDGET_BYTES
+        )
+    tensors = outgoing_tensors(plan, selection, chunk_bytes, threads)
     doc = response_document(plan, None if selection is None else selection.describe())
     # Without digests, safetensors runs its hashing pass lazily, at the body's first step
     # (in the threadpool, after the headers went out).
-    return encode_body(fmt, doc, tensors, digests=digests)
+    return encode_body(fmt, doc, tensors, digests=digests, hold_bytes=HOLD_BUDGET_BYTES)
 
 
 # ---------------------------------------------------------------------------------------------

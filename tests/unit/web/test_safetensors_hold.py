@@ -1,40 +1,63 @@
-"""safetensors walks its tensors twice (digests first); small tensors are generated once."""
+"""safetensors needs every digest before its first byte; tensors within the hold budget are
+generated and hashed once, larger ones generated again and checked against the first digest."""
 
 from __future__ import annotations
 
 import hashlib
 from collections.abc import Iterator
 
+import pytest
+import safetensors.numpy
+
 from seedbed.core.plan import build_plan
-from seedbed.formats import encode_body
+from seedbed.formats import OutgoingTensor, ProducerContractError, encode_body
+from seedbed.formats.safetensors_out import safetensors_body
 from seedbed.web.documents import response_document
-from seedbed.web.weights_response import _held_once, _HoldBudget, encode_weights, outgoing_tensors
+from seedbed.web.weights_response import encode_weights, outgoing_tensors
 
 
-def _counting(pieces: list[bytes]) -> tuple[list[int], object]:
+def _counting(name: str, pieces: list[bytes]) -> tuple[list[int], OutgoingTensor]:
     calls = [0]
 
     def produce() -> Iterator[bytes]:
         calls[0] += 1
         yield from pieces
 
-    return calls, produce
+    size = sum(len(p) for p in pieces)
+    tensor = OutgoingTensor(name, "float32", (size // 4,), size, {}, produce)
+    return calls, tensor
 
 
-def test_first_walk_is_replayed_once_then_regenerated() -> None:
-    calls, produce = _counting([b"ab", b"cd"])
-    budget = _HoldBudget(10)
-    chunks = _held_once(produce, 4, budget)  # type: ignore[arg-type]
-    assert b"".join(chunks()) == b"abcd" and budget.left == 6
-    assert b"".join(chunks()) == b"abcd" and calls[0] == 1 and budget.left == 10
-    assert b"".join(chunks()) == b"abcd" and calls[0] == 2  # a third walk generates anew
+def _document() -> dict[str, object]:
+    return {"algorithm": "test"}
 
 
-def test_tensor_over_budget_is_generated_each_walk() -> None:
-    calls, produce = _counting([b"xyz"])
-    chunks = _held_once(produce, 3, _HoldBudget(2))  # type: ignore[arg-type]
-    assert b"".join(chunks()) + b"".join(chunks()) == b"xyzxyz"
-    assert calls[0] == 2
+def test_tensors_within_the_budget_are_generated_once() -> None:
+    calls_a, a = _counting("a", [b"abcd", b"efgh"])
+    calls_b, b = _counting("b", [b"ijkl" * 4])
+    body = b"".join(safetensors_body(_document(), [a, b], hold_bytes=8).body)
+    # a (8 bytes) fits the budget and is sent from the hashing pass; b (16) is generated again.
+    assert calls_a[0] == 1 and calls_b[0] == 2
+    unheld = b"".join(safetensors_body(_document(), [a, b]).body)
+    assert body == unheld
+    header = safetensors.numpy.load(body)
+    assert header["a"].tobytes() == b"abcdefgh" and header["b"].tobytes() == b"ijkl" * 4
+
+
+def test_a_regenerated_tensor_is_still_checked_against_its_first_digest() -> None:
+    walks = [0]
+
+    def drifting() -> Iterator[bytes]:
+        walks[0] += 1
+        yield bytes([walks[0]]) * 8
+
+    tensor = OutgoingTensor("w", "float32", (2,), 8, {}, drifting)
+    with pytest.raises(ProducerContractError, match="not repeatable"):
+        b"".join(safetensors_body(_document(), [tensor], hold_bytes=4).body)
+    # Held, the second walk never happens, so the same producer yields a consistent body.
+    walks[0] = 0
+    body = b"".join(safetensors_body(_document(), [tensor], hold_bytes=8).body)
+    assert safetensors.numpy.load(body)["w"].tobytes() == b"\x01" * 8
 
 
 def test_held_body_equals_the_body_generated_twice() -> None:
