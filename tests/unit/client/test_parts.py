@@ -333,6 +333,20 @@ def test_hand_built_safetensors_passes_and_a_flipped_bit_is_named() -> None:
         inspect_body(_safetensors(tensors)[:40], "safetensors")
 
 
+def test_without_rehash_the_structure_is_still_checked_and_digests_come_from_the_manifest() -> None:
+    # rehash=False serves the cache, whose caller has matched the whole body's SHA-256 first.
+    tensors = {"w": np.arange(6, dtype="<f4").reshape(2, 3)}
+    body = _safetensors(tensors)
+    trusted = inspect_body(body, "safetensors", rehash=False)
+    assert [t.sha256 for t in trusted.tensors] == [
+        t.sha256 for t in inspect_body(body, "safetensors").tensors
+    ]
+    # A shape that disagrees with the manifest is caught without any hashing.
+    wrong = body.replace(b'"shape": [2, 3], "data_offsets"', b'"shape": [3, 2], "data_offsets"')
+    assert wrong != body
+    assert "shape" in str(inspect_body(wrong, "safetensors", rehash=False).failed[0].problem)
+
+
 def test_npz_written_by_numpy_is_read_and_checked() -> None:
     # numpy.savez is an outside writer of the same container (stored zip of .npy members).
     w = np.linspace(-1, 1, 12, dtype="<f4").reshape(3, 4)
