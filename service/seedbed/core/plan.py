@@ -288,6 +288,17 @@ def build_plan(data: object, limits: Limits | None = None) -> Plan:
     return plan_request(parse(data, limits if limits is not None else Limits()))
 
 
+def reseeded(plan: Plan, seed: int | str) -> Plan:
+    """`plan` under another (already valid) seed, equal to planning the request anew with it.
+
+    No choice depends on the seed: it only keys the random streams, through `Plan.seed`, and
+    appears in the canonical request. A sweep over seeds of one network therefore plans once.
+    """
+    canonical = dict(plan.canonical_request)
+    canonical["seed"] = seed  # an existing key: the sorted order is kept
+    return replace(plan, seed=seed, canonical_request=canonical)
+
+
 def plan_document(plan: Plan) -> dict[str, Any]:
     """The JSON-ready body of a plan response."""
     values = plan.total_count

@@ -11,12 +11,12 @@ from starlette.requests import Request
 
 from seedbed.core.audit import AuditLimits
 from seedbed.core.diagnostics import DiagnosticLimits
-from seedbed.core.plan import build_plan
+from seedbed.core.plan import build_plan, reseeded
 from seedbed.core.plan_types import Plan
 from seedbed.settings import Settings
 from seedbed.web.json_body import read_json_body
 from seedbed.web.metrics import ServiceMetrics
-from seedbed.web.plan_cache import CachedPlan, PlanCache, request_key
+from seedbed.web.plan_cache import CachedPlan, PlanCache, request_keys
 
 
 def settings_of(request: Request) -> Settings:
@@ -59,14 +59,21 @@ async def load_cached_plan(request: Request) -> CachedPlan:
     cache = plan_cache_of(request)
     if cache is None or cache.max_entries <= 0:
         return CachedPlan(await run_in_threadpool(build_plan, data, settings.limits))
-    key, size = request_key(data)
-    found = cache.get(key)
+    keys = request_keys(data)
+    charge = keys.size * _BYTES_PER_REQUEST_BYTE
+    found = cache.get(keys.whole)
     if found is not None:
         return found
-    # Validation of thousands of layers is plain Python work: keep it off the event loop.
-    plan: Plan = await run_in_threadpool(build_plan, data, settings.limits)
-    entry = CachedPlan(plan)
-    cache.put(key, entry, size * _BYTES_PER_REQUEST_BYTE)
+    template = cache.get(keys.unseeded) if keys.unseeded is not None else None
+    if template is not None:
+        # The same network under another seed: valid as that one was, and planned the same.
+        entry = CachedPlan(reseeded(template.plan, data["seed"]))
+    else:
+        # Validation of thousands of layers is plain Python work: keep it off the event loop.
+        entry = CachedPlan(await run_in_threadpool(build_plan, data, settings.limits))
+        if keys.unseeded is not None:
+            cache.put(keys.unseeded, CachedPlan(entry.plan), charge)
+    cache.put(keys.whole, entry, charge)
     return entry
 
 

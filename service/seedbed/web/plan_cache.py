@@ -5,6 +5,10 @@ an app), so a request equal to one seen before, however it was spelled (key orde
 whitespace), reuses that plan and, for POST /v1/plan, its encoded response body. Entries are
 evicted least recently used first, by count and by the bytes of their bodies, so the cache
 cannot grow past its budget whatever the callers send.
+
+A request that differs from a cached one only in its seed (a sweep, an ensemble) reuses that
+plan too: no choice depends on the seed (`seedbed.core.plan.reseeded`), so the cache also keeps
+each plan under the key of its request without the seed.
 """
 
 from __future__ import annotations
@@ -17,14 +21,33 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from seedbed.core.plan_types import Plan
+from seedbed.core.request.network import seed_problem
 
 
-def request_key(data: Any) -> tuple[str, int]:
-    """sha256 of the parsed request as canonical JSON (sorted keys, no spaces), and the
-    length of that JSON in bytes."""
-    text = json.dumps(data, sort_keys=True, separators=(",", ":"), ensure_ascii=False)
-    encoded = text.encode("utf-8")
-    return hashlib.sha256(encoded).hexdigest(), len(encoded)
+@dataclass(frozen=True)
+class RequestKeys:
+    """Cache keys of one parsed JSON body."""
+
+    whole: str  # the request as sent (canonical JSON: sorted keys, no spaces)
+    unseeded: str | None  # the request without its seed; None unless the seed is valid
+    size: int  # bytes of the canonical JSON
+
+
+def _canonical(data: Any) -> bytes:
+    return json.dumps(data, sort_keys=True, separators=(",", ":"), ensure_ascii=False).encode()
+
+
+def request_keys(data: Any) -> RequestKeys:
+    """sha256 keys of the request with and without its seed. A canonical JSON text never starts
+    with "s" or "u", so the prefixed forms cannot equal the key of any other body."""
+    if not isinstance(data, dict) or "seed" not in data or seed_problem(data["seed"]) is not None:
+        text = _canonical(data)
+        return RequestKeys(hashlib.sha256(text).hexdigest(), None, len(text))
+    rest = _canonical({k: v for k, v in data.items() if k != "seed"})
+    seed = _canonical(data["seed"])
+    whole = hashlib.sha256(b"seed=" + seed + b"\n" + rest).hexdigest()
+    unseeded = hashlib.sha256(b"unseeded\n" + rest).hexdigest()
+    return RequestKeys(whole, unseeded, len(rest) + len(seed))
 
 
 @dataclass

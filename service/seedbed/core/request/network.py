@@ -154,24 +154,30 @@ class NetworkRequest(StrictModel):
     @field_validator("seed", mode="before")
     @classmethod
     def _check_seed(cls, value: Any) -> Any:
-        allowed = f"an integer 0 to {SEED_INT_MAX} or a string of 1 to {SEED_STR_MAX} characters"
-        if isinstance(value, bool) or not isinstance(value, int | str):
-            raise field_error("invalid_type", f"got {describe_input(value)}; allowed: {allowed}")
-        if isinstance(value, int) and not 0 <= value <= SEED_INT_MAX:
-            raise field_error("invalid_value", f"got {describe_input(value)}; allowed: {allowed}")
-        if isinstance(value, str):
-            if not 1 <= len(value) <= SEED_STR_MAX:
-                raise field_error(
-                    "invalid_value", f"got a string of {len(value)} characters; allowed: {allowed}"
-                )
-            try:  # the seed is hashed as UTF-8; JSON can smuggle in lone surrogates (\ud800)
-                value.encode("utf-8")
-            except UnicodeEncodeError:
-                raise field_error(
-                    "invalid_value",
-                    f"the string contains a lone surrogate; allowed: {allowed} of valid Unicode",
-                ) from None
+        problem = seed_problem(value)
+        if problem is not None:
+            raise field_error(*problem)
         return value
+
+
+def seed_problem(value: Any) -> tuple[ProblemCode, str] | None:
+    """(code, message) when `value` is not a seed this service accepts, else None."""
+    allowed = f"an integer 0 to {SEED_INT_MAX} or a string of 1 to {SEED_STR_MAX} characters"
+    if isinstance(value, bool) or not isinstance(value, int | str):
+        return "invalid_type", f"got {describe_input(value)}; allowed: {allowed}"
+    if isinstance(value, int) and not 0 <= value <= SEED_INT_MAX:
+        return "invalid_value", f"got {describe_input(value)}; allowed: {allowed}"
+    if isinstance(value, str):
+        if not 1 <= len(value) <= SEED_STR_MAX:
+            return "invalid_value", f"got a string of {len(value)} characters; allowed: {allowed}"
+        try:  # the seed is hashed as UTF-8; JSON can smuggle in lone surrogates (\ud800)
+            value.encode("utf-8")
+        except UnicodeEncodeError:
+            return (
+                "invalid_value",
+                f"the string contains a lone surrogate; allowed: {allowed} of valid Unicode",
+            )
+    return None
 
 
 def canonical_request(request: NetworkRequest) -> dict[str, Any]:
