@@ -114,7 +114,31 @@ def generation_rows(repeats: int) -> tuple[list[Row], float]:
             "<= 0.5",
         ),
     ]
-    if kernel.active() is not None:
+    module = kernel.active()
+    if module is not None:
+        # Context for the uniform row: the counter-based stream alone (no transform) is the
+        # floor of any uniform fill under the reproducibility contract.
+        words = np.empty(COUNT, dtype=np.uint64)
+        rows.append(
+            Row(
+                "  (raw counter stream alone, 16M words, 1 thread)",
+                "numpy random f32, 1 thread",
+                _warm_best(repeats, lambda: module.raw(key[0], key[1], 0, 0, words)),
+                uniform,
+                "",
+            )
+        )
+        del words
+    rows.append(
+        Row(
+            f"  (uniform f32 16M, {CORES} threads)",
+            "numpy random f32, 1 thread",
+            ours("uniform", CORES),
+            uniform,
+            "",
+        )
+    )
+    if module is not None:
         kernel.set_enabled(False)
         try:
             rows.append(
@@ -339,6 +363,7 @@ def plan_rows(
 
 def diagnose_row(repeats: int) -> Row:
     from seedbed.core.diagnostics import diagnose
+    from seedbed.settings import Settings
 
     width, depth, batch = 1024, 50, 256
     request = {
@@ -367,9 +392,18 @@ def diagnose_row(repeats: int) -> Row:
         return y
 
     bare = _warm_best(repeats, products)
-    engine = _warm_best(repeats, lambda: diagnose({"request": request, "batch": batch}))
+    # As the service runs it: generation threads from the default settings (all cores of one
+    # worker), just as the bare matmuls get every core through BLAS.
+    threads = Settings().threads_per_request()
+    engine = _warm_best(
+        repeats, lambda: diagnose({"request": request, "batch": batch}, threads=threads)
+    )
     return Row(
-        "diagnose 50x1024 ReLU MLP, batch 256", "100 bare numpy matmuls", engine, bare, "<= 2"
+        f"diagnose 50x1024 ReLU MLP, batch 256, {threads} generation threads",
+        "100 bare numpy matmuls",
+        engine,
+        bare,
+        "<= 2",
     )
 
 

@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-from .fill import fill_scaled, fill_standard, standard_runs
+from .fill import DISTRIBUTIONS, fill_scaled, fill_standard, standard_runs
 from .keys import derive_key
 from .rounding import round_to_dtype
 
@@ -257,6 +257,20 @@ def render_rows(
     r: TensorRecipe, start: int = 0, stop: int | None = None, *, threads: int = 1
 ) -> np.ndarray:
     """Rows [start, stop) of the served first axis, in r.dtype (ml_dtypes.bfloat16 for bfloat16)."""
+    end = check_block(r, start, stop)
+    logical = r.logical_shape
+    if (
+        r.sampler in DISTRIBUTIONS
+        and r.dtype in ("float32", "float64")
+        and r.served_axes == tuple(range(len(logical)))
+    ):
+        # Served in generation order: the generator scales and rounds once, straight into the
+        # output dtype (the same values as below, without a float64 copy and a second pass).
+        row = math.prod(logical[1:])
+        out = np.empty((end - start) * row, dtype=r.dtype)
+        key = derive_key(r.seed, r.tensor)
+        fill_scaled(r.sampler, key, out, start * row, r.scale, threads=threads)
+        return out.reshape(block_shape(r, start, end))
     values = render_float64(r, start, stop, threads=threads)
     return round_to_dtype(np.ascontiguousarray(values), r.dtype)
 
