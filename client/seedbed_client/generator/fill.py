@@ -82,6 +82,7 @@ def _positive_int(name: str, value: object) -> int:
 
 # A block handed to another thread must be worth the hand-off (tens of microseconds).
 _MIN_BLOCK = 1 << 16
+_BLOCKS_PER_THREAD = 8
 _pool_lock = threading.Lock()
 _pool: ThreadPoolExecutor | None = None
 
@@ -99,20 +100,34 @@ def _shared_pool() -> ThreadPoolExecutor:
 
 
 def _in_blocks(count: int, threads: int, work: Callable[[int, int], None]) -> None:
-    """work(lo, hi) over [0, count) cut into up to `threads` contiguous blocks; the caller's
-    thread takes the first. Each value depends only on its own index, so the cut cannot
-    change a byte."""
-    parts = max(1, min(threads, count // _MIN_BLOCK))
-    if parts == 1:
+    """work(lo, hi) over [0, count) on up to `threads` threads, the caller's among them. Each
+    value depends only on its own index, so the cut cannot change a byte.
+
+    The range is cut into more blocks than threads, taken in turn: a thread whose core is also
+    busy with something else (the response's hashing, another request) takes fewer blocks
+    instead of the others waiting for its one large block."""
+    workers = max(1, min(threads, count // _MIN_BLOCK))
+    if workers == 1:
         work(0, count)
         return
+    parts = max(workers, min(workers * _BLOCKS_PER_THREAD, count // _MIN_BLOCK))
     bounds = [count * k // parts for k in range(parts + 1)]
+    turn = [0]
+    turn_lock = threading.Lock()
+
+    def take_blocks() -> None:
+        while True:
+            with turn_lock:
+                k = turn[0]
+                turn[0] += 1
+            if k >= parts:
+                return
+            work(bounds[k], bounds[k + 1])
+
     pool = _shared_pool()
-    futures: list[Future[None]] = [
-        pool.submit(work, bounds[k], bounds[k + 1]) for k in range(1, parts)
-    ]
+    futures: list[Future[None]] = [pool.submit(take_blocks) for _ in range(workers - 1)]
     try:
-        work(bounds[0], bounds[1])
+        take_blocks()
     finally:
         for f in futures:
             f.result()
