@@ -251,12 +251,14 @@ def _open_cached(
     entry: CacheEntry,
     call: WeightsCall | RecipeWeightsCall,
     spool_dir: Path | None,
-    landing_dir: Path,
 ) -> Delivery:
-    """Load a cached body and verify it whole (content address) and per tensor (manifest).
+    """Open a cached body and verify it against its content address (its SHA-256, under which
+    it was stored once its every tensor had matched the manifest), and its structure.
 
-    Into memory, or (for `save`) into a spool file in `spool_dir`: what is verified is the copy
-    that will be used, never the cache file itself, which could change afterwards.
+    JSON is read into memory; `save` gets its own copy in `spool_dir`; arrays map the cache file
+    itself through a handle opened before the check. The cache only ever renames and unlinks
+    its files (never writes one in place), so what was checked is what the arrays read, and
+    their private mappings never write back.
     """
     if entry.format != call.format:
         raise IntegrityError(f"the cached entry is {entry.format}, its key says {call.format}")
@@ -268,12 +270,10 @@ def _open_cached(
             buffer: Any = read_file(entry.blob_path)
             digest = hashlib.sha256(buffer).hexdigest()
         elif spool_dir is None:
-            # Arrays will map the body: map a private copy (unlinked once open), so that nothing
-            # done to the cache file later can change arrays already handed out.
-            spooled = copy_to_spool(entry.blob_path, landing_dir)
-            handle = open(spooled.path, "rb")  # noqa: SIM115 - handed to the caller
-            spooled.path.unlink()
-            digest = spooled.digest()
+            # The open handle keeps these very bytes readable if the entry is evicted or
+            # replaced meanwhile (both are an unlink or a rename of the name, not a write).
+            handle = open(entry.blob_path, "rb")  # noqa: SIM115 - handed to the caller
+            digest = hashlib.file_digest(handle, "sha256").hexdigest()
             buffer = map_handle(handle)
             release = page_releaser(buffer)
         else:
@@ -374,7 +374,7 @@ def weights_flow(
         entry = cache.lookup(call.cache_key)
         if entry is not None:
             try:
-                cached = _open_cached(entry, call, spool_dir, landing)
+                cached = _open_cached(entry, call, spool_dir)
             except IntegrityError as exc:
                 cache.discard(entry)
                 entry, damage = None, exc
@@ -395,7 +395,12 @@ def weights_flow(
     in_memory = spool_dir is None and call.format == "json"
 
     def make() -> Send:
-        sink: BodySink = MemorySink(progress) if in_memory else FileSink(landing, progress)
+        # Only a file that becomes the caller's (save) must reach the disk before it is used.
+        sink: BodySink = (
+            MemorySink(progress)
+            if in_memory
+            else FileSink(landing, progress, durable=spool_dir is not None)
+        )
         return Send(call.method, call.path, call.params, headers, call.body, sink)
 
     # Revalidating a verified copy is a single try: when it fails the copy is the answer.

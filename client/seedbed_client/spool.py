@@ -13,6 +13,7 @@ import mmap
 import os
 import tempfile
 from collections.abc import Callable
+from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 from typing import BinaryIO, Protocol
 
@@ -61,19 +62,68 @@ class MemorySink:
         self._data = bytearray()
 
 
+# Pieces at least this large are hashed on the helper thread; smaller ones are not worth the
+# hand-off.
+_BEHIND_MIN = 1 << 16
+
+
+class _HashBehind:
+    """SHA-256 of a stream, computed on a helper thread one piece behind the writer: hashlib
+    releases the GIL on large updates, so hashing a piece overlaps receiving or writing the
+    next. At most one piece is referenced while it is hashed; the pieces must not change."""
+
+    def __init__(self) -> None:
+        self._sha = hashlib.sha256()
+        self._pool: ThreadPoolExecutor | None = None
+        self._pending: Future[None] | None = None
+
+    def update(self, piece: bytes) -> None:
+        self._settle()
+        if len(piece) < _BEHIND_MIN:
+            self._sha.update(piece)
+            return
+        if self._pool is None:
+            self._pool = ThreadPoolExecutor(1, thread_name_prefix="seedbed-hash")
+        self._pending = self._pool.submit(self._sha.update, piece)
+
+    def _settle(self) -> None:
+        if self._pending is not None:
+            pending, self._pending = self._pending, None
+            pending.result()
+
+    def hexdigest(self) -> str:
+        self._settle()
+        return self._sha.hexdigest()
+
+    def close(self) -> None:
+        try:
+            self._settle()
+        finally:
+            if self._pool is not None:
+                self._pool.shutdown(wait=True)
+                self._pool = None
+
+
 class FileSink:
     """Writes the body to a temporary file in `directory` (same file system as its target, so
-    the finished file can be renamed into place atomically)."""
+    the finished file can be renamed into place atomically).
 
-    def __init__(self, directory: Path, progress: ProgressHook | None = None) -> None:
+    `durable`: close() forces the data to disk. Needed for a file that becomes the caller's
+    (save); a spool that is only mapped and then unlinked, or copied into the cache (which
+    syncs its own copy), skips it."""
+
+    def __init__(
+        self, directory: Path, progress: ProgressHook | None = None, *, durable: bool = True
+    ) -> None:
         directory.mkdir(parents=True, exist_ok=True)
         fd, name = tempfile.mkstemp(prefix="incoming-", suffix=".part", dir=directory)
         self.path = Path(name)
         self._file = os.fdopen(fd, "wb")
         self.received = 0
         self.total: int | None = None
-        self._hash = hashlib.sha256()
+        self._hash = _HashBehind()
         self._progress = progress
+        self._durable = durable
 
     def begin(self, total: int | None) -> None:
         self.total = total
@@ -89,16 +139,19 @@ class FileSink:
         return self._hash.hexdigest()
 
     def close(self) -> Path:
-        """Flush to disk and close; the file is complete once this returns."""
+        """Flush (to disk when durable) and close; the file is complete once this returns."""
         if not self._file.closed:
             self._file.flush()
-            os.fsync(self._file.fileno())
+            if self._durable:
+                os.fsync(self._file.fileno())
             self._file.close()
+        self._hash.close()
         return self.path
 
     def abandon(self) -> None:
         if not self._file.closed:
             self._file.close()
+        self._hash.close()
         self.path.unlink(missing_ok=True)
 
 
@@ -135,12 +188,12 @@ def read_file(path: Path) -> bytearray:
     return data[:done] if done < size else data
 
 
-def copy_to_spool(source: Path, directory: Path) -> FileSink:
+def copy_to_spool(source: Path, directory: Path, *, durable: bool = True) -> FileSink:
     """Copy a file into a new spool file in `directory` (hashing it on the way)."""
-    sink = FileSink(directory)
+    sink = FileSink(directory, durable=durable)
     try:
         with open(source, "rb") as fh:
-            while chunk := fh.read(1024 * 1024):
+            while chunk := fh.read(4 * 1024 * 1024):
                 sink.write(chunk)
         sink.close()
     except BaseException:
