@@ -41,17 +41,20 @@ def encode_body(
     *,
     digests: Mapping[str, str] | None = None,
     hold_bytes: int = 0,
+    on_digests: Callable[[Mapping[str, str]], None] | None = None,
 ) -> EncodedBody:
     """Dispatch on the requested format name (json | npz | safetensors). `hold_bytes` bounds
     what safetensors may keep from its hashing pass (the other formats walk their tensors
-    once and ignore it)."""
+    once and ignore it), and `on_digests` receives the digests of its hashing pass."""
     builder = BUILDERS.get(format_name)
     if builder is None:
         raise FormatInputError(
             f"format {format_name!r} is not supported; allowed: {', '.join(FORMAT_NAMES)}"
         )
     if format_name == "safetensors":
-        return safetensors_body(document, tensors, digests=digests, hold_bytes=hold_bytes)
+        return safetensors_body(
+            document, tensors, digests=digests, hold_bytes=hold_bytes, on_digests=on_digests
+        )
     return builder(document, tensors, digests=digests)
 
 

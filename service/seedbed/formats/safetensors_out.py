@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import json
 import struct
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from typing import Any
 
 from .common import (
@@ -78,10 +78,12 @@ def safetensors_body(
     *,
     digests: Mapping[str, str] | None = None,
     hold_bytes: int = 0,
+    on_digests: Callable[[Mapping[str, str]], None] | None = None,
 ) -> EncodedBody:
     """Build the safetensors response. Without `digests`, iterating the body first runs the
     hashing pass (every tensor generated once) before the header is sent; up to `hold_bytes`
-    of that pass's output are kept and sent as they are instead of being generated again."""
+    of that pass's output are kept and sent as they are instead of being generated again.
+    `on_digests` receives the digests that pass computed, before the header is sent."""
     tensors = tuple(tensors)
     check_inputs(document, tensors)
     check_digests(digests, tensors)
@@ -100,6 +102,8 @@ def safetensors_body(
     def produce() -> Iterator[bytes]:
         held: dict[str, list[bytes]] = {}
         known = given if given is not None else _hashing_pass(tensors, hold_bytes, held)
+        if given is None and on_digests is not None:
+            on_digests(known)
         for entry, t in zip(manifest[TENSORS_KEY], tensors, strict=True):
             entry["sha256"] = known[t.name]
         header = _header(manifest, tensors)

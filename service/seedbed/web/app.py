@@ -13,6 +13,7 @@ from starlette.routing import Route
 from seedbed import __version__
 from seedbed.core.audit import AuditLimits
 from seedbed.settings import Settings
+from seedbed.web.digest_memo import DigestMemo
 from seedbed.web.errors import install_error_handlers
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.middleware import RequestBookkeeping
@@ -103,6 +104,7 @@ def create_app(
     app.state.metrics = metrics
     app.state.readiness = None
     app.state.plan_cache = PlanCache(settings.plan_cache_entries, settings.plan_cache_bytes)
+    app.state.digest_memo = DigestMemo(settings.plan_cache_entries)
     app.state.audit_limits = AuditLimits(max_upload_bytes=settings.max_audit_bytes)
     app.state.diagnostic_limits = settings.diagnostics
     install_error_handlers(app)

@@ -14,6 +14,7 @@ from seedbed.core.diagnostics import DiagnosticLimits
 from seedbed.core.plan import build_plan, reseeded
 from seedbed.core.plan_types import Plan
 from seedbed.settings import Settings
+from seedbed.web.digest_memo import DigestMemo
 from seedbed.web.json_body import read_json_body
 from seedbed.web.metrics import ServiceMetrics
 from seedbed.web.plan_cache import CachedPlan, PlanCache, request_keys
@@ -40,6 +41,11 @@ def audit_limits_of(request: Request) -> AuditLimits:
 def diagnostic_limits_of(request: Request) -> DiagnosticLimits:
     limits = getattr(request.app.state, "diagnostic_limits", None)
     return limits if isinstance(limits, DiagnosticLimits) else DiagnosticLimits()
+
+
+def digest_memo_of(request: Request) -> DigestMemo | None:
+    memo: DigestMemo | None = getattr(request.app.state, "digest_memo", None)
+    return memo
 
 
 def plan_cache_of(request: Request) -> PlanCache | None:

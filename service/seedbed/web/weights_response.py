@@ -19,6 +19,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass, field
+from functools import partial
 from typing import Any
 
 from fastapi import Request, Response
@@ -29,7 +30,8 @@ from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.render import block_shape, iter_tensor_bytes
 from seedbed.core.request.problems import Problem, RequestRejected
 from seedbed.formats import EncodedBody, OutgoingTensor, encode_body, json_size
-from seedbed.web.dependencies import metrics_of, settings_of
+from seedbed.web.dependencies import digest_memo_of, metrics_of, settings_of
+from seedbed.web.digest_memo import digest_key
 from seedbed.web.documents import block_entry, response_document
 from seedbed.web.errors import ApiError
 from seedbed.web.etag import none_match, strong_etag
@@ -125,19 +127,27 @@ def encode_weights(
     threads: int,
     digests: Mapping[str, str] | None = None,
     rearranged: Rearranged | None = None,
+    on_digests: Callable[[Mapping[str, str]], None] | None = None,
 ) -> EncodedBody:
     """The encoded body. With `digests` (sha256 per tensor, known in advance) the formats verify
     every tensor while streaming and skip their own hashing pass; the bytes are the same."""
     if rearranged is not None:
         doc = {**response_document(plan, None), **rearranged.document}
         return encode_body(
-            fmt, doc, rearranged.tensors(), digests=digests, hold_bytes=HOLD_BUDGET_BYTES
+            fmt,
+            doc,
+            rearranged.tensors(),
+            digests=digests,
+            hold_bytes=HOLD_BUDGET_BYTES,
+            on_digests=on_digests,
         )
     tensors = outgoing_tensors(plan, selection, chunk_bytes, threads)
     doc = response_document(plan, None if selection is None else selection.describe())
     # Without digests, safetensors runs its hashing pass lazily, at the body's first step
     # (in the threadpool, after the headers went out).
-    return encode_body(fmt, doc, tensors, digests=digests, hold_bytes=HOLD_BUDGET_BYTES)
+    return encode_body(
+        fmt, doc, tensors, digests=digests, hold_bytes=HOLD_BUDGET_BYTES, on_digests=on_digests
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -254,6 +264,19 @@ async def weights_response(request: Request, plan: Plan, options: WeightsOptions
                 f"{settings.max_json_response_bytes} (SEEDBED_MAX_JSON_RESPONSE_BYTES); {advice}",
             )
     digests = options.digests if exact else None
+    on_digests = None
+    memo = digest_memo_of(request)
+    if exact and digests is None and options.rearranged is None and memo is not None:
+        # A request served before: its digests are known, so safetensors need not hash first.
+        key = digest_key(
+            plan.canonical_request,
+            plan.algorithm,
+            None if selection is None else selection.tensor.tensor,
+            None if selection is None else (selection.start, selection.stop),
+        )
+        digests = memo.get(key)
+        if digests is None:
+            on_digests = partial(memo.put, key)
     # safetensors hashes every tensor before its first byte: that pass must not block the loop.
     encoded = await run_in_threadpool(
         encode_weights,
@@ -264,6 +287,7 @@ async def weights_response(request: Request, plan: Plan, options: WeightsOptions
         settings.threads_per_request(),
         digests,
         options.rearranged,
+        on_digests,
     )
     headers["Content-Length"] = str(encoded.content_length)
     headers["Content-Disposition"] = f'attachment; filename="{options.filename}.{fmt}"'
