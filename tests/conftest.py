@@ -21,7 +21,7 @@ os.environ.setdefault("SEEDBED_DATA_DIR", tempfile.mkdtemp(prefix="seedbed-test-
 
 TESTS = Path(__file__).resolve().parent
 # Markers by top-level folder: e2e and client tests start real servers, registry tests real
-# databases. The fast loop deselects them: pytest -m "not e2e and not registry and not slow".
+# databases. The fast loop deselects them: pytest -n 2 -m "not e2e and not registry and not slow".
 FOLDER_MARKERS: dict[str, tuple[str, ...]] = {
     "e2e": ("e2e",),
     "client": ("e2e",),
