@@ -21,7 +21,7 @@ import math
 from dataclasses import dataclass, fields
 
 from seedbed.core.diagnostics.network import Network, Step
-from seedbed.core.plan_types import Plan
+from seedbed.core.plan_types import Plan, TensorPlan
 from seedbed.core.request.limits import SETTING_PREFIX, raised_by
 from seedbed.core.request.problems import Problem
 
@@ -96,17 +96,24 @@ def _step_work(step: Step, batch: int) -> tuple[int, int]:
     return work, kept
 
 
-def run_cost(network: Network, plan: Plan, batch: int) -> Cost:
-    """The cost of one run of `network` with `plan`'s weights at `batch` samples."""
+def tensors_read(network: Network, plan: Plan) -> list[TensorPlan]:
+    """The plan's tensors a run of `network` reads: its layers' own and its branches'."""
     names = {s.name for s in network.steps}
     branches = {s.branch for s in network.steps if s.branch is not None}
+    read = []
+    for t in plan.tensors:
+        owner = t.layer if t.layer in names else t.tensor.rsplit(".", 1)[0]
+        if owner in names or owner in branches:
+            read.append(t)
+    return read
+
+
+def run_cost(network: Network, plan: Plan, batch: int) -> Cost:
+    """The cost of one run of `network` with `plan`'s weights at `batch` samples."""
     work = 0
     generated = 0
     weight_bytes = 0
-    for t in plan.tensors:
-        owner = t.layer if t.layer in names else t.tensor.rsplit(".", 1)[0]
-        if owner not in names and owner not in branches:
-            continue
+    for t in tensors_read(network, plan):
         weight_bytes += t.count * (8 if t.dtype == "float64" else 4)
         if t.sampler in RANDOM_SAMPLERS:
             generated += t.count

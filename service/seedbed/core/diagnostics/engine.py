@@ -29,12 +29,14 @@ and twin units (see twins).
 
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 import numpy.typing as npt
 
+from seedbed.core.diagnostics.budget import tensors_read
 from seedbed.core.diagnostics.network import Network, Step
 from seedbed.core.diagnostics.ops import BACKWARD, FORWARD
 from seedbed.core.diagnostics.twin_groups import (
@@ -53,6 +55,8 @@ from seedbed.core.render import render_rows
 FloatArray = npt.NDArray[np.float64]
 
 _RECENT = 6  # float64 copies kept by WeightStore
+# A tensor this large is rendered on all of a store's threads by itself.
+_ALONE_VALUES = 1 << 22
 INPUT_SEED = 20260917  # the synthetic batch and the loss projection; any fixed value would do
 
 
@@ -91,6 +95,37 @@ class WeightStore:
         # in the forward pass and for twin detection, one conversion serves both
         self._recent: dict[str, FloatArray] = {}
 
+    def render(self, tensors: list[TensorPlan]) -> None:
+        """Render `tensors` now. The run keeps every tensor it reads until it ends anyway (the
+        budget counts them all); rendering them before the first matrix product keeps
+        generation from sharing the cores with BLAS. Large tensors take the store's threads one
+        at a time; the others render side by side, a thread each (less hand-off per value)."""
+        large = [t for t in tensors if t.count >= _ALONE_VALUES]
+        small = [t for t in tensors if t.count < _ALONE_VALUES]
+        for t in large:
+            self._stored(t, self._threads)
+        if self._threads > 1 and len(small) > 1:
+            with ThreadPoolExecutor(self._threads, thread_name_prefix="seedbed-render") as pool:
+                for _ in pool.map(lambda t: self._stored(t, 1), small):
+                    pass
+        else:
+            for t in small:
+                self._stored(t, self._threads)
+
+    def _stored(self, t: TensorPlan, threads: int | None = None) -> np.ndarray:
+        stored = self._values.get(t.tensor)
+        if stored is None:
+            served = render_rows(
+                self._plan, t, threads=self._threads if threads is None else threads
+            )
+            keep = np.float64 if t.dtype == "float64" else np.float32  # both exact
+            logical = np.transpose(
+                np.asarray(served, dtype=keep), tuple(int(a) for a in np.argsort(t.served_axes))
+            )
+            stored = np.ascontiguousarray(logical)
+            self._values[t.tensor] = stored
+        return stored
+
     def logit_scale(self, layer: str) -> float:
         """The plan's factor on attention layer `layer`'s logit scale (1 when none)."""
         return self._logit.get(layer, 1.0)
@@ -107,15 +142,7 @@ class WeightStore:
         t = self._by_name.get(name)
         if t is None:
             return None
-        stored = self._values.get(name)
-        if stored is None:
-            served = render_rows(self._plan, t, threads=self._threads)
-            keep = np.float64 if t.dtype == "float64" else np.float32  # both exact
-            logical = np.transpose(
-                np.asarray(served, dtype=keep), tuple(int(a) for a in np.argsort(t.served_axes))
-            )
-            stored = np.ascontiguousarray(logical)
-            self._values[name] = stored
+        stored = self._stored(t)
         if stored.dtype == np.float64:
             return stored
         wide = self._recent.get(name)
@@ -187,6 +214,7 @@ def simulate(
 ) -> Simulation:
     """Run the synthetic batch forward and the loss gradient back (see module doc)."""
     store = WeightStore(plan, threads)
+    store.render(tensors_read(network, plan))
     rng = np.random.default_rng(INPUT_SEED)
     x: Any = synthetic_inputs(network, batch, rng)
     sim = Simulation(records=[], batch=batch, grid=network.input_grid)
