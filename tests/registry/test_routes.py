@@ -26,8 +26,6 @@ from seedbed.registry.tables import recipe_versions
 from seedbed.web import Settings, create_app
 from seedbed.web.routes import recipes
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 IMMUTABLE_PUBLIC = "public, max-age=31536000, immutable"
 
 # Invented scenario: a bird-call detector a field-recording team pins for its training runs.

@@ -8,13 +8,11 @@ from pathlib import Path
 
 import numpy as np
 import onnx
-import pytest
 from fastapi.testclient import TestClient
 from onnx import TensorProto, helper, numpy_helper
 
 from .onnx_helpers import post_model
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 DOC = Path(__file__).resolve().parents[3] / "docs" / "onnx.md"
 
 

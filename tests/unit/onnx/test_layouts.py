@@ -21,8 +21,6 @@ from conftest import require_oracle
 
 from .onnx_helpers import post_model, seedbed_weights
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 
 def _model(
     nodes: list[Any], inputs: list[Any], output: Any, inits: list[Any], opset: int = 17

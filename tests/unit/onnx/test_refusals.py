@@ -13,8 +13,6 @@ from onnx import TensorProto, helper, numpy_helper
 from .onnx_graphs import conv_net, mlp
 from .onnx_helpers import RAW, post_model
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 
 def _error(r: Any, status: int, code: str) -> dict[str, Any]:
     assert r.status_code == status, r.text

@@ -21,8 +21,6 @@ from conftest import require_oracle
 from .onnx_graphs import conv_net, gpt_block, mlp, recurrent
 from .onnx_helpers import npz_of, post_model, seedbed_weights
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 # LSTM (opset 14): W, R, B stack gate blocks as [i, o, f, c]; GRU (opset 14): [z, r, h]
 # = update, reset, candidate. seedbed's defaults: lstm input, forget, cell, output; gru reset,
 # update, candidate. Index of each graph block in seedbed's order:

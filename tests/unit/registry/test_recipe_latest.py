@@ -30,8 +30,6 @@ from seedbed.registry.prepare import prepare_recipe
 from seedbed.registry.store import publish_unless_same
 from seedbed.web import Settings, create_app
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 # Invented scenario: a beehive-acoustics classifier a field team republishes as it grows.
 HIVE: dict[str, Any] = {
     "seed": "hive-hum-2026",

@@ -29,8 +29,6 @@ from conftest import require_oracle
 from seedbed.core.audit import AuditLimits
 from seedbed.web import Settings, create_app
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 
 def st() -> ModuleType:
     """The safetensors library's numpy API: the reference writer and reader."""

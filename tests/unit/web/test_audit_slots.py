@@ -12,12 +12,9 @@ import json
 import anyio
 import httpx
 import numpy as np
-import pytest
 
 from seedbed.settings import Settings as SettingsType
 from seedbed.web import Settings, create_app
-
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 
 def npz() -> bytes:

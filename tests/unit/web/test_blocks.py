@@ -16,8 +16,6 @@ from fastapi.testclient import TestClient
 from seedbed.web import Settings, create_app
 from unit.web.test_endpoints import READERS
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 # An invented network for a wind-turbine vibration model.
 TURBINE: dict[str, Any] = {
     "seed": "turbine-7/blade-2",

@@ -23,8 +23,6 @@ from seedbed.core.plan import build_plan
 from seedbed.core.request.problems import RequestRejected
 from seedbed.web import Settings, create_app
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 EMBEDDING_IN_BRANCH: dict[str, Any] = {
     "seed": 1,
     "layers": [{"name": "e", "kind": "embedding", "vocab": 100, "dim": 512, "branch": "b"}],

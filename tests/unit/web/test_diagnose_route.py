@@ -17,8 +17,6 @@ from fastapi.testclient import TestClient
 from seedbed.core.diagnostics import DiagnosticLimits
 from seedbed.web import Settings, create_app
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 # An invented network: a classifier of beehive sounds from spectrogram frames.
 HIVE: dict[str, Any] = {
     "seed": "hive-acoustics/3",

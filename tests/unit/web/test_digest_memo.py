@@ -7,14 +7,11 @@ import hashlib
 import json
 import struct
 
-import pytest
 import safetensors.numpy
 from fastapi.testclient import TestClient
 
 from seedbed.web import Settings, create_app
 from seedbed.web.digest_memo import DigestMemo, digest_key
-
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 NETWORK = {
     "seed": "memo/estuary-sensor",

@@ -27,8 +27,6 @@ from seedbed.core.render import render_rows
 from seedbed.core.version import ALGORITHM
 from seedbed.web import Settings, create_app
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 # An invented network: a soil-moisture forecaster with a few of every kind of layer.
 GREENHOUSE: dict[str, Any] = {
     "seed": 31337,

@@ -14,8 +14,6 @@ from fastapi.testclient import TestClient
 from seedbed.core.request.limits import Limits
 from seedbed.web import Settings, create_app
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 # Small limits so the size refusals are cheap to provoke.
 LIMITS = Limits(max_layers=6, max_tensor_elements=10_000, max_request_elements=30_000)
 SETTINGS = Settings(max_body_bytes=8192, max_json_response_bytes=20_000, limits=LIMITS)

@@ -7,15 +7,12 @@ from __future__ import annotations
 import json
 from typing import Any
 
-import pytest
 import schemathesis
 from fastapi.testclient import TestClient
 from hypothesis import HealthCheck, settings
 
 from seedbed.core.request.limits import Limits
 from seedbed.web import Settings, create_app
-
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 APP = create_app(
     Settings(

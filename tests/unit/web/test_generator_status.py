@@ -9,14 +9,12 @@ import subprocess
 import sys
 from pathlib import Path
 
-import pytest
 from fastapi.testclient import TestClient
 
 from seedbed.web import Settings, create_app
 from seedbed_client.generator import kernel
 
 ROOT = Path(__file__).resolve().parents[3]
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 
 def _readyz(settings: Settings) -> dict[str, object]:

@@ -10,8 +10,6 @@ from seedbed.core.plan import build_plan
 from seedbed.core.request.limits import Limits
 from seedbed.web import Settings, create_app
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 LAYERS = [{"name": f"l{i}", "kind": "dense", "n_in": 8, "n_out": 8} for i in range(6)]
 
 

@@ -5,12 +5,8 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-import pytest
-
 from seedbed.core.plan import build_plan
 from seedbed.web.openapi_export import DEFAULT_PATH, REGENERATE, current_document, render
-
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 COMMITTED = Path(__file__).resolve().parents[3] / "openapi" / "openapi.json"
 

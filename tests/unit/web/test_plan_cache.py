@@ -17,8 +17,6 @@ from seedbed.web.plan_cache import CachedPlan, PlanCache, request_keys
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 from support.networks import river_gauge_forecaster
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 
 def _respelled(request: dict) -> bytes:
     """Same JSON value, other spelling: keys reversed, spaces and newlines."""

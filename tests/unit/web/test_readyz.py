@@ -7,7 +7,6 @@ from __future__ import annotations
 import json
 from pathlib import Path
 
-import pytest
 from fastapi.testclient import TestClient
 
 from seedbed.core.version import ALGORITHM
@@ -19,8 +18,6 @@ from seedbed.web.readiness import (
     tensor_digests,
 )
 from support.golden_cases import CASES
-
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 
 def test_baked_values_agree_with_the_golden_tests() -> None:

@@ -28,8 +28,6 @@ from seedbed.registry import Registry, config_from_env, open_registry
 from seedbed.registry.keys import create_key
 from seedbed.web import Settings, create_app
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 DOC_URI = "urn:seedbed:openapi"
 JSON = "application/json"
 

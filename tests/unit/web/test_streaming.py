@@ -10,12 +10,9 @@ import tracemalloc
 from typing import Any
 
 import anyio
-import pytest
 
 from seedbed.core.plan import build_plan
 from seedbed.web import Settings, create_app
-
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
 
 # An invented 4096 x 4096 float64 layer (128 MiB of values): large enough that holding the
 # body, or one whole tensor, would show at once against the bound below.

@@ -17,8 +17,6 @@ from fastapi.testclient import TestClient
 
 from seedbed.web import Settings, create_app
 
-pytestmark = pytest.mark.filterwarnings("ignore::DeprecationWarning")
-
 # An invented network: a beehive weight logger.
 HIVE: dict[str, Any] = {
     "seed": "hive-scale/3",
