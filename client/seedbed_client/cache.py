@@ -2,8 +2,10 @@
 
 Layout under the cache directory:
 
-    v2/by-content/<sha256 of the body>   a response body exactly as received (shared by keys
-                                         whose bodies are identical)
+    v2/by-content/<address of the body>  a response body exactly as received (shared by keys
+                                         whose bodies are identical); the address is
+                                         seedbed_client.body_address's (p16-..., or the plain
+                                         sha256 for bodies stored by earlier clients)
     v2/by-request/<key>.json             which body answers a request key, its ETag, format
                                          and labels (a recipe's service, name and version);
                                          the file's modification time is its last use
@@ -18,8 +20,8 @@ The key is the SHA-256 of the canonical request JSON plus the format and tensor/
 before its entry: a crash leaves at most an orphan blob, never an entry pointing at half a
 body. Orphans and stale temporary files are removed by the next eviction.
 
-Reading never trusts the disk: the caller re-verifies every tensor's sha256 (and the blob's own
-digest) before using an entry, and discards it when it fails.
+Reading never trusts the disk: the caller checks the blob against its address (and the body's
+structure against its manifest) before using an entry, and discards it when it fails.
 """
 
 from __future__ import annotations
@@ -84,7 +86,7 @@ def default_max_bytes(env: Mapping[str, str] | None = None) -> int:
 @dataclass(frozen=True)
 class CacheEntry:
     key: str
-    blob: str  # sha256 of the body = the blob's file name
+    blob: str  # the body's address (body_address) = the blob's file name
     format: str
     etag: str | None
     size: int
@@ -178,7 +180,7 @@ class WeightCache:
     ) -> CacheEntry | None:
         """Keep a verified body (in memory, or a file that is copied) under `key`.
 
-        `digest` is the body's sha256, its name in by-content/. With `move`, a file on the same
+        `digest` is the body's address (body_address), its name in by-content/. With `move`, a file on the same
         file system is renamed in instead of copied. Returns None when the body alone is larger
         than the cap (nothing is stored then).
         """

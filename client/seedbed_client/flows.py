@@ -11,7 +11,6 @@ advances the flow in a worker thread, so that work never blocks an event loop.
 
 from __future__ import annotations
 
-import hashlib
 import json
 import random
 import tempfile
@@ -21,6 +20,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, BinaryIO, Literal
 
+from seedbed_client.body_address import PREFIX as ADDRESS_PREFIX
+from seedbed_client.body_address import address_of
 from seedbed_client.cache import CacheEntry, WeightCache
 from seedbed_client.containers import Inspection, inspect_body, page_releaser, require_intact
 from seedbed_client.errors import (
@@ -268,19 +269,22 @@ def _open_cached(
     try:
         if spool_dir is None and call.format == "json":
             buffer: Any = read_file(entry.blob_path)
-            digest = hashlib.sha256(buffer).hexdigest()
+            digest = address_of(buffer, entry.blob)
         elif spool_dir is None:
             # The open handle keeps these very bytes readable if the entry is evicted or
             # replaced meanwhile (both are an unlink or a rename of the name, not a write).
             handle = open(entry.blob_path, "rb")  # noqa: SIM115 - handed to the caller
-            digest = hashlib.file_digest(handle, "sha256").hexdigest()
             buffer = map_handle(handle)
+            digest = address_of(buffer, entry.blob)
             release = page_releaser(buffer)
         else:
             spooled = copy_to_spool(entry.blob_path, spool_dir)
             buffer = map_file(spooled.path)
             release = page_releaser(buffer)
-            digest = spooled.digest()
+            # The copy was hashed on the way in, in the current scheme; an older entry's name
+            # is the plain SHA-256 of the body.
+            same_scheme = entry.blob.startswith(ADDRESS_PREFIX)
+            digest = spooled.digest() if same_scheme else address_of(buffer, entry.blob)
     except OSError as exc:
         if handle is not None:
             handle.close()

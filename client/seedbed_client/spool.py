@@ -8,7 +8,6 @@ JSON bodies are collected in memory (`MemorySink`).
 
 from __future__ import annotations
 
-import hashlib
 import mmap
 import os
 import tempfile
@@ -16,6 +15,8 @@ from collections.abc import Callable
 from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 from typing import BinaryIO, Protocol
+
+from seedbed_client.body_address import AddressHasher
 
 ProgressHook = Callable[[int, int | None], None]  # (bytes received, total or None)
 
@@ -39,7 +40,7 @@ class MemorySink:
         self.received = 0
         self.total: int | None = None
         self._data = bytearray()
-        self._hash = hashlib.sha256()
+        self._hash = AddressHasher()
         self._progress = progress
 
     def begin(self, total: int | None) -> None:
@@ -68,12 +69,12 @@ _BEHIND_MIN = 1 << 16
 
 
 class _HashBehind:
-    """SHA-256 of a stream, computed on a helper thread one piece behind the writer: hashlib
+    """The address of a stream, computed on a helper thread one piece behind the writer: hashlib
     releases the GIL on large updates, so hashing a piece overlaps receiving or writing the
     next. At most one piece is referenced while it is hashed; the pieces must not change."""
 
     def __init__(self) -> None:
-        self._sha = hashlib.sha256()
+        self._sha = AddressHasher()
         self._pool: ThreadPoolExecutor | None = None
         self._pending: Future[None] | None = None
 
