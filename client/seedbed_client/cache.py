@@ -180,9 +180,9 @@ class WeightCache:
     ) -> CacheEntry | None:
         """Keep a verified body (in memory, or a file that is copied) under `key`.
 
-        `digest` is the body's address (body_address), its name in by-content/. With `move`, a file on the same
-        file system is renamed in instead of copied. Returns None when the body alone is larger
-        than the cap (nothing is stored then).
+        `digest` is the body's address (body_address), its name in by-content/. With `move`, a
+        file on the same file system is renamed in instead of copied. Returns None when the body
+        alone is larger than the cap (nothing is stored then).
         """
         size = body.stat().st_size if isinstance(body, Path) else len(body)
         if size > self.max_bytes:
