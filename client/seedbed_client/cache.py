@@ -163,7 +163,7 @@ class WeightCache:
     def discard(self, entry: CacheEntry) -> None:
         entry.entry_path.unlink(missing_ok=True)
         if not self._referenced(entry.blob):
-            entry.blob_path.unlink(missing_ok=True)
+            _remove(entry.blob_path)
 
     # --- writing -------------------------------------------------------------------------------
 
@@ -281,7 +281,7 @@ class WeightCache:
         for folder in (self._blobs, self._tmp):
             for path in folder.glob("*") if folder.is_dir() else ():
                 if path.name not in referenced and _age(path, now) > ORPHAN_GRACE_S:
-                    path.unlink(missing_ok=True)
+                    _remove(path)
         sizes = {}
         for _, _, blob in entries:
             try:
@@ -300,7 +300,7 @@ class WeightCache:
             path.unlink(missing_ok=True)
             users[blob] -= 1
             if users[blob] == 0:
-                (self._blobs / blob).unlink(missing_ok=True)
+                _remove(self._blobs / blob)
                 total -= sizes[blob]
 
     def size_bytes(self) -> int:
@@ -308,6 +308,13 @@ class WeightCache:
         if not self._blobs.is_dir():
             return 0
         return sum(p.stat().st_size for p in self._blobs.glob("*") if p.is_file())
+
+
+def _remove(path: Path) -> None:
+    """Unlink a body. Where an open file cannot be unlinked (Windows: arrays may map a cached
+    body), it stays as an orphan and a later eviction removes it."""
+    with contextlib.suppress(OSError):
+        path.unlink(missing_ok=True)
 
 
 def _age(path: Path, now: float) -> float:
