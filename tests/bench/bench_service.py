@@ -40,6 +40,8 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[2]
 sys.path[:0] = [str(ROOT / "tests"), str(ROOT / "service")]
 
+from timing import best_of  # noqa: E402
+
 from support.networks import river_gauge_forecaster, single_dense  # noqa: E402
 from support.server import RunningServer, start_server  # noqa: E402
 
@@ -48,13 +50,7 @@ SIDE = 4096
 
 def best_seconds(action: Callable[[], object], repeats: int) -> float:
     action()  # warm-up: first-touch page faults, imports, connection set-up
-    times = []
-    for _ in range(repeats):
-        started = time.perf_counter()
-        action()
-        times.append(time.perf_counter() - started)
-    # The fastest run is the one least disturbed by everything else on the machine.
-    return min(times)
+    return best_of(repeats, action)
 
 
 def numpy_baseline(count: int, repeats: int) -> float:

@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-from .fill import DISTRIBUTIONS, fill_scaled, fill_standard, standard_runs
+from .fill import fill_scaled, fill_standard, standard_runs
 from .keys import derive_key
 from .rounding import round_to_dtype
 
@@ -258,19 +258,14 @@ def render_rows(
 ) -> np.ndarray:
     """Rows [start, stop) of the served first axis, in r.dtype (ml_dtypes.bfloat16 for bfloat16)."""
     end = check_block(r, start, stop)
-    logical = r.logical_shape
-    if (
-        r.sampler in DISTRIBUTIONS
-        and r.dtype in ("float32", "float64")
-        and r.served_axes == tuple(range(len(logical)))
+    if r.sampler not in ("orthogonal", "identity") and r.served_axes == tuple(
+        range(len(r.logical_shape))
     ):
-        # Served in generation order: the generator scales and rounds once, straight into the
-        # output dtype (the same values as below, without a float64 copy and a second pass).
-        row = math.prod(logical[1:])
-        out = np.empty((end - start) * row, dtype=r.dtype)
-        key = derive_key(r.seed, r.tensor)
-        fill_scaled(r.sampler, key, out, start * row, r.scale, threads=threads)
-        return out.reshape(block_shape(r, start, end))
+        # Served in generation order: the path the streamed bytes take (for float32/float64 the
+        # generator scales and rounds once, straight into the output dtype), the same values as
+        # below without a float64 copy and a second pass.
+        row = math.prod(r.logical_shape[1:])
+        return _flat_values(r, start * row, end * row, threads).reshape(block_shape(r, start, end))
     values = render_float64(r, start, stop, threads=threads)
     return round_to_dtype(np.ascontiguousarray(values), r.dtype)
 
